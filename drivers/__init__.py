@@ -1,0 +1,1 @@
+"""Instrument interfaces, transports and drivers. Knows nothing of recipes, runs or analysis."""

@@ -1,0 +1,199 @@
+"""Abstract instrument interfaces: what the station may ask of each kind of instrument.
+
+A driver for a new model implements one of these; the sequencer only ever talks to these
+interfaces. Units: temperatures in degrees Celsius, differences in kelvin, stage positions in
+the axis unit (degrees for rotary axes, millimetres for linear ones), times in seconds.
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+import numpy as np
+
+BlackbodyMode = Literal["absolute", "difference"]
+
+
+class Instrument(ABC):
+    """Common to every instrument: a name for messages, an identity string, a way to close."""
+
+    name: str = "instrument"
+
+    @abstractmethod
+    def identify(self) -> str:
+        """Maker/model/serial/firmware as the instrument reports it."""
+
+    def close(self) -> None:  # noqa: B027 - optional for drivers without resources
+        """Release the transport. Safe to call twice."""
+
+    def snapshot(self) -> dict[str, Any]:
+        """Live readings for the console and frame metadata. Never raises on a healthy link."""
+        return {}
+
+
+class Blackbody(Instrument):
+    """An area blackbody source with a reference (ambient/target plate) sensor."""
+
+    kind = "blackbody"
+
+    @abstractmethod
+    def set_mode(self, mode: BlackbodyMode) -> None: ...
+
+    @abstractmethod
+    def mode(self) -> BlackbodyMode: ...
+
+    @abstractmethod
+    def set_temperature(self, celsius: float) -> None:
+        """Absolute setpoint (absolute mode)."""
+
+    @abstractmethod
+    def set_difference(self, kelvin: float) -> None:
+        """Setpoint relative to the reference sensor (difference mode)."""
+
+    @abstractmethod
+    def setpoint(self) -> float:
+        """The setpoint in the current mode's unit (C absolute, K difference)."""
+
+    @abstractmethod
+    def temperature(self) -> float:
+        """Measured source temperature, C."""
+
+    @abstractmethod
+    def reference_temperature(self) -> float:
+        """Measured reference (ambient / target plate) temperature, C."""
+
+    def difference(self) -> float:
+        """Measured source minus reference, K."""
+        return self.temperature() - self.reference_temperature()
+
+    @abstractmethod
+    def is_stable(self) -> bool:
+        """The controller's own stability flag."""
+
+    @abstractmethod
+    def go_safe(self) -> None:
+        """Drive to the safe setpoint configured for this station (never raises silently)."""
+
+
+class TargetWheel(Instrument):
+    """A wheel of targets; slots are numbered from 1 and may carry names."""
+
+    kind = "wheel"
+
+    @abstractmethod
+    def slot_count(self) -> int: ...
+
+    @abstractmethod
+    def slot_names(self) -> dict[int, str]: ...
+
+    @abstractmethod
+    def select_slot(self, slot: int) -> None:
+        """Start moving to a slot; returns at once. Poll `is_moving`."""
+
+    def select(self, target: str | int) -> int:
+        """Select by slot number or by name; returns the slot number."""
+        if isinstance(target, int):
+            slot = target
+        else:
+            by_name = {v: k for k, v in self.slot_names().items()}
+            if target not in by_name:
+                raise KeyError(f"{self.name}: no slot named {target!r}; slots are {by_name}")
+            slot = by_name[target]
+        self.select_slot(slot)
+        return slot
+
+    @abstractmethod
+    def current_slot(self) -> int | None:
+        """Slot in the beam, or None while travelling."""
+
+    @abstractmethod
+    def is_moving(self) -> bool: ...
+
+    @abstractmethod
+    def home(self) -> None: ...
+
+
+@dataclass(frozen=True)
+class AxisLimits:
+    """Soft limits of one axis, in its unit; `park` is where the axis rests when safe."""
+
+    minimum: float
+    maximum: float
+    park: float = 0.0
+    unit: str = "deg"
+
+    def contains(self, value: float) -> bool:
+        return self.minimum <= value <= self.maximum
+
+
+class MotionStage(Instrument):
+    """A motion stage or gimbal with named axes (e.g. az/el or x/y)."""
+
+    kind = "stage"
+
+    @abstractmethod
+    def axes(self) -> list[str]: ...
+
+    @abstractmethod
+    def limits(self, axis: str) -> AxisLimits:
+        """Soft limits (the station's, which may be tighter than the controller's)."""
+
+    @abstractmethod
+    def move_to(self, targets: dict[str, float]) -> None:
+        """Start absolute moves; refuses out-of-limit targets before any axis moves."""
+
+    @abstractmethod
+    def position(self, axis: str) -> float: ...
+
+    def positions(self) -> dict[str, float]:
+        return {a: self.position(a) for a in self.axes()}
+
+    @abstractmethod
+    def is_moving(self) -> bool: ...
+
+    @abstractmethod
+    def home(self) -> None: ...
+
+    @abstractmethod
+    def stop(self) -> None: ...
+
+    def park(self) -> None:
+        """Move every axis to its park position."""
+        self.move_to({a: self.limits(a).park for a in self.axes()})
+
+
+@dataclass
+class Frame:
+    """One frame as grabbed. `data` is (rows, cols); `counter` comes from the camera/grabber."""
+
+    data: np.ndarray
+    counter: int
+    timestamp: float
+    meta: dict[str, Any] = field(default_factory=dict)
+
+
+class FrameGrabber(Instrument):
+    """A source of frames from the UUT."""
+
+    kind = "grabber"
+
+    @property
+    @abstractmethod
+    def shape(self) -> tuple[int, int]:
+        """(rows, cols)."""
+
+    @property
+    @abstractmethod
+    def bit_depth(self) -> int: ...
+
+    @property
+    @abstractmethod
+    def frame_rate(self) -> float:
+        """Frames per second (used for timing and duration estimates)."""
+
+    @abstractmethod
+    def grab(self, count: int) -> Iterator[Frame]:
+        """Yield `count` consecutive frames; waits go through the station clock."""

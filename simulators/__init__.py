@@ -1,0 +1,1 @@
+"""The simulated bench: clock-driven physics, wire-protocol servers and the simulated camera."""
