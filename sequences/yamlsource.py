@@ -1,0 +1,255 @@
+"""YAML loading that remembers where every key, value and list item came from.
+
+Recipe, station and UUT files are written by hand, so every complaint about them must name the
+file, line and column of the offending text. PyYAML's composer already records marks on nodes; this
+module composes the node graph with ``yaml.SafeLoader`` and builds ordinary ``dict``/``list``
+values (subclasses) that keep those marks beside the data. Consumers read the data as plain Python
+and ask the container for positions when they need to complain::
+
+    doc = load_yaml("bench.yaml")          # MarkedDict (a dict) for a mapping document
+    doc["stage"]["axes"]                   # plain access
+    doc.ref_of("stage")                    # SourceRef of the value under "stage"
+    doc.key_ref("stage")                   # SourceRef of the key text itself
+    doc["steps"].ref_of(2)                 # SourceRef of the third list item
+
+Scalars stay plain (``int``, ``str`` ...): their position is asked of the container that holds them.
+A document whose top level is not a container comes back as a :class:`MarkedScalar` so that the
+caller can still point at it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Hashable, Union
+
+import yaml
+
+__all__ = [
+    "SourceRef",
+    "Problem",
+    "SourceError",
+    "MarkedDict",
+    "MarkedList",
+    "MarkedScalar",
+    "MarkedNode",
+    "load_yaml",
+    "ref_in",
+]
+
+
+@dataclass(frozen=True, order=True)
+class SourceRef:
+    """A place in a text file; ``line`` and ``column`` are 1-based, as editors show them."""
+
+    file: str
+    line: int
+    column: int
+
+    def __str__(self) -> str:
+        return f"{self.file}:{self.line}:{self.column}"
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with a file: where, what, and (optionally) what would fix it."""
+
+    where: SourceRef
+    message: str
+    hint: str = ""
+
+    def __str__(self) -> str:
+        text = f"{self.where}: {self.message.rstrip('.')}."
+        if self.hint:
+            text += f" {self.hint.rstrip('.')}."
+        return text
+
+
+class SourceError(ValueError):
+    """Raised with every problem found in a file, so the author can fix them all in one pass."""
+
+    def __init__(self, problems: list[Problem]) -> None:
+        self.problems: list[Problem] = sorted(
+            problems, key=lambda p: (p.where.file, p.where.line, p.where.column)
+        )
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        return "\n".join(str(p) for p in self.problems)
+
+
+def _ref(file: str, node: yaml.Node) -> SourceRef:
+    mark = node.start_mark
+    return SourceRef(file, mark.line + 1, mark.column + 1)
+
+
+class MarkedDict(dict):
+    """A ``dict`` built from a YAML mapping, remembering where its keys and values are."""
+
+    def __init__(self, where: SourceRef) -> None:
+        super().__init__()
+        self._where = where
+        self._key_refs: dict[Hashable, SourceRef] = {}
+        self._value_refs: dict[Hashable, SourceRef] = {}
+
+    def ref(self) -> SourceRef:
+        """Where the mapping itself starts."""
+        return self._where
+
+    def ref_of(self, key: Hashable) -> SourceRef:
+        """Where the value under ``key`` starts (the mapping's start if the key is absent)."""
+        return self._value_refs.get(key, self._where)
+
+    def key_ref(self, key: Hashable) -> SourceRef:
+        """Where the key text itself is (the mapping's start if the key is absent)."""
+        return self._key_refs.get(key, self._where)
+
+
+class MarkedList(list):
+    """A ``list`` built from a YAML sequence, remembering where each item is."""
+
+    def __init__(self, where: SourceRef) -> None:
+        super().__init__()
+        self._where = where
+        self._item_refs: list[SourceRef] = []
+
+    def ref(self) -> SourceRef:
+        """Where the sequence itself starts."""
+        return self._where
+
+    def ref_of(self, index: int) -> SourceRef:
+        """Where item ``index`` starts (the sequence's start if out of range)."""
+        try:
+            return self._item_refs[index]
+        except IndexError:
+            return self._where
+
+
+@dataclass(frozen=True)
+class MarkedScalar:
+    """A document whose top level is a single scalar (or empty): its value and where it is."""
+
+    value: Any
+    where: SourceRef = field(compare=False)
+
+    def ref(self) -> SourceRef:
+        return self.where
+
+
+MarkedNode = Union[MarkedDict, MarkedList, MarkedScalar]
+
+
+def ref_in(container: Any, key: Any, fallback: SourceRef) -> SourceRef:
+    """Position of ``container[key]`` if the container knows it, else ``fallback``.
+
+    Handy when code walks data that may have been built in Python rather than loaded from YAML.
+    """
+    if isinstance(container, (MarkedDict, MarkedList)):
+        return container.ref_of(key)
+    return fallback
+
+
+class _Builder:
+    """Turns a composed node graph into marked containers, collecting problems as it goes."""
+
+    def __init__(self, file: str) -> None:
+        self.file = file
+        self.loader = yaml.SafeLoader("")
+        self.problems: list[Problem] = []
+        self._done: dict[int, Any] = {}
+
+    def build(self, node: yaml.Node) -> Any:
+        # Aliases share the node object: build it once so anchors keep their identity.
+        if id(node) in self._done:
+            return self._done[id(node)]
+        if isinstance(node, yaml.MappingNode):
+            return self._mapping(node)
+        if isinstance(node, yaml.SequenceNode):
+            out_list = MarkedList(_ref(self.file, node))
+            self._done[id(node)] = out_list
+            for item in node.value:
+                out_list.append(self.build(item))
+                out_list._item_refs.append(_ref(self.file, item))
+            return out_list
+        try:
+            value = self.loader.construct_object(node, deep=True)
+        except yaml.YAMLError as exc:
+            self.problems.append(
+                Problem(_ref(self.file, node), f"cannot read this value ({exc})",
+                        "quote it if it is meant as text")
+            )
+            value = node.value
+        self._done[id(node)] = value
+        return value
+
+    def _mapping(self, node: yaml.MappingNode) -> MarkedDict:
+        out = MarkedDict(_ref(self.file, node))
+        self._done[id(node)] = out
+        own_keys = {id(k) for k, _ in node.value}
+        try:
+            self.loader.flatten_mapping(node)  # resolves "<<" merge keys in place
+        except yaml.YAMLError as exc:
+            self.problems.append(Problem(_ref(self.file, node), f"bad merge key ({exc})",
+                                         "'<<' must refer to a mapping or a list of mappings"))
+        own_key: dict[Hashable, bool] = {}
+        for key_node, value_node in node.value:
+            key = self.build(key_node)
+            key_where = _ref(self.file, key_node)
+            if not isinstance(key, Hashable) or isinstance(key, (dict, list)):
+                self.problems.append(Problem(key_where, "a mapping key must be a plain value",
+                                             "write the key as a name followed by ':'"))
+                continue
+            is_own = id(key_node) in own_keys
+            if key in out and is_own and own_key[key]:
+                first = out._key_refs[key]
+                self.problems.append(Problem(
+                    key_where, f"key '{key}' appears twice in this mapping",
+                    f"the first is at line {first.line}; keep only one"))
+                continue
+            # A key written in the mapping overrides one brought in by a '<<' merge.
+            own_key[key] = is_own
+            out[key] = self.build(value_node)
+            out._key_refs[key] = key_where
+            out._value_refs[key] = _ref(self.file, value_node)
+        return out
+
+
+def _syntax_problem(file: str, exc: yaml.YAMLError) -> Problem:
+    mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
+    where = SourceRef(file, mark.line + 1, mark.column + 1) if mark else SourceRef(file, 1, 1)
+    parts = [getattr(exc, "context", None), getattr(exc, "problem", None)]
+    what = ", ".join(p for p in parts if p) or str(exc)
+    return Problem(where, f"YAML syntax error: {what}",
+                   "check the indentation, a missing ':' or an unclosed quote or bracket near here")
+
+
+def load_yaml(path: Path | str, text: str | None = None) -> MarkedNode:
+    """Load one YAML document keeping positions; raise :class:`SourceError` on any problem.
+
+    ``path`` names the file in every message; if ``text`` is given it is parsed instead of reading
+    the file (useful for tests and for text received from elsewhere). Duplicate keys, which plain
+    PyYAML silently overwrites, are reported as problems.
+    """
+    file = str(path)
+    if text is None:
+        try:
+            text = Path(path).read_text(encoding="utf-8")
+        except FileNotFoundError:
+            raise SourceError([Problem(SourceRef(file, 1, 1), "file not found",
+                                       "check the path and the current directory")]) from None
+        except (OSError, UnicodeDecodeError) as exc:
+            raise SourceError([Problem(SourceRef(file, 1, 1), f"cannot read the file ({exc})",
+                                       "check permissions and that it is UTF-8 text")]) from None
+    try:
+        root = yaml.compose(text, Loader=yaml.SafeLoader)
+    except yaml.YAMLError as exc:
+        raise SourceError([_syntax_problem(file, exc)]) from None
+    if root is None:
+        return MarkedScalar(None, SourceRef(file, 1, 1))
+    builder = _Builder(file)
+    value = builder.build(root)
+    if builder.problems:
+        raise SourceError(builder.problems)
+    if isinstance(value, (MarkedDict, MarkedList)):
+        return value
+    return MarkedScalar(value, _ref(file, root))
