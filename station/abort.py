@@ -1,0 +1,79 @@
+"""Operator requests that reach the sequencer from signal handlers or other threads.
+
+Signal handlers only set flags here; the sequencer loop looks at them between frames and between
+polls, so safing always runs to its end (a second Ctrl-C is logged, never obeyed by skipping it).
+"""
+
+from __future__ import annotations
+
+import signal
+import threading
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+
+
+class RunInterrupted(Exception):
+    """Raised inside a step when the operator asked to stop; the sequencer turns it into safing."""
+
+
+class OperatorRequests:
+    """Thread-safe flags: abort (with its cause) and pause."""
+
+    def __init__(self) -> None:
+        self._abort = threading.Event()
+        self._pause = threading.Event()
+        self.abort_cause = ""
+        self.abort_count = 0
+
+    def request_abort(self, cause: str) -> None:
+        self.abort_count += 1
+        if not self._abort.is_set():
+            self.abort_cause = cause
+            self._abort.set()
+
+    @property
+    def abort_requested(self) -> bool:
+        return self._abort.is_set()
+
+    def check(self) -> None:
+        """Raise RunInterrupted if an abort is pending (called at every safe point)."""
+        if self._abort.is_set():
+            raise RunInterrupted(self.abort_cause)
+
+    def request_pause(self) -> None:
+        self._pause.set()
+
+    def request_resume(self) -> None:
+        self._pause.clear()
+
+    @property
+    def pause_requested(self) -> bool:
+        return self._pause.is_set()
+
+
+@contextmanager
+def abort_on_signals(requests: OperatorRequests,
+                     notify: Callable[[str], None] | None = None) -> Iterator[None]:
+    """Route SIGINT and SIGTERM to an orderly abort for the duration of a run."""
+
+    def handler(signum: int, _frame: object) -> None:
+        name = signal.Signals(signum).name
+        if requests.abort_requested:
+            message = f"{name} received again: already aborting, safing the bench first"
+        else:
+            message = f"{name} received: aborting after safing the bench"
+        requests.request_abort(f"operator signal {name}")
+        if notify is not None:
+            notify(message)
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
+    for s in previous:
+        signal.signal(s, handler)
+    try:
+        yield
+    finally:
+        for s, h in previous.items():
+            signal.signal(s, h)

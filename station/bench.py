@@ -1,0 +1,130 @@
+"""Open a station's instruments (starting the built-in simulators when it is simulated).
+
+`open_bench` is the one place where station file entries become live driver objects. With a
+simulated station it starts the wire-protocol servers on loopback and points the real drivers at
+them, so a dry run exercises the same driver code and sockets as the real bench.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from contextlib import ExitStack, contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from drivers.clock import Clock
+from drivers.errors import InstrumentError
+from drivers.interfaces import Blackbody, FrameGrabber, Instrument, MotionStage, TargetWheel
+from station.config import StationConfig
+
+EventSink = Callable[[dict[str, Any]], None]
+
+
+@dataclass
+class Bench:
+    """The live instruments of one station, plus the simulated bench behind them if any."""
+
+    blackbody: Blackbody
+    wheel: TargetWheel
+    stage: MotionStage
+    camera: FrameGrabber
+    clock: Clock
+    simulation: Any = None  # simulators.bench.SimBench when simulated
+    identities: dict[str, str] = field(default_factory=dict)
+
+    def instruments(self) -> dict[str, Instrument]:
+        return {"blackbody": self.blackbody, "wheel": self.wheel, "stage": self.stage,
+                "camera": self.camera}
+
+    def readings(self) -> dict[str, Any]:
+        """Live readings for the console and frame metadata; a failing instrument says so."""
+        out: dict[str, Any] = {}
+        for role, inst in self.instruments().items():
+            try:
+                out[role] = inst.snapshot()
+            except InstrumentError as exc:
+                out[role] = {"error": str(exc)}
+        return out
+
+
+def _sim_resource(resource: str, port: int) -> str:
+    if resource == "sim+serial":
+        return f"socket://127.0.0.1:{port}"
+    return f"TCPIP::127.0.0.1::{port}::SOCKET"
+
+
+def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_rate: float,
+                      seed: int) -> FrameGrabber:
+    from analysis.targets import PinholeGrid  # noqa: F401  (targets resolved through station)
+    from simulators.camera_grabber import SimFrameGrabber
+    from simulators.camera_render import CameraRenderer, SceneState
+    from simulators.camera_truth import load_camera_truth
+
+    truth = load_camera_truth(station.simulation or {}, station.base_dir)
+    renderer = CameraRenderer(truth, seed=seed)
+
+    def scene() -> SceneState:
+        slot = sim.slot_in_beam()
+        target = station.slots[slot].target if slot in station.slots else None
+        angles = sim.stage_angles()
+        return SceneState(source_c=sim.source_c(), plate_c=sim.reference_c(), target=target,
+                          az_deg=angles.get("az", 0.0), el_deg=angles.get("el", 0.0),
+                          collimator_focal_mm=station.collimator_focal_mm)
+
+    return SimFrameGrabber(renderer, scene, clock, frame_rate_hz=uut_frame_rate, name="camera",
+                           faults=getattr(sim, "faults", None))
+
+
+@contextmanager
+def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None = None,
+               frame_rate_hz: float = 30.0, seed: int = 1,
+               fault_plan: Any = None) -> Iterator[Bench]:
+    """Connect every instrument; close them (and stop simulators) on the way out."""
+    from drivers.recovery import RetryPolicy
+    from drivers.registry import find_driver
+    from drivers.transport import open_transport
+
+    with ExitStack() as stack:
+        sim = None
+        ports: dict[str, int] = {}
+        if station.simulated:
+            from simulators.bench import SimBench
+            from simulators.servers import start_bench_servers
+
+            sim = SimBench.from_mapping(dict(station.simulation.get("bench", {})), clock,
+                                        seed=seed, faults=fault_plan)
+            servers = stack.enter_context(start_bench_servers(sim))
+            ports = dict(servers.ports)
+        built: dict[str, Instrument] = {}
+        for role, entry in station.instruments.items():
+            if role == "camera":
+                continue
+            resource = entry.resource
+            if resource.startswith("sim"):
+                resource = _sim_resource(resource, ports[role])
+            transport = open_transport(
+                resource, instrument=role, clock=clock, timeout_s=entry.timeout_s,
+                policy=RetryPolicy.from_mapping(entry.recovery), events=events)
+            stack.callback(transport.close)
+            cls = find_driver(entry.driver)
+            built[role] = cls(transport, name=role, settings=entry.settings)
+        cam_entry = station.instruments["camera"]
+        if cam_entry.resource.startswith("sim"):
+            camera = _simulated_camera(station, sim, clock, frame_rate_hz, seed)
+        else:
+            camera = find_driver(cam_entry.driver)(None, name="camera",
+                                                   settings={**cam_entry.settings,
+                                                             "resource": cam_entry.resource,
+                                                             "base_dir": str(station.base_dir)})
+        stack.callback(camera.close)
+        bench = Bench(blackbody=built["blackbody"], wheel=built["wheel"],  # type: ignore[arg-type]
+                      stage=built["stage"], camera=camera, clock=clock,  # type: ignore[arg-type]
+                      simulation=sim)
+        yield bench
+
+
+def station_relative(station: StationConfig, name: str) -> Path:
+    """A file named in the station file, relative to the station file's folder."""
+    p = Path(name)
+    return p if p.is_absolute() else station.base_dir / p

@@ -1,0 +1,155 @@
+"""Run a plan step by step, moving the state machine and leaving the bench safe on every way out.
+
+The loop lives here, outside any state-machine callback, so an abort is seen between frames and
+polls (transitions holds its lock through callbacks). Completed steps are journalled one by one;
+a resumed run skips them and first brings the bench back to the state the next step needs.
+"""
+
+from __future__ import annotations
+
+import traceback
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from drivers.errors import InstrumentError, LimitError
+from station.abort import RunInterrupted
+from station.machine import RunStatus, build_machine
+from station.safing import make_safe
+from station.steps import STEP_HANDLERS, StepContext, StepHandler
+from station.waiting import StepFailed
+
+RESTORE_KINDS = ("blackbody", "target", "move")
+
+
+class PreflightFailed(Exception):
+    """Preflight found a reason not to start; nothing has moved."""
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    state: str
+    cause: str
+    steps_done: int
+    steps_total: int
+    safing_problems: tuple[str, ...] = ()
+
+
+def describe(step: Any) -> str:
+    params = ", ".join(f"{k}={v}" for k, v in step.params.items()
+                       if k not in ("captures_resolved",))
+    return f"{step.kind} {params}"[:120]
+
+
+class Sequencer:
+    """Execute `plan` against `ctx`; the console and journal are told everything."""
+
+    def __init__(self, plan: Any, ctx: StepContext, *, journal: Any, console: Any,
+                 preflight: Callable[[], None], completed: Mapping[str, Any] | None = None,
+                 handlers: Mapping[str, StepHandler] = STEP_HANDLERS) -> None:
+        self.plan = plan
+        self.ctx = ctx
+        self.journal = journal
+        self.console = console
+        self.preflight = preflight
+        self.completed = dict(completed or {})
+        self.handlers = handlers
+        self.status = RunStatus(on_change=self._on_transition)
+        build_machine(self.status)
+        ctx.hold = self._hold
+        ctx.release = self._release
+        self.steps_done = len(self.completed)
+
+    def _on_transition(self, source: str, dest: str, trigger: str, cause: str) -> None:
+        self.ctx.emit("state", source=source, dest=dest, trigger=trigger, cause=cause)
+        self.console.state(dest, cause)
+
+    def _hold(self, cause: str) -> None:
+        self.status.guard_failed(cause=cause)
+
+    def _release(self, cause: str) -> None:
+        self.status.guard_recovered(cause=cause)
+
+    def execute(self) -> RunOutcome:
+        self.status.start_preflight(cause="run requested")
+        try:
+            self.preflight()
+        except PreflightFailed as exc:
+            return self._finish_badly("fault", f"preflight: {exc}")
+        except RunInterrupted as exc:
+            return self._finish_badly("abort", str(exc))
+        self.status.preflight_passed(cause="preflight passed")
+        try:
+            self._restore_bench()
+            self._run_steps()
+        except RunInterrupted as exc:
+            return self._finish_badly("abort", str(exc) or "operator abort")
+        except (StepFailed, InstrumentError, LimitError) as exc:
+            return self._finish_badly("fault", str(exc))
+        except OSError as exc:
+            return self._finish_badly("fault", f"file system: {exc}; check the disk and the run "
+                                      "folder, then 'nightbench resume' the run")
+        except Exception as exc:  # an internal error still leaves the bench safe
+            self.ctx.emit("internal_error", error=repr(exc), traceback=traceback.format_exc())
+            return self._finish_badly("fault", f"internal error {exc!r} (traceback in "
+                                      "events.jsonl); please report it")
+        self.status.plan_finished(cause="all steps done")
+        return RunOutcome("complete", "all steps done", self.steps_done, len(self.plan.steps))
+
+    def _run_steps(self) -> None:
+        total = len(self.plan.steps)
+        for index, step in enumerate(self.plan.steps):
+            if step.id in self.completed:
+                continue
+            self._pause_point()
+            self.ctx.requests.check()
+            self.console.step(index, step.id, describe(step))
+            self.ctx.emit("step.start", step=step.id, kind=step.kind, index=index, total=total)
+            result = self.handlers[step.kind](step, self.ctx)
+            self.journal.record(step.id, step.kind, result)
+            self.steps_done += 1
+            self.ctx.emit("step.done", step=step.id, kind=step.kind, result=result)
+            self.console.readings(self.ctx.bench.readings())
+
+    def _restore_bench(self) -> None:
+        """On resume, redo the last blackbody, target and move steps before the first open step."""
+        if not self.completed:
+            return
+        first_open = next((i for i, s in enumerate(self.plan.steps)
+                           if s.id not in self.completed), len(self.plan.steps))
+        latest: dict[str, Any] = {}
+        for step in self.plan.steps[:first_open]:
+            if step.kind in RESTORE_KINDS:
+                latest[step.kind] = step
+        for kind in RESTORE_KINDS:
+            if kind in latest:
+                step = latest[kind]
+                self.ctx.emit("resume.restore", step=step.id, kind=kind)
+                self.console.log("info", f"resume: restoring bench state from {step.id}")
+                self.handlers[kind](step, self.ctx)
+
+    def _pause_point(self) -> None:
+        if not self.ctx.requests.pause_requested:
+            return
+        self.status.operator_pause(cause="operator pause")
+        while self.ctx.requests.pause_requested:
+            self.ctx.requests.check()
+            self.ctx.clock.sleep(self.ctx.poll_s)
+        self.status.operator_resume(cause="operator resume")
+
+    def _finish_badly(self, kind: str, cause: str) -> RunOutcome:
+        if kind == "abort":
+            self.status.request_abort(cause=cause)
+        else:
+            self.status.request_fault(cause=cause)
+        self.console.log("warning", f"safing the bench: {cause}")
+        problems = make_safe(self.ctx.bench, self.ctx.emit)
+        for p in problems:
+            self.console.log("error", p)
+        full_cause = cause if not problems else cause + "; SAFING INCOMPLETE: " + "; ".join(problems)
+        if kind == "abort":
+            self.status.safe_after_abort(cause=full_cause)
+        else:
+            self.status.safe_after_fault(cause=full_cause)
+        return RunOutcome(self.status.state, full_cause, self.steps_done, len(self.plan.steps),
+                          tuple(problems))

@@ -1,0 +1,57 @@
+"""Instrument timing models for the duration estimate.
+
+A real bench states them in its station file (`timing:` under each instrument, from the maker's
+data sheet or a measurement); a simulated bench takes them from its physics; otherwise
+conservative defaults apply and the estimate says so.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any
+
+from sequences.facts import TimingModel
+from station.config import StationConfig
+
+DEFAULTS = {"time_constant_s": 60.0, "slew_k_per_s": 0.1, "seconds_per_slot": 2.0,
+            "velocity": 5.0, "acceleration": 10.0}
+
+
+def _timing(station: StationConfig, role: str) -> Mapping[str, Any]:
+    entry = station.instruments.get(role)
+    declared = dict(entry.settings.get("timing", {})) if entry else {}
+    sim = dict((station.simulation or {}).get("bench", {}).get(role, {}))
+    return {**sim, **declared}
+
+
+def timing_model(station: StationConfig, *, frame_rate_hz: float, frame_shape: tuple[int, int],
+                 start_c: float | None = None) -> TimingModel:
+    """Build the estimate's model from the station file (and the simulator's physics)."""
+    bb = _timing(station, "blackbody")
+    wheel = _timing(station, "wheel")
+    stage = _timing(station, "stage")
+    reference = float(bb.get("reference_c", 22.0))
+    velocity = {}
+    accel = {}
+    for axis in station.axes:
+        spec = stage.get(axis, {}) if isinstance(stage.get(axis), Mapping) else {}
+        velocity[axis] = float(spec.get("velocity", stage.get("velocity", DEFAULTS["velocity"])))
+        accel[axis] = float(spec.get("acceleration",
+                                     stage.get("acceleration", DEFAULTS["acceleration"])))
+    return TimingModel(
+        blackbody_slew_k_per_s=float(bb.get("slew_k_per_s", DEFAULTS["slew_k_per_s"])),
+        blackbody_time_constant_s=float(bb.get("time_constant_s", DEFAULTS["time_constant_s"])),
+        blackbody_start_c=float(start_c if start_c is not None else bb.get("start_c", reference)),
+        reference_c=reference,
+        wheel_seconds_per_slot=float(wheel.get("seconds_per_slot",
+                                               DEFAULTS["seconds_per_slot"])),
+        wheel_slot_of={s.name: n for n, s in station.slots.items()},
+        wheel_slot_count=max(station.slots) if station.slots else 1,
+        stage_velocity=velocity,
+        stage_acceleration=accel,
+        frame_rate_hz=frame_rate_hz,
+        frame_bytes=int(frame_shape[0] * frame_shape[1] * 2),
+        wheel_start_slot=wheel.get("start_slot"),
+        stage_start={a: float(stage[a].get("start", 0.0)) for a in station.axes
+                     if isinstance(stage.get(a), Mapping)},
+    )
