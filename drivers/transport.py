@@ -1,0 +1,339 @@
+"""Line transports over pyvisa (pyvisa-py backend) and pyserial, chosen by the resource string.
+
+    open_transport("TCPIP::10.0.0.5::5025::SOCKET", instrument="blackbody", clock=clock)
+    open_transport("socket://127.0.0.1:5001", instrument="wheel", clock=clock)
+    open_transport("/dev/ttyUSB0?baud=9600", instrument="stage", clock=clock)
+
+The transport owns terminations, timeouts, error translation, bounded retries and reconnects
+(through `RetryPolicy`), and reports every command and reply as an `io` event. Drivers only see
+`query`, `write`, `close`, `reconnect`.
+"""
+
+from __future__ import annotations
+
+import logging
+import re
+import threading
+from abc import ABC, abstractmethod
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any, Literal, TypeVar
+from urllib.parse import parse_qsl, urlencode
+
+from drivers.clock import Clock
+from drivers.errors import (
+    InstrumentConnectionError,
+    InstrumentError,
+    InstrumentReplyError,
+    InstrumentTimeout,
+    ResourceStringError,
+)
+from drivers.recovery import EventSink, RetryPolicy
+
+log = logging.getLogger("nightbench.transport")
+T = TypeVar("T")
+
+ACCEPTED_FORMS = (
+    "VISA: TCPIP::host::port::SOCKET, TCPIP::host::INSTR, ASRL/dev/ttyUSB0::INSTR, "
+    "ASRLsocket://127.0.0.1:PORT::INSTR, GPIB0::12::INSTR, USB0::...::INSTR; "
+    "pyserial: /dev/ttyUSB0, COM3, socket://host:port, rfc2217://host:port, loop:// "
+    "(serial settings as a suffix, e.g. /dev/ttyUSB0?baud=9600&parity=N)"
+)
+
+_VISA_PREFIX = re.compile(r"^(TCPIP\d*|ASRL|GPIB\d*|USB\d*|VXI\d*|PXI\d*|VICP\d*)", re.I)
+_SERIAL_SCHEMES = ("socket://", "rfc2217://", "loop://", "spy://", "alt://", "hwgrep://")
+_SERIAL_DEVICE = re.compile(r"^(/dev/\S+|COM\d+|\\\\\.\\COM\d+)$", re.I)
+_SERIAL_KEYS = {"baud": int, "bytesize": int, "parity": str, "stopbits": float,
+                "xonxoff": lambda v: str(v).lower() in ("1", "true", "yes"),
+                "rtscts": lambda v: str(v).lower() in ("1", "true", "yes")}
+
+
+@dataclass(frozen=True)
+class ResourceInfo:
+    """A checked resource string: which library opens it and with what."""
+
+    resource: str
+    backend: Literal["visa", "serial"]
+    interface: str
+    address: str
+    serial_settings: Mapping[str, Any] = field(default_factory=dict)
+
+
+def parse_resource(resource: str) -> ResourceInfo:
+    """Check a resource string without opening anything; ResourceStringError lists the forms."""
+    text = (resource or "").strip()
+    if not text:
+        raise ResourceStringError(f"empty resource string; accepted forms: {ACCEPTED_FORMS}")
+    if _VISA_PREFIX.match(text) and "::" in text:
+        from pyvisa import rname
+
+        try:
+            parsed = rname.parse_resource_name(text)
+        except Exception as exc:  # pyvisa raises InvalidResourceName (a ValueError) or others
+            raise ResourceStringError(
+                f"{text!r} looks like a VISA resource but does not parse ({exc}); "
+                f"accepted forms: {ACCEPTED_FORMS}") from None
+        return ResourceInfo(text, "visa", parsed.interface_type, str(parsed))
+    base, _, query = text.partition("?")
+    if base.lower().startswith(_SERIAL_SCHEMES) or _SERIAL_DEVICE.match(base):
+        settings: dict[str, Any] = {}
+        passthrough = []
+        for key, value in parse_qsl(query, keep_blank_values=True):
+            if key in _SERIAL_KEYS:
+                try:
+                    settings[key] = _SERIAL_KEYS[key](value)
+                except ValueError:
+                    raise ResourceStringError(
+                        f"{text!r}: serial setting {key}={value!r} is not valid") from None
+            else:
+                passthrough.append((key, value))
+        address = base + ("?" + urlencode(passthrough) if passthrough else "")
+        scheme = base.split("://")[0].lower() if "://" in base else "device"
+        return ResourceInfo(text, "serial", scheme, address, settings)
+    raise ResourceStringError(f"{text!r} is not a resource string we know; "
+                              f"accepted forms: {ACCEPTED_FORMS}")
+
+
+class Transport(ABC):
+    """A line-oriented link to one instrument with retries, reconnects and io events."""
+
+    def __init__(self, info: ResourceInfo, *, instrument: str, clock: Clock, timeout_s: float,
+                 policy: RetryPolicy | None, events: EventSink | None,
+                 read_termination: str, write_termination: str) -> None:
+        self.info = info
+        self.instrument = instrument
+        self.clock = clock
+        self.timeout_s = float(timeout_s)
+        self.policy = policy or RetryPolicy()
+        self._events = events
+        self.read_termination = read_termination
+        self.write_termination = write_termination
+        self._lock = threading.RLock()
+
+    @property
+    def resource(self) -> str:
+        return self.info.resource
+
+    # --- what drivers call -------------------------------------------------------------
+    def query(self, command: str, parse: Callable[[str], T] | None = None) -> T | str:
+        """Send one line, return its reply (parsed by `parse` inside the retry loop).
+
+        `parse` raising ValueError turns into InstrumentReplyError, which the policy may retry:
+        a garbled reply is usually a one-off on a noisy line.
+        """
+        def attempt() -> Any:
+            reply = self._io(command, expect_reply=True)
+            if parse is None:
+                return reply
+            try:
+                return parse(reply)
+            except InstrumentError:
+                raise
+            except (ValueError, TypeError, IndexError) as exc:
+                raise InstrumentReplyError(self.instrument, f"reply not understood ({exc})",
+                                           command, reply) from None
+
+        with self._lock:
+            return self.policy.run(attempt, instrument=self.instrument, command=command,
+                                   clock=self.clock, reconnect=self.reconnect,
+                                   events=self._events)
+
+    def write(self, command: str) -> None:
+        """Send one line that has no reply (rare in our protocol: every line gets one)."""
+        with self._lock:
+            self.policy.run(lambda: self._io(command, expect_reply=False),
+                            instrument=self.instrument, command=command, clock=self.clock,
+                            reconnect=self.reconnect, events=self._events)
+
+    def reconnect(self) -> None:
+        """Close and reopen the link (after a drop, or a timeout that may hide one)."""
+        with self._lock:
+            self._close_link()
+            self._open_link()
+
+    def close(self) -> None:
+        with self._lock:
+            self._close_link()
+
+    def __enter__(self) -> Transport:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # --- per-library parts ---------------------------------------------------------------
+    @abstractmethod
+    def _open_link(self) -> None: ...
+
+    @abstractmethod
+    def _close_link(self) -> None: ...
+
+    @abstractmethod
+    def _exchange(self, command: str, expect_reply: bool) -> str | None: ...
+
+    def _io(self, command: str, expect_reply: bool) -> str | None:
+        reply = self._exchange(command, expect_reply)
+        if reply is not None:
+            reply = reply.strip("\r\n").strip()
+        event = {"type": "io", "instrument": self.instrument, "command": command,
+                 "reply": reply, "t": self.clock.now()}
+        log.debug("%s", event)
+        if self._events is not None:
+            self._events(event)
+        return reply
+
+    def _timeout(self, command: str) -> InstrumentTimeout:
+        return InstrumentTimeout(self.instrument, f"no reply within {self.timeout_s:g} s", command,
+                                 hint=f"check the instrument is on and {self.resource} is right")
+
+    def _dropped(self, command: str | None, exc: BaseException) -> InstrumentConnectionError:
+        return InstrumentConnectionError(
+            self.instrument, f"connection to {self.resource} failed ({exc})", command,
+            hint="check cabling/network and that the instrument is powered")
+
+
+class VisaTransport(Transport):
+    """pyvisa with the pyvisa-py backend (`@py`): no vendor VISA library needed."""
+
+    def __init__(self, info: ResourceInfo, **kw: Any) -> None:
+        super().__init__(info, **kw)
+        import pyvisa
+
+        self._rm = pyvisa.ResourceManager("@py")
+        self._res: Any = None
+        self._open_link()
+
+    def _open_link(self) -> None:
+        from pyvisa.errors import VisaIOError
+
+        try:
+            res = self._rm.open_resource(self.info.resource)
+        except (VisaIOError, OSError, ValueError) as exc:
+            raise self._dropped(None, exc) from None
+        res.read_termination = self.read_termination
+        res.write_termination = self.write_termination
+        res.timeout = int(self.timeout_s * 1000)
+        self._res = res
+
+    def _close_link(self) -> None:
+        if self._res is not None:
+            try:
+                self._res.close()
+            except Exception as exc:  # closing a broken link must not hide the real error
+                log.debug("%s: close failed: %s", self.instrument, exc)
+            self._res = None
+
+    def close(self) -> None:
+        super().close()
+        try:
+            self._rm.close()
+        except Exception as exc:
+            log.debug("%s: resource manager close failed: %s", self.instrument, exc)
+
+    def _exchange(self, command: str, expect_reply: bool) -> str | None:
+        from pyvisa.errors import VisaIOError
+        from pyvisa import constants
+
+        if self._res is None:
+            self._open_link()
+        try:
+            self._res.write(command)
+            return self._res.read() if expect_reply else None
+        except VisaIOError as exc:
+            if exc.error_code == constants.StatusCode.error_timeout:
+                self._clear()
+                raise self._timeout(command) from None
+            raise self._dropped(command, exc) from None
+        except (OSError, EOFError) as exc:  # ConnectionRefusedError, BrokenPipe, reset
+            self._close_link()
+            raise self._dropped(command, exc) from None
+        except UnicodeDecodeError as exc:
+            self._clear()
+            raise InstrumentReplyError(self.instrument, f"reply is not text ({exc})",
+                                       command) from None
+
+    def _clear(self) -> None:
+        """Drop late or partial replies so they cannot answer the next query."""
+        try:
+            self._res.clear()
+        except Exception as exc:
+            log.debug("%s: clear failed: %s", self.instrument, exc)
+
+
+class SerialTransport(Transport):
+    """pyserial `serial_for_url` (device paths, COM ports, socket://, rfc2217://, loop://)."""
+
+    def __init__(self, info: ResourceInfo, *, serial_settings: Mapping[str, Any] | None = None,
+                 **kw: Any) -> None:
+        super().__init__(info, **kw)
+        self._settings = {**info.serial_settings, **(serial_settings or {})}
+        self._port: Any = None
+        self._open_link()
+
+    def _open_link(self) -> None:
+        import serial
+
+        kwargs: dict[str, Any] = {"timeout": self.timeout_s, "write_timeout": self.timeout_s}
+        mapping = {"baud": "baudrate", "bytesize": "bytesize", "parity": "parity",
+                   "stopbits": "stopbits", "xonxoff": "xonxoff", "rtscts": "rtscts"}
+        for key, value in self._settings.items():
+            kwargs[mapping.get(key, key)] = value
+        if "stopbits" in kwargs and float(kwargs["stopbits"]).is_integer():
+            kwargs["stopbits"] = int(kwargs["stopbits"])
+        try:
+            self._port = serial.serial_for_url(self.info.address, **kwargs)
+        except (serial.SerialException, OSError, ValueError) as exc:
+            raise self._dropped(None, exc) from None
+
+    def _close_link(self) -> None:
+        if self._port is not None:
+            try:
+                self._port.close()
+            except Exception as exc:
+                log.debug("%s: close failed: %s", self.instrument, exc)
+            self._port = None
+
+    def _exchange(self, command: str, expect_reply: bool) -> str | None:
+        import serial
+
+        if self._port is None:
+            self._open_link()
+        term = self.read_termination.encode()
+        try:
+            self._port.write((command + self.write_termination).encode())
+            if not expect_reply:
+                return None
+            raw = self._port.read_until(term)
+        except (serial.SerialException, OSError) as exc:
+            self._close_link()
+            raise self._dropped(command, exc) from None
+        if not raw.endswith(term):
+            # b'' or a partial line: the read timed out. Drop what is buffered so a late reply
+            # cannot answer the next command.
+            self._drain()
+            raise self._timeout(command)
+        try:
+            return raw.decode("ascii")
+        except UnicodeDecodeError as exc:
+            raise InstrumentReplyError(self.instrument, f"reply is not text ({exc})", command,
+                                       raw.decode("ascii", "replace")) from None
+
+    def _drain(self) -> None:
+        try:
+            self._port.reset_input_buffer()
+        except Exception as exc:
+            log.debug("%s: input flush failed: %s", self.instrument, exc)
+
+
+def open_transport(resource: str, *, instrument: str, clock: Clock, timeout_s: float = 2.0,
+                   policy: RetryPolicy | None = None, events: EventSink | None = None,
+                   read_termination: str = "\n", write_termination: str = "\n",
+                   serial_settings: Mapping[str, Any] | None = None) -> Transport:
+    """Open the transport a resource string names (see ACCEPTED_FORMS)."""
+    info = parse_resource(resource)
+    kw: dict[str, Any] = dict(instrument=instrument, clock=clock, timeout_s=timeout_s,
+                              policy=policy, events=events, read_termination=read_termination,
+                              write_termination=write_termination)
+    if info.backend == "visa":
+        return VisaTransport(info, **kw)
+    return SerialTransport(info, serial_settings=serial_settings, **kw)
