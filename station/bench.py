@@ -93,7 +93,9 @@ def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None
             from simulators.servers import start_bench_servers
 
             sim = SimBench.from_mapping(dict(station.simulation.get("bench", {})), clock,
-                                        seed=seed, faults=fault_plan)
+                                        seed=seed)
+            if fault_plan is not None:
+                sim.faults = fault_plan
             servers = stack.enter_context(start_bench_servers(sim))
             ports = dict(servers.ports)
         built: dict[str, Instrument] = {}

@@ -29,7 +29,8 @@ def timing_model(station: StationConfig, *, frame_rate_hz: float, frame_shape: t
     """Build the estimate's model from the station file (and the simulator's physics)."""
     bb = _timing(station, "blackbody")
     wheel = _timing(station, "wheel")
-    stage = _timing(station, "stage")
+    stage_section = _timing(station, "stage")
+    stage = {**stage_section, **dict(stage_section.get("axes", {}))}
     reference = float(bb.get("reference_c", 22.0))
     velocity = {}
     accel = {}
