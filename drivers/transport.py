@@ -129,7 +129,7 @@ class Transport(ABC):
                 return parse(reply)
             except InstrumentError:
                 raise
-            except (ValueError, TypeError, IndexError) as exc:
+            except (ValueError, TypeError, IndexError, KeyError) as exc:
                 raise InstrumentReplyError(self.instrument, f"reply not understood ({exc})",
                                            command, reply) from None
 

@@ -51,13 +51,15 @@ class SimBench:
     lock: threading.RLock
 
     @classmethod
-    def from_mapping(cls, d: Mapping[str, Any] | None, clock: Clock, seed: int = 0) -> SimBench:
+    def from_mapping(cls, d: Mapping[str, Any] | None, clock: Clock, seed: int = 0, *,
+                     faults: FaultPlan | Mapping[str, Any] | None = None) -> SimBench:
         """Build from the simulated station file's `simulation:` section (all keys optional).
 
         Keys: blackbody (BlackbodyPhysics keywords), wheel (slots, seconds_per_slot,
-        start_slot), stage.axes ({name: {min, max, hard_min, hard_max, velocity,
-        acceleration, start}}), identity ({blackbody|wheel|stage: *IDN? reply}), faults
-        (FaultPlan mapping).
+        start_slot), stage ({name: {min, max, hard_min, hard_max, velocity, acceleration,
+        start}}, optionally under an `axes` key; replaces the default axes), identity
+        ({blackbody|wheel|stage: *IDN? reply}), faults (FaultPlan mapping). A `faults` argument
+        (a FaultPlan or a mapping) takes the place of the mapping's own.
         """
         d = dict(d or {})
         unknown = set(d) - {"blackbody", "wheel", "stage", "identity", "faults"}
@@ -66,17 +68,22 @@ class SimBench:
                              "blackbody, wheel, stage, identity, faults")
         bb = {**DEFAULTS["blackbody"], **(d.get("blackbody") or {})}
         wh = {**DEFAULTS["wheel"], **(d.get("wheel") or {})}
-        st = copy.deepcopy(DEFAULTS["stage"])
+        axes = copy.deepcopy(DEFAULTS["stage"]["axes"])
         if d.get("stage"):
-            st = {**st, **d["stage"]}
+            given = dict(d["stage"])
+            axes = dict(given["axes"]) if "axes" in given else given
         ident = {**DEFAULTS["identity"], **(d.get("identity") or {})}
         try:
             blackbody = BlackbodyPhysics(clock, seed=seed, **bb)
             wheel = WheelPhysics(clock, **wh)
-            stage = StagePhysics(clock, st["axes"])
+            stage = StagePhysics(clock, axes)
         except TypeError as exc:
             raise ValueError(f"simulation: {exc}") from None
-        plan = FaultPlan.from_mapping(d.get("faults"), seed=seed, t0=clock.now())
+        if isinstance(faults, FaultPlan):
+            plan = faults
+        else:
+            plan = FaultPlan.from_mapping(faults if faults is not None else d.get("faults"),
+                                          seed=seed, t0=clock.now())
         return cls(clock, blackbody, wheel, stage, plan, ident, threading.RLock())
 
     # --- what the camera simulator reads ---------------------------------------------------
