@@ -1,0 +1,157 @@
+"""How long a plan will really take on the bench, and how much it will write, from instrument models.
+
+The estimate walks the plan tracking the bench's state (blackbody temperature, wheel slot, stage
+position) and charges each step with a closed-form time:
+
+* blackbody: a first-order approach of time constant tau whose rate is limited to a slew rate S.
+  While the error |e| exceeds S*tau the rate is the slew limit, so that phase lasts
+  (|e0| - S*tau) / S; then the error decays as exp(-t/tau) from min(|e0|, S*tau) down to the
+  tolerance, lasting tau * ln(e1 / tol); then the hold time.
+* wheel: slots moved the shortest way round times the seconds per slot.
+* stage: a trapezoidal velocity profile per axis (t = d/v + v/a, or 2*sqrt(d/a) when the axis
+  never reaches full speed); the axes move together, so the slowest axis sets the time.
+* capture: frames / frame rate.  wait: its seconds.  note, analyze: nothing.
+* every step: the command overhead.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from sequences.facts import TimingModel
+from sequences.plan import Plan
+
+__all__ = ["Estimate", "estimate", "blackbody_settle_s", "wheel_travel_s", "trapezoid_s",
+           "slots_between"]
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """Total real duration, the share of each step (by plan id), frames acquired, bytes written;
+    ``warnings`` name steps the model expects to fail (e.g. a settle longer than its timeout)."""
+
+    total_s: float
+    per_step: list[tuple[str, float]]
+    frames: int
+    bytes: int
+    warnings: list[str] = field(default_factory=list)
+
+
+def blackbody_settle_s(error_k: float, tolerance_k: float, slew_k_per_s: float,
+                       time_constant_s: float) -> float:
+    """Seconds until a slew-limited first-order system comes within ``tolerance_k`` of its setpoint.
+
+    Closed form of dT/dt = clip((T_set - T) / tau, -S, S) started ``error_k`` away.
+    """
+    e0 = abs(error_k)
+    if e0 <= tolerance_k:
+        return 0.0
+    if time_constant_s <= 0.0:
+        return (e0 - tolerance_k) / slew_k_per_s
+    knee = slew_k_per_s * time_constant_s
+    slew_phase = max(e0 - knee, 0.0) / slew_k_per_s
+    e1 = min(e0, knee)
+    decay = time_constant_s * math.log(e1 / tolerance_k) if e1 > tolerance_k else 0.0
+    return slew_phase + decay
+
+
+def slots_between(a: int, b: int, count: int) -> int:
+    """Slots moved going the shortest way round a wheel of ``count`` slots."""
+    d = (b - a) % count
+    return min(d, count - d)
+
+
+def wheel_travel_s(a: int, b: int, count: int, seconds_per_slot: float) -> float:
+    """Seconds to turn the wheel from slot ``a`` to slot ``b`` the shortest way."""
+    return slots_between(a, b, count) * seconds_per_slot
+
+
+def trapezoid_s(distance: float, velocity: float, acceleration: float) -> float:
+    """Seconds for a rest-to-rest move with a trapezoidal (or triangular) velocity profile."""
+    d = abs(distance)
+    if d == 0.0:
+        return 0.0
+    if d >= velocity * velocity / acceleration:
+        return d / velocity + velocity / acceleration
+    return 2.0 * math.sqrt(d / acceleration)
+
+
+def _check_model(timing: TimingModel) -> None:
+    positive = {
+        "blackbody_slew_k_per_s": timing.blackbody_slew_k_per_s,
+        "wheel_slot_count": timing.wheel_slot_count,
+        "frame_rate_hz": timing.frame_rate_hz,
+    }
+    for name, value in positive.items():
+        if not value > 0:
+            raise ValueError(f"timing model: {name} must be positive, got {value!r}; "
+                             "check the instrument models in the station file")
+    for axis in timing.stage_velocity:
+        if not (timing.stage_velocity[axis] > 0 and timing.stage_acceleration.get(axis, 0) > 0):
+            raise ValueError(f"timing model: stage axis '{axis}' needs a positive velocity and "
+                             "acceleration; check the stage model in the station file")
+
+
+def estimate(plan: Plan, timing: TimingModel) -> Estimate:
+    """Walk the plan with the instrument models and return the expected real duration.
+
+    Raises ValueError naming the step when the models lack something the plan needs (a target
+    with no slot, an axis with no speed).
+    """
+    _check_model(timing)
+    temperature = timing.blackbody_start_c
+    slot = timing.wheel_start_slot
+    position: dict[str, float] = dict(timing.stage_start)
+    average_bytes = (timing.average_frame_bytes if timing.average_frame_bytes is not None
+                     else 2 * timing.frame_bytes)
+    per_step: list[tuple[str, float]] = []
+    warnings: list[str] = []
+    frames = 0
+    written = 0
+    for step in plan.steps:
+        p = step.params
+        seconds = 0.0
+        if step.kind == "blackbody":
+            target = p["value"] if p["mode"] == "absolute" else timing.reference_c + p["value"]
+            settle = blackbody_settle_s(target - temperature, p["tolerance"],
+                                        timing.blackbody_slew_k_per_s,
+                                        timing.blackbody_time_constant_s)
+            seconds = settle + p["hold"]
+            if seconds > p["timeout"]:
+                warnings.append(f"{step.id}: the blackbody needs about {seconds:.0f} s to settle "
+                                f"and hold but times out after {p['timeout']:g} s")
+            temperature = target
+        elif step.kind == "target":
+            if p["name"] not in timing.wheel_slot_of:
+                raise ValueError(f"{step.id}: target '{p['name']}' has no wheel slot in the "
+                                 "timing model; add it to the wheel's slots in the station file")
+            new = timing.wheel_slot_of[p["name"]]
+            moved = (timing.wheel_slot_count // 2 if slot is None
+                     else slots_between(slot, new, timing.wheel_slot_count))
+            seconds = moved * timing.wheel_seconds_per_slot
+            slot = new
+        elif step.kind == "move":
+            times = []
+            for axis, value in p["position"].items():
+                if axis not in timing.stage_velocity:
+                    raise ValueError(f"{step.id}: stage axis '{axis}' has no speed in the timing "
+                                     "model; add its velocity and acceleration")
+                times.append(trapezoid_s(value - position.get(axis, 0.0),
+                                         timing.stage_velocity[axis],
+                                         timing.stage_acceleration[axis]))
+                position[axis] = value
+            seconds = max(times, default=0.0)
+        elif step.kind == "capture":
+            seconds = p["frames"] / timing.frame_rate_hz
+            frames += p["frames"]
+            if p["keep"] in ("stack", "both"):
+                written += p["frames"] * timing.frame_bytes
+            if p["keep"] in ("average", "both"):
+                written += average_bytes
+        elif step.kind == "wait":
+            seconds = p["seconds"]
+        seconds += timing.command_overhead_s
+        per_step.append((step.id, seconds))
+    total = math.fsum(s for _, s in per_step)
+    return Estimate(total, per_step, frames, written, warnings)
