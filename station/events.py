@@ -1,0 +1,220 @@
+"""The event log: one JSON line per command, reply, state change and measurement.
+
+Why append-only JSON lines: a kill -9 or a power cut can at worst tear the last line, every earlier
+line stays readable, and the file can be followed live (`tail -f`) or loaded with any JSON reader.
+Lines are flushed to the operating system at once; fsync (to the disk) happens every
+`fsync_every` events and at once for important types such as state changes, so a power cut loses
+at most a few routine lines and never a state change.
+
+Example::
+
+    log = EventLog(run / "events.jsonl", clock)
+    log.emit("state", name="running", cause="preflight passed")
+    events = read_events(run / "events.jsonl")
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import os
+import threading
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from drivers.clock import Clock
+from station.atomic import dumps_json, fsync_dir
+
+RESERVED_KEYS = frozenset({"t", "utc", "type", "seq"})
+"""Keys every event carries; `emit` refuses fields with these names."""
+
+DEFAULT_SYNC_TYPES = frozenset({
+    "state", "run_start", "run_end", "step_start", "step_done", "fault", "abort",
+    "capture_done", "capture_abandoned", "recovery", "error", "log_repaired",
+})
+"""Event types written through to the disk at once (they matter for resume and post-mortem)."""
+
+Subscriber = Callable[[dict[str, Any]], None]
+
+
+def utc_iso(seconds: float) -> str:
+    """ISO 8601 UTC timestamp with milliseconds and a Z suffix, from seconds since the epoch."""
+    moment = _dt.datetime.fromtimestamp(seconds, tz=_dt.timezone.utc)
+    return moment.strftime("%Y-%m-%dT%H:%M:%S.") + f"{moment.microsecond // 1000:03d}Z"
+
+
+class EventLog:
+    """Thread-safe, append-only JSON-lines log stamped with the station clock.
+
+    Reopening an existing log (resume) continues its sequence numbers; a line torn by a crash is cut
+    off first and reported as a `log_repaired` event, so the file stays valid JSON lines.
+    """
+
+    def __init__(self, path: Path | str, clock: Clock, *, fsync_every: int = 50,
+                 sync_types: Iterable[str] = DEFAULT_SYNC_TYPES) -> None:
+        if fsync_every < 1:
+            raise ValueError("fsync_every must be >= 1")
+        self.path = Path(path)
+        self.clock = clock
+        self.fsync_every = fsync_every
+        self.sync_types = frozenset(sync_types)
+        self._lock = threading.RLock()
+        self._subscribers: list[Subscriber] = []
+        self.subscriber_errors = 0
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        scan = scan_events(self.path) if self.path.exists() else EventScan(self.path)
+        repaired = _cut_torn_tail(self.path) if scan.torn_tail else b""
+        self._seq = max((e.get("seq", 0) for e in scan.events if isinstance(e.get("seq"), int)),
+                        default=0)
+        new_file = not self.path.exists()
+        self._fh = open(self.path, "ab")
+        if new_file:
+            fsync_dir(self.path.parent)
+        self._since_sync = 0
+        if repaired:
+            self.emit("log_repaired", dropped_bytes=len(repaired),
+                      dropped_text=repaired[:200].decode("utf-8", "replace"),
+                      why="the previous session ended in the middle of writing this line")
+
+    # -- writing ---------------------------------------------------------------------------------
+    def emit(self, type: str, **fields: Any) -> dict[str, Any]:  # noqa: A002 - the field is "type"
+        """Append one event; returns the record as written (also given to subscribers)."""
+        clash = RESERVED_KEYS.intersection(fields)
+        if clash:
+            raise ValueError(f"event fields may not be named {sorted(clash)} (reserved)")
+        with self._lock:
+            if self._fh.closed:
+                raise ValueError(f"event log {self.path} is closed; reopen it with EventLog(...)")
+            now = self.clock.now()
+            record: dict[str, Any] = {"seq": self._seq + 1, "t": round(now, 6),
+                                      "utc": utc_iso(now), "type": str(type)}
+            record.update(fields)
+            try:
+                line = dumps_json(record, indent=None) + "\n"
+            except TypeError:  # a value JSON cannot hold: keep its repr rather than lose the event
+                record.update({k: _lenient(v) for k, v in fields.items()})
+                line = dumps_json(record, indent=None) + "\n"
+            self._seq += 1
+            self._fh.write(line.encode("utf-8"))
+            self._fh.flush()
+            self._since_sync += 1
+            if type in self.sync_types or self._since_sync >= self.fsync_every:
+                os.fsync(self._fh.fileno())
+                self._since_sync = 0
+            for fn in list(self._subscribers):
+                try:
+                    fn(record)
+                except Exception:  # a broken display must never stop the run or the log
+                    self.subscriber_errors += 1
+            return record
+
+    def sync(self) -> None:
+        """Force everything written so far to the disk."""
+        with self._lock:
+            if not self._fh.closed:
+                self._fh.flush()
+                os.fsync(self._fh.fileno())
+                self._since_sync = 0
+
+    def subscribe(self, fn: Subscriber) -> Callable[[], None]:
+        """Call `fn(record)` after each event (keep it quick); returns a function that unsubscribes."""
+        with self._lock:
+            self._subscribers.append(fn)
+
+        def unsubscribe() -> None:
+            with self._lock:
+                if fn in self._subscribers:
+                    self._subscribers.remove(fn)
+
+        return unsubscribe
+
+    @property
+    def closed(self) -> bool:
+        return self._fh.closed
+
+    def close(self) -> None:
+        """Sync and close. Safe to call twice."""
+        with self._lock:
+            if not self._fh.closed:
+                self.sync()
+                self._fh.close()
+
+    def __enter__(self) -> EventLog:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+# -- reading -------------------------------------------------------------------------------------
+@dataclass
+class EventScan:
+    """What a read of an event log found: the events, and any lines that could not be read."""
+
+    path: Path
+    events: list[dict[str, Any]] = field(default_factory=list)
+    bad_lines: list[tuple[int, str]] = field(default_factory=list)
+    torn_tail: bool = False
+
+    @property
+    def healthy(self) -> bool:
+        return not self.bad_lines and not self.torn_tail
+
+
+def scan_events(path: Path | str) -> EventScan:
+    """Read every event; a last line without its newline (torn by a crash) is set aside, not fatal.
+
+    Unreadable lines in the middle are listed in `bad_lines` (1-based line number, text) so
+    `verify` can report them; the readable events are still returned.
+    """
+    path = Path(path)
+    scan = EventScan(path)
+    data = path.read_bytes()
+    if not data:
+        return scan
+    lines = data.split(b"\n")
+    tail = lines.pop()  # text after the last newline: empty when the file ends cleanly
+    for number, raw in enumerate(lines, start=1):
+        if not raw.strip():
+            continue
+        try:
+            record = json.loads(raw)
+            if not isinstance(record, dict):
+                raise ValueError("not an object")
+        except ValueError:
+            scan.bad_lines.append((number, raw[:200].decode("utf-8", "replace")))
+            continue
+        scan.events.append(record)
+    if tail.strip():
+        scan.torn_tail = True
+    return scan
+
+
+def read_events(path: Path | str, type: str | None = None) -> list[dict[str, Any]]:  # noqa: A002
+    """The readable events of a log (optionally of one type), tolerant of a torn last line."""
+    events = scan_events(path).events
+    if type is not None:
+        events = [e for e in events if e.get("type") == type]
+    return events
+
+
+def _lenient(value: Any) -> Any:
+    try:
+        dumps_json(value, indent=None)
+        return value
+    except TypeError:
+        return repr(value)
+
+
+def _cut_torn_tail(path: Path) -> bytes:
+    """Truncate the file after its last newline; returns the bytes removed."""
+    with open(path, "r+b") as fh:
+        data = fh.read()
+        keep = data.rfind(b"\n") + 1
+        dropped = data[keep:]
+        fh.truncate(keep)
+        fh.flush()
+        os.fsync(fh.fileno())
+    return dropped
