@@ -221,13 +221,15 @@ def _parse_one(item: Any, index: int, where: SourceRef, problems: list[Problem])
                                           f"{_describe(body)}", f"for example {spec.example}"))
         return None
     ok = True
+    meant: set[str] = set()  # options a misspelt key probably stands for
     for key in body:
         if key not in spec.options:
             problems.append(Problem(ref_in_key(body, key, body_ref), f"unknown option '{key}' for "
                                     f"{kind}", suggest(key, spec.options, f"options of {kind}")))
+            meant.update(difflib.get_close_matches(str(key), list(spec.options), n=1, cutoff=0.6))
             ok = False
     for name, option in spec.options.items():
-        if option.default is REQUIRED and name not in body:
+        if option.default is REQUIRED and name not in body and name not in meant:
             problems.append(Problem(key_where, f"{kind} is missing its '{name}' option",
                                     f"for example {spec.example}"))
             ok = False

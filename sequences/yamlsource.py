@@ -59,10 +59,15 @@ class Problem:
     hint: str = ""
 
     def __str__(self) -> str:
-        text = f"{self.where}: {self.message.rstrip('.')}."
+        text = f"{self.where}: {_sentence(self.message)}"
         if self.hint:
-            text += f" {self.hint.rstrip('.')}."
+            text += f" {_sentence(self.hint)}"
         return text
+
+
+def _sentence(text: str) -> str:
+    text = text.rstrip(". ")
+    return text if text.endswith(("?", "!")) else text + "."
 
 
 class SourceError(ValueError):
@@ -219,8 +224,11 @@ def _syntax_problem(file: str, exc: yaml.YAMLError) -> Problem:
     where = SourceRef(file, mark.line + 1, mark.column + 1) if mark else SourceRef(file, 1, 1)
     parts = [getattr(exc, "context", None), getattr(exc, "problem", None)]
     what = ", ".join(p for p in parts if p) or str(exc)
-    return Problem(where, f"YAML syntax error: {what}",
-                   "check the indentation, a missing ':' or an unclosed quote or bracket near here")
+    hint = "check the indentation, a missing ':' or an unclosed quote or bracket near here"
+    context_mark = getattr(exc, "context_mark", None)
+    if context_mark is not None and mark is not None and context_mark.line != mark.line:
+        hint += f" (the construct began at line {context_mark.line + 1})"
+    return Problem(where, f"YAML syntax error: {what}", hint)
 
 
 def load_yaml(path: Path | str, text: str | None = None) -> MarkedNode:
