@@ -1,0 +1,196 @@
+"""Pair detected spots with the expected points of a target grid.
+
+Survives missing spots, extra spots (a hot pixel, a reflection) and an unknown small offset,
+roll and scale of the target. All points are (x, y) = (column, row) in pixels, arrays (N, 2).
+
+Method: translation hypotheses by voting (each detected spot near the middle of the pattern
+paired with every expected point, each hypothesis scored by how many expected points then find
+a detected spot nearby; a generalised Hough / "alignment by voting" scheme, common practice in
+star-pattern and grid registration), then refinement of the best hypotheses by an iterative
+closest point loop (Besl & McKay, IEEE PAMI 14:239, 1992) with mutual nearest neighbours inside
+a shrinking gate. Each refinement step solves the complex-linear least-squares model
+``z' = a z + b z |z|^2 / R^2 + t`` (a: scale and roll, as in Umeyama's similarity, IEEE PAMI
+13:376, 1991; b: a radial term so that a lens whose distortion differs from the nominal one
+still lines up; t: offset), with z measured from the centre of the expected pattern.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+__all__ = ["PatternTransform", "MatchResult", "match_points"]
+
+
+@dataclass(frozen=True)
+class PatternTransform:
+    """Maps expected points to where they were found: ``c + a z + b z |z|^2 / R^2 + t``, z = p - c."""
+
+    a: complex
+    b: complex
+    t: complex
+    centre: tuple[float, float]
+    ref_radius: float
+
+    @property
+    def scale(self) -> float:
+        """Scale of the target against the expectation (1 = nominal)."""
+        return abs(self.a)
+
+    @property
+    def roll_deg(self) -> float:
+        """Rotation of the found pattern against the expectation, deg, from +x toward +y."""
+        return math.degrees(math.atan2(self.a.imag, self.a.real))
+
+    @property
+    def offset_px(self) -> tuple[float, float]:
+        """Shift (x, y) of the pattern centre, pixels."""
+        return self.t.real, self.t.imag
+
+    def apply(self, points: np.ndarray) -> np.ndarray:
+        """Transform expected points (N, 2) (x, y)."""
+        p = np.asarray(points, dtype=float)
+        c = complex(*self.centre)
+        z = p[:, 0] + 1j * p[:, 1] - c
+        w = c + self.a * z + self.b * z * (np.abs(z) ** 2) / self.ref_radius ** 2 + self.t
+        return np.column_stack([w.real, w.imag])
+
+
+@dataclass(frozen=True)
+class MatchResult:
+    """Index pairs (K, 2) as [detected_index, expected_index], the transform, and leftovers."""
+
+    pairs: np.ndarray
+    transform: PatternTransform
+    unmatched_detected: np.ndarray
+    unmatched_expected: np.ndarray
+    rms_px: float
+    gate_px: float
+
+
+def _solve(z_exp: np.ndarray, z_det: np.ndarray, radial: bool, ref_radius: float) -> tuple[complex, complex, complex]:
+    """Least squares of z_det = a z + b z|z|^2/R^2 + t (complex-linear)."""
+    cols = [z_exp, np.ones_like(z_exp)]
+    if radial:
+        cols.insert(1, z_exp * np.abs(z_exp) ** 2 / ref_radius ** 2)
+    A = np.column_stack(cols)
+    sol, *_ = np.linalg.lstsq(A, z_det, rcond=None)
+    if radial:
+        return complex(sol[0]), complex(sol[1]), complex(sol[2])
+    return complex(sol[0]), 0j, complex(sol[1])
+
+
+def _predict(z: np.ndarray, c: complex, a: complex, b: complex, t: complex, ref_radius: float) -> np.ndarray:
+    w = c + a * z + b * z * np.abs(z) ** 2 / ref_radius ** 2 + t
+    return np.column_stack([w.real, w.imag])
+
+
+def _mutual(tree_det: cKDTree, det: np.ndarray, pred: np.ndarray, gate: float) -> np.ndarray:
+    """Mutual nearest-neighbour pairs [det, exp] closer than gate."""
+    d1, j_det = tree_det.query(pred)
+    tree_pred = cKDTree(pred)
+    _, j_exp = tree_pred.query(det)
+    e = np.arange(len(pred))
+    ok = (d1 <= gate) & (j_exp[j_det] == e)
+    return np.column_stack([j_det[ok], e[ok]])
+
+
+def match_points(
+    detected: np.ndarray,
+    expected: np.ndarray,
+    *,
+    gate_px: float | None = None,
+    max_offset_px: float | None = None,
+    radial: bool = True,
+    iterations: int = 12,
+) -> MatchResult:
+    """Pair detected (M, 2) with expected (N, 2) points, both (x, y) pixels.
+
+    gate_px: final pairing distance after the transform (default 0.3 x the expected grid
+    pitch). max_offset_px: largest plausible shift of the pattern (default: any). Raises
+    ValueError when fewer than 3 points can be paired, with the counts in the message.
+    """
+    det = np.asarray(detected, dtype=float).reshape(-1, 2)
+    exp = np.asarray(expected, dtype=float).reshape(-1, 2)
+    if len(det) < 3 or len(exp) < 3:
+        raise ValueError(
+            f"matching needs at least 3 detected and 3 expected points, got {len(det)} detected "
+            f"and {len(exp)} expected; check the detection threshold and the target definition"
+        )
+    tree_exp = cKDTree(exp)
+    pitch = float(np.median(tree_exp.query(exp, k=2)[0][:, 1]))
+    if pitch <= 0:
+        raise ValueError("expected points contain duplicates (zero grid pitch); check the target definition")
+    gate = gate_px if gate_px is not None else 0.3 * pitch
+    centre = exp.mean(axis=0)
+    c = complex(*centre)
+    ref_radius = float(np.max(np.hypot(*(exp - centre).T))) or 1.0
+    z_exp = exp[:, 0] + 1j * exp[:, 1] - c
+    tree_det = cKDTree(det)
+
+    # 1. Translation hypotheses: seeds near the middle of the detected pattern against all
+    #    expected points; scored by the count of expected points with a detection within
+    #    0.45 pitch (the middle is least affected by an unknown roll or scale).
+    dmid = det.mean(axis=0)
+    seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(3, len(det))]]
+    shifts = (seeds[:, None, :] - exp[None, :, :]).reshape(-1, 2)
+    if max_offset_px is not None:
+        base = np.median(det, axis=0) - np.median(exp, axis=0)
+        shifts = shifts[np.hypot(*(shifts - base).T) <= max_offset_px + pitch]
+        if len(shifts) == 0:
+            shifts = base[None, :]
+    near = exp[np.argsort(np.abs(z_exp))[: max(9, len(exp) // 3)]]
+    moved = (near[None, :, :] + shifts[:, None, :]).reshape(-1, 2)
+    dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
+    score = np.isfinite(dist).reshape(len(shifts), len(near)).sum(axis=1)
+    # A shift by a whole grid pitch also fits the middle: re-score the leaders on every point,
+    # where the rows that fall off the detected pattern tell them apart.
+    lead = np.nonzero(score >= 0.7 * score.max())[0]
+    moved = (exp[None, :, :] + shifts[lead][:, None, :]).reshape(-1, 2)
+    dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
+    full = np.isfinite(dist).reshape(len(lead), len(exp)).sum(axis=1)
+    order = lead[np.argsort(-full, kind="stable")[:3]]
+
+    best: tuple[int, float, np.ndarray, tuple[complex, complex, complex]] | None = None
+    for h in order:
+        a, b, t = 1 + 0j, 0j, complex(*shifts[h])
+        pairs = np.empty((0, 2), dtype=int)
+        for it in range(iterations):
+            pred = _predict(z_exp, c, a, b, t, ref_radius)
+            g = max(gate, 0.45 * pitch * (1 - it / max(1, iterations - 1)))
+            new_pairs = _mutual(tree_det, det, pred, g)
+            if len(new_pairs) < 3:
+                break
+            use_radial = radial and len(new_pairs) >= 8
+            zd = det[new_pairs[:, 0], 0] + 1j * det[new_pairs[:, 0], 1] - c
+            a, b, t = _solve(z_exp[new_pairs[:, 1]], zd, use_radial, ref_radius)
+            if np.array_equal(new_pairs, pairs) and g == gate:
+                break
+            pairs = new_pairs
+        if len(pairs) < 3:
+            continue
+        pred_xy = _predict(z_exp, c, a, b, t, ref_radius)
+        pairs = _mutual(tree_det, det, pred_xy, gate)
+        res = det[pairs[:, 0]] - pred_xy[pairs[:, 1]]
+        rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
+        if best is None or len(pairs) > best[0] or (len(pairs) == best[0] and rms < best[1]):
+            best = (len(pairs), rms, pairs, (a, b, t))
+    if best is None or best[0] < 3:
+        raise ValueError(
+            f"could not pair the {len(det)} detected spots with the {len(exp)} expected points "
+            "(fewer than 3 pairs); check the target, the collimator focal length and the UUT focal "
+            "length, or pass a larger gate"
+        )
+    n, rms, pairs, (a, b, t) = best
+    pairs = pairs[np.argsort(pairs[:, 1])]
+    return MatchResult(
+        pairs=pairs,
+        transform=PatternTransform(a=a, b=b, t=t, centre=(float(centre[0]), float(centre[1])), ref_radius=ref_radius),
+        unmatched_detected=np.setdiff1d(np.arange(len(det)), pairs[:, 0]),
+        unmatched_expected=np.setdiff1d(np.arange(len(exp)), pairs[:, 1]),
+        rms_px=rms,
+        gate_px=gate,
+    )
