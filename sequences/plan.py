@@ -316,6 +316,13 @@ class _Expander:
             elif name in self.instances:
                 if name not in instances:
                     instances.append(name)
+            elif "[" in name and name.split("[", 1)[0] in self.groups:
+                made = self.groups[name.split("[", 1)[0]]
+                shown = ", ".join(made[:4]) + (", ..." if len(made) > 4 else "")
+                self.problems.append(Problem(refs("captures"),
+                                             f"no capture instance '{name}' is made before this "
+                                             "step", f"instances so far: {shown}"))
+                ok = False
             elif name.split("[", 1)[0] in self.all_captures:
                 later = self.all_captures[name.split("[", 1)[0]]
                 self.problems.append(Problem(refs("captures"),
