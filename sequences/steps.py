@@ -31,6 +31,8 @@ __all__ = [
     "coerce_options",
     "station_problems",
     "suggest",
+    "axis_problems",
+    "ref_in_key",
 ]
 
 NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
