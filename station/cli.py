@@ -117,6 +117,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         for problem in exc.problems:
             console.print(f"  {problem}", highlight=False, markup=False)
         return exitcodes.INVALID
+    except (FileNotFoundError, ValueError) as exc:
+        console.print(f"[bold red]Input problem:[/] {exc}", highlight=False)
+        return exitcodes.INVALID
     except KeyboardInterrupt:
         console.print("interrupted")
         return exitcodes.ABORTED

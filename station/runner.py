@@ -93,7 +93,7 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
                 raise PreflightFailed(f"{step.id}: blackbody setpoint {step.params['value']} "
                                       f"outside the station limits [{lo}, {hi}]")
         if step.kind == "move":
-            for axis, value in step.params["axes"].items():
+            for axis, value in step.params["position"].items():
                 if axis not in inputs.station.axes or not inputs.station.axes[axis].contains(
                         float(value)):
                     raise PreflightFailed(f"{step.id}: stage {axis}={value} outside the soft "

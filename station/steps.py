@@ -80,7 +80,7 @@ def run_blackbody(step: Any, ctx: StepContext) -> dict:
 
 
 def run_target(step: Any, ctx: StepContext) -> dict:
-    name = step.params["target"]
+    name = step.params["name"]
     wheel = ctx.bench.wheel
     slot = wheel.select(name)
     wait_until(ctx.clock, ctx.requests, lambda: not wheel.is_moving(),
@@ -93,7 +93,7 @@ def run_target(step: Any, ctx: StepContext) -> dict:
 
 
 def run_move(step: Any, ctx: StepContext) -> dict:
-    targets = {a: float(v) for a, v in step.params["axes"].items()}
+    targets = {a: float(v) for a, v in step.params["position"].items()}
     stage = ctx.bench.stage
     stage.move_to(targets)
     wait_until(ctx.clock, ctx.requests, lambda: not stage.is_moving(),
