@@ -414,7 +414,7 @@ def _two_peaks(
 ) -> bool:
     """True when a second local maximum is separated from the main one by a clear dip.
 
-    A dip of at least 25 % of the lower peak along the joining segment (a Rayleigh-like
+    A dip of at least 15 % of the lower peak along the joining segment (a Sparrow-like
     criterion, common practice) distinguishes two spots from noise ripples on one spot.
     """
     box = np.where(labels[sl] == lab, sm[sl], -np.inf)
@@ -437,7 +437,7 @@ def _two_peaks(
     line_c = np.linspace(c0, best[1], n)
     vals = ndimage.map_coordinates(sm, [line_r, line_c], order=1)
     low = min(sm[r0, c0], sm[best])
-    return low > thr and float(vals.min()) < 0.75 * low
+    return low > thr and float(vals.min()) < 0.85 * low
 
 
 def centroid_at(
