@@ -19,7 +19,8 @@ class SimFrameGrabber(FrameGrabber):
     """Frames from a `CameraRenderer` of whatever scene the simulated bench shows."""
 
     def __init__(self, renderer: CameraRenderer, scene_source: Callable[[], SceneState],
-                 clock: Clock, frame_rate_hz: float, name: str = "camera") -> None:
+                 clock: Clock, frame_rate_hz: float, name: str = "camera",
+                 attach_truth: bool = False) -> None:
         if not frame_rate_hz > 0:
             raise ValueError(f"{name}: frame_rate_hz must be > 0, got {frame_rate_hz}")
         self.renderer = renderer
@@ -28,6 +29,7 @@ class SimFrameGrabber(FrameGrabber):
         self._rate = float(frame_rate_hz)
         self.name = name
         self._counter = 0
+        self.attach_truth = attach_truth
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -53,10 +55,13 @@ class SimFrameGrabber(FrameGrabber):
             scene = self.scene_source()
             self._counter += 1
             data = self.renderer.render(scene, self._counter)
-            yield Frame(data=data, counter=self._counter, timestamp=self.clock.now(),
-                        meta={"source_c": scene.source_c, "plate_c": scene.plate_c,
-                              "target": None if scene.target is None else scene.target.kind,
-                              "az_deg": scene.az_deg, "el_deg": scene.el_deg})
+            meta: dict[str, Any] = {
+                "source_c": scene.source_c, "plate_c": scene.plate_c,
+                "target": None if scene.target is None else scene.target.kind,
+                "az_deg": scene.az_deg, "el_deg": scene.el_deg}
+            if self.attach_truth:  # tests only: a real grabber cannot know this
+                meta["truth_spots_xy_px"] = self.renderer.expected_spots(scene)[0].tolist()
+            yield Frame(data=data, counter=self._counter, timestamp=self.clock.now(), meta=meta)
             self.clock.sleep(period)
 
     def truth_for_current_scene(self) -> dict[str, Any]:

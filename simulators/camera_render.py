@@ -230,7 +230,10 @@ class CameraRenderer:
                                      (float(n_img[0]), float(n_img[1])), self.truth.blur_sigma_px)
 
     def render_mean(self, scene: SceneState) -> np.ndarray:
-        """Expected value of each pixel before the ADC: clean signal through FPN (float32, cached)."""
+        """Expected value of each pixel before the ADC: clean signal through FPN.
+
+        float32, cached per scene (the last few scenes).
+        """
         cached = self._cache.get(scene)
         if cached is not None:
             self._cache.move_to_end(scene)

@@ -84,7 +84,8 @@ class _Reader:
             return None
         if not (lo < v <= hi):
             self.add(m.ref_of(key), f"{path}: {v!r} is out of range",
-                     f"use a value above {lo:g}" + ("" if math.isinf(hi) else f" and at most {hi:g}"))
+                     f"use a value above {lo:g}"
+                     + ("" if math.isinf(hi) else f" and at most {hi:g}"))
             return None
         return int(v) if integer else float(v)
 
@@ -98,8 +99,8 @@ def load_uut(path: str | Path) -> UutSpec:
         raise UutFileError(exc.problems) from None
     r = _Reader(file)
     if not isinstance(doc, MarkedDict):
-        raise UutFileError([Problem(doc.ref(), "the UUT file must be a mapping of keys",
-                                    f"start from station/data/demo_uut.yaml; keys: {', '.join(_TOP)}")])
+        hint = f"start from station/data/demo_uut.yaml; keys: {', '.join(_TOP)}"
+        raise UutFileError([Problem(doc.ref(), "the UUT file must be a mapping of keys", hint)])
     for key in doc:
         if key not in _TOP:
             r.add(doc.key_ref(key), f"{key}: unknown key", f"allowed keys are {', '.join(_TOP)}")

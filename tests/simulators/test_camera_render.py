@@ -54,7 +54,8 @@ def test_pinhole_flux_equals_solid_angle_ratio() -> None:
     # diameter d at the focus of a collimator F subtends pi (d/2)^2 / F^2 sr; a pixel sees
     # 1/(fx fy) sr; summed signal = R dL * ratio.
     r = CameraRenderer(_truth())
-    scene = SceneState(source_c=50.0, plate_c=20.0, target=SinglePinhole(0.5), collimator_focal_mm=800.0)
+    scene = SceneState(source_c=50.0, plate_c=20.0, target=SinglePinhole(0.5),
+                       collimator_focal_mm=800.0)
     img = r.render_clean(scene)
     l_src = band_radiance(273.15 + 50.0, (8.0, 12.0))
     l_plate = band_radiance(273.15 + 20.0, (8.0, 12.0))

@@ -1,0 +1,67 @@
+"""Benchmark: stream 1,000 frames of the demo camera (640x512, 14 bit) viewing a 15x11 pinhole grid.
+
+Prints frames per second and memory (tracemalloc peak of Python allocations, and the process's
+resident set size before and after). Target: >= 60 frames/s with memory flat while streaming.
+Run: python3 tests/bench/bench_camera.py
+"""
+
+from __future__ import annotations
+
+import resource
+import time
+import tracemalloc
+from pathlib import Path
+
+import yaml
+
+from analysis.targets import PinholeGrid
+from drivers.clock import SimClock
+from simulators.camera_grabber import SimFrameGrabber
+from simulators.camera_render import CameraRenderer, SceneState
+from simulators.camera_truth import truth_from_mapping
+
+TRUTH = Path(__file__).resolve().parents[2] / "station" / "data" / "demo_camera_truth.yaml"
+
+
+def _rss_mb() -> float:
+    for line in Path("/proc/self/status").read_text().splitlines():
+        if line.startswith("VmRSS:"):
+            return int(line.split()[1]) / 1024.0
+    return float("nan")
+
+
+def main(frames: int = 1000) -> None:
+    truth = truth_from_mapping(yaml.safe_load(TRUTH.read_text()))
+    renderer = CameraRenderer(truth)
+    scene = SceneState(source_c=35.0, plate_c=20.0,
+                       target=PinholeGrid(rows=11, cols=15, pitch_mm=27.0, diameter_mm=0.5),
+                       collimator_focal_mm=1000.0)
+    grabber = SimFrameGrabber(renderer, lambda: scene, SimClock(), frame_rate_hz=30.0)
+    t0 = time.perf_counter()
+    renderer.render_mean(scene)
+    first = time.perf_counter() - t0
+    list(grabber.grab(20))  # warm-up
+    rss0 = _rss_mb()
+    tracemalloc.start()
+    t0 = time.perf_counter()
+    rss_mid = 0.0
+    checksum = 0
+    for i, frame in enumerate(grabber.grab(frames)):
+        checksum += int(frame.data[256, 320])
+        if i == frames // 2:
+            rss_mid = _rss_mb()
+    elapsed = time.perf_counter() - t0
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    rss1 = _rss_mb()
+    print(f"scene render (clean + FPN, once): {first * 1e3:.1f} ms")
+    print(f"streamed {frames} frames 640x512 14-bit, 15x11 grid: {frames / elapsed:.1f} frames/s "
+          f"({elapsed / frames * 1e3:.2f} ms/frame)")
+    print(f"tracemalloc peak while streaming: {peak / 1e6:.2f} MB")
+    print(f"RSS before / midway / after: {rss0:.1f} / {rss_mid:.1f} / {rss1:.1f} MB "
+          f"(max RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.1f} MB)")
+    print(f"checksum {checksum}")
+
+
+if __name__ == "__main__":
+    main()
