@@ -8,7 +8,7 @@ ordered row-major and labelled ``(row, col)``; a grid's row 0 is at the most neg
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Union
 
@@ -28,7 +28,7 @@ class PinholeGrid:
     offset_mm: tuple[float, float] = (0.0, 0.0)
     points: tuple[tuple[float, float], ...] | None = None
     point_labels: tuple[tuple[int, int], ...] | None = None
-    kind: str = "pinhole_grid"
+    kind: str = field(default="pinhole_grid", init=False)
 
     def points_mm(self) -> np.ndarray:
         """(N, 2) plate coordinates (x, y) mm, row-major."""
@@ -55,7 +55,7 @@ class SinglePinhole:
     diameter_mm: float
     x_mm: float = 0.0
     y_mm: float = 0.0
-    kind: str = "single_pinhole"
+    kind: str = field(default="single_pinhole", init=False)
 
     def points_mm(self) -> np.ndarray:
         return np.array([[self.x_mm, self.y_mm]], dtype=float)
@@ -72,14 +72,14 @@ class SlantedEdge:
     """
 
     angle_deg: float = 5.0
-    kind: str = "slanted_edge"
+    kind: str = field(default="slanted_edge", init=False)
 
 
 @dataclass(frozen=True)
 class OpenAperture:
     """No plate in the beam: the UUT sees the source radiance everywhere (uniformity, NETD)."""
 
-    kind: str = "open_aperture"
+    kind: str = field(default="open_aperture", init=False)
 
 
 Target = Union[PinholeGrid, SinglePinhole, SlantedEdge, OpenAperture]
