@@ -217,7 +217,8 @@ class RunConsole:
         """(fraction done, clock seconds elapsed, seconds left).
 
         Fraction: the plan's estimate of the finished steps over the total when given, else steps
-        finished over steps. Time left: the plan estimate for the rest until 5 % is done, then the
+        finished over steps. Time left: the plan estimate for the rest (less the time already spent in
+        the running step) until 5 % is done, then the
         observed pace (elapsed / fraction), which absorbs a plan that is optimistic or pessimistic.
         """
         with self._lock:
@@ -232,7 +233,8 @@ class RunConsole:
                 frac = 0.0
             frac = min(max(frac, 0.0), 1.0)
             if frac < 0.05:
-                left = max(self._estimate_s * (1 - frac), self._estimate_s - elapsed, 0.0)
+                # time already spent in the step running counts against the plan's remainder
+                left = max(min(self._estimate_s * (1 - frac), self._estimate_s - elapsed), 0.0)
             else:
                 left = elapsed * (1 - frac) / frac
             return frac, elapsed, left
