@@ -339,7 +339,8 @@ class CaptureWriter:
             record_files["stack"] = {"file": self.files["stack"].name, "dtype": "uint16",
                                      "pages": self.count}
         if self._acc is not None:
-            average = (self._acc / self.count).astype(np.float32)
+            average = np.empty(self.shape, dtype=np.float32)  # no float64 temporary
+            np.divide(self._acc, self.count, out=average, casting="unsafe")
             tifffile.imwrite(self._partial["average"], average, photometric="minisblack",
                              metadata=None)
             fsync_file(self._partial["average"])
