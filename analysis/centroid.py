@@ -203,7 +203,8 @@ def _centroid_com_batch(
     safe = np.where(pos, flux, 1.0)
     sx = np.where(pos, np.sqrt((w2v * (dx * dx)[:, None, :]).sum(axis=(1, 2))) / safe, np.inf)
     sy = np.where(pos, np.sqrt((w2v * (dy * dy)[:, :, None]).sum(axis=(1, 2))) / safe, np.inf)
-    snr = np.where(pos, flux / np.sqrt(w2v.sum(axis=(1, 2))), 0.0)
+    noise_flux = np.sqrt(w2v.sum(axis=(1, 2)))
+    snr = np.divide(flux, noise_flux, out=np.zeros_like(flux), where=pos & (noise_flux > 0))
     truncated = (x - half < -0.5) | (y - half < -0.5) | (x + half > w_img - 0.5) | (y + half > h_img - 0.5)
     return x, y, sx, sy, flux, snr, converged & pos, truncated
 
