@@ -16,7 +16,13 @@ from simulators.camera_render import CameraRenderer, SceneState
 
 
 class SimFrameGrabber(FrameGrabber):
-    """Frames from a `CameraRenderer` of whatever scene the simulated bench shows."""
+    """Frames from a `CameraRenderer` of whatever scene the simulated bench shows.
+
+    Built by the station for a camera whose resource is `sim` (it needs the simulated bench).
+    """
+
+    KIND = "camera"
+    SETTINGS = {"resource": "'sim': rendered from the simulated bench (simulated stations only)"}
 
     def __init__(self, renderer: CameraRenderer, scene_source: Callable[[], SceneState],
                  clock: Clock, frame_rate_hz: float, name: str = "camera",

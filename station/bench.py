@@ -56,12 +56,10 @@ def _sim_resource(resource: str, port: int) -> str:
 
 def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_rate: float,
                       seed: int) -> FrameGrabber:
-    from analysis.targets import PinholeGrid  # noqa: F401  (targets resolved through station)
     from simulators.camera_grabber import SimFrameGrabber
     from simulators.camera_render import CameraRenderer, SceneState
-    from simulators.camera_truth import load_camera_truth
 
-    truth = load_camera_truth(station.simulation or {}, station.base_dir)
+    truth = camera_truth(station)
     renderer = CameraRenderer(truth, seed=seed)
 
     def scene() -> SceneState:
@@ -72,8 +70,26 @@ def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_
                           az_deg=angles.get("az", 0.0), el_deg=angles.get("el", 0.0),
                           collimator_focal_mm=station.collimator_focal_mm)
 
-    return SimFrameGrabber(renderer, scene, clock, frame_rate_hz=uut_frame_rate, name="camera",
-                           faults=getattr(sim, "faults", None))
+    return SimFrameGrabber(renderer, scene, clock, frame_rate_hz=uut_frame_rate, name="camera")
+
+
+def camera_truth(station: StationConfig) -> Any:
+    """The simulated camera's truth, from the file named in the station's simulation section."""
+    import yaml
+
+    from simulators.camera_truth import truth_from_mapping
+
+    sim = station.simulation or {}
+    name = sim.get("camera_truth")
+    if name is None:
+        raise ValueError(f"{station.path}: the simulation section needs 'camera_truth: FILE' "
+                         "(the simulated camera's actual distortion, noise and defects)")
+    path = station_relative(station, str(name))
+    try:
+        mapping = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (OSError, yaml.YAMLError) as exc:
+        raise ValueError(f"{path}: cannot read the simulated camera's truth ({exc})") from None
+    return truth_from_mapping(mapping)
 
 
 @contextmanager

@@ -10,7 +10,9 @@ from rich.console import Console
 from drivers.clock import SimClock
 from drivers.errors import InstrumentError
 from station import exitcodes
-from station.runner import (execute, format_duration, load_inputs, make_clock, new_run_folder)
+from station.manifest import Manifest
+from station.runner import (execute, format_duration, load_inputs, make_clock, new_run_folder,
+                            plan_summary)
 
 
 def _console_for(console: Console, plain: bool):
@@ -24,14 +26,13 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
                          overrides=args.overrides)
     clock = make_clock(inputs.station, args.realtime)
     run = new_run_folder(inputs, args.runs, clock)
-    run.manifest_start(station=inputs.station.name, uut=inputs.uut.serial,
-                       recipe=inputs.plan.recipe, overrides=inputs.overrides, seed=args.seed,
-                       simulated_clock=clock.simulated, estimate_s=inputs.estimate.total_s,
-                       steps=len(inputs.plan.steps), frames=inputs.estimate.frames)
+    manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, args.seed))
+    manifest.write(run.path)
     with _console_for(console, args.plain) as live:
         live.start(len(inputs.plan.steps), inputs.estimate.total_s)
-        outcome = execute(inputs, run, clock, live, seed=args.seed)
-    run.finish(outcome.state, outcome.cause)
+        outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
+    run.close()
+    manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
     console.print(f"run folder: {run.path}", highlight=False, markup=False)
     return exitcodes.BY_STATE.get(outcome.state, exitcodes.FAULTED)

@@ -108,6 +108,14 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
                 f"{inputs.estimate.frames} frames, estimated {format_duration(inputs.estimate.total_s)}")
 
 
+def plan_summary(inputs: Inputs, seed: int) -> dict[str, Any]:
+    """What the manifest records about the plan (resume reads it back)."""
+    return {"recipe": inputs.plan.recipe, "station": inputs.station.name,
+            "uut_serial": inputs.uut.serial, "overrides": dict(inputs.overrides), "seed": seed,
+            "steps": len(inputs.plan.steps), "frames": inputs.estimate.frames,
+            "estimate_s": inputs.estimate.total_s, "simulated": inputs.station.simulated}
+
+
 def format_duration(seconds: float) -> str:
     seconds = int(round(seconds))
     h, rem = divmod(seconds, 3600)
@@ -122,7 +130,8 @@ class RunResult:
 
 
 def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
-            completed: Mapping[str, Any] | None = None, fault_plan: Any = None) -> RunOutcome:
+            completed: Mapping[str, Any] | None = None, fault_plan: Any = None,
+            manifest: Any = None) -> RunOutcome:
     """Open the bench and run the plan into `run` (a RunFolder). Always leaves the bench safe."""
     requests = OperatorRequests()
     emit = run.events.emit
@@ -136,7 +145,7 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
 
     with abort_on_signals(requests, notify=lambda m: log("warning", m)):
         try:
-            with open_bench(inputs.station, clock, events=run.events.emit_io,
+            with open_bench(inputs.station, clock, events=io_sink(run.events),
                             frame_rate_hz=inputs.uut.frame_rate_hz, seed=seed,
                             fault_plan=fault_plan) as bench:
                 ctx = StepContext(bench=bench, station=inputs.station, uut=inputs.uut, run=run,
@@ -147,7 +156,8 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
                     preflight=lambda: preflight(inputs, bench, run.path, emit, console),
                     completed=completed)
                 outcome = sequencer.execute()
-                run.manifest_update(identities=bench.identities)
+                if manifest is not None:
+                    manifest.plan["instruments"] = dict(bench.identities)
                 return outcome
         except InstrumentError as exc:
             emit("state", source="idle", dest="faulted", cause=str(exc))
@@ -155,11 +165,21 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
                               len(inputs.plan.steps))
 
 
+def io_sink(events: Any) -> Any:
+    """Adapt the transports' event dicts to the run's event log."""
+
+    def sink(event: dict[str, Any]) -> None:
+        fields = {("at" if k == "t" else k): v for k, v in event.items() if k != "type"}
+        events.emit(str(event.get("type", "io")), **fields)
+
+    return sink
+
+
 def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> Any:
     from station.runfolder import RunFolder
 
     utc = dt.datetime.fromtimestamp(clock.now(), tz=dt.timezone.utc)
-    run = RunFolder.create(runs_root, uut_serial=inputs.uut.serial,
+    run = RunFolder.create(Path(runs_root).resolve(), uut_serial=inputs.uut.serial,
                            recipe_name=inputs.plan.recipe, utc=utc, clock=clock)
     run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path, recipe=inputs.recipe_path)
     return run

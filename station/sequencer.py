@@ -73,13 +73,11 @@ class Sequencer:
     def execute(self) -> RunOutcome:
         self.status.start_preflight(cause="run requested")
         try:
-            self.preflight()
-        except PreflightFailed as exc:
-            return self._finish_badly("fault", f"preflight: {exc}")
-        except RunInterrupted as exc:
-            return self._finish_badly("abort", str(exc))
-        self.status.preflight_passed(cause="preflight passed")
-        try:
+            try:
+                self.preflight()
+            except (PreflightFailed, InstrumentError) as exc:
+                return self._finish_badly("fault", f"preflight: {exc}")
+            self.status.preflight_passed(cause="preflight passed")
             self._restore_bench()
             self._run_steps()
         except RunInterrupted as exc:

@@ -53,8 +53,8 @@ class StepContext:
     log: Callable[[str, str], None]
     hold: Callable[[str], None]
     release: Callable[[str], None]
-    captures: dict[str, Any] = field(default_factory=dict)
     guard: BlackbodyGuard | None = None
+    current_target: str | None = None
     analyses: Mapping[str, Callable[..., dict]] = field(default_factory=dict)
     poll_s: float = POLL_S
 
@@ -89,6 +89,7 @@ def run_target(step: Any, ctx: StepContext) -> dict:
     if arrived != slot:
         raise StepFailed(f"target wheel reports slot {arrived} after moving to slot {slot} "
                          f"({name}); home the wheel and check its slot table")
+    ctx.current_target = name
     return {"target": name, "slot": slot}
 
 
@@ -157,14 +158,18 @@ def run_capture(step: Any, ctx: StepContext) -> dict:
         if not ok:
             _wait_for_guard(ctx, step.id, value)
             continue
-        writer = ctx.run.new_capture(step.id, p["name"], p.get("keep", "average"))
+        writer = ctx.run.new_capture(
+            step.id, p["name"], p.get("keep", "average"), expected_count=count,
+            extra={"group": p.get("group"), "target": ctx.current_target,
+                   "readings_start": ctx.bench.readings()})
         outcome = _grab_into(step, ctx, writer, count)
         if outcome is None:
-            record = writer.finish({"readings_end": ctx.bench.readings()})
-            ctx.captures[p["name"]] = record
+            writer.extra["readings_end"] = ctx.bench.readings()
+            record = writer.finish()
             ctx.emit("capture.done", step=step.id, name=p["name"], frames=count,
                      attempts=attempts)
-            return {"name": p["name"], "frames": count, "files": record.relative_files()}
+            return {"name": p["name"], "frames": count,
+                    "capture": record.to_dict(relative_to=ctx.run.path)}
         writer.abandon(outcome[0])
         ctx.emit("capture.discarded", step=step.id, name=p["name"], reason=outcome[0])
         if attempts > 5:
@@ -177,9 +182,6 @@ def _grab_into(step: Any, ctx: StepContext, writer: Any, count: int
     """Stream frames into `writer`; returns (reason, reading) if the guard failed mid-capture."""
     camera = ctx.bench.camera
     shape = camera.shape
-    readings = ctx.bench.readings()
-    writer.begin({"readings_start": readings, "target": step.params.get("target"),
-                  "step": step.id})
     taken = 0
     bad = 0
     last_counter: int | None = None

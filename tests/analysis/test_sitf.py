@@ -37,3 +37,18 @@ def test_noise_averages_variances_not_standard_deviations():
     stack = np.concatenate([rng.normal(0, 2, (400, 20, 10)), rng.normal(0, 10, (400, 20, 10))],
                            axis=2)
     assert temporal_noise(stack) == pytest.approx(np.sqrt(52.0), rel=0.02)
+
+
+def test_uniformity_recovers_gain_spread_and_bad_pixels():
+    # A flat field of 8000 counts with 1 % Gaussian gain spread gives 1 % non-uniformity (the
+    # sample standard deviation of a normal sample has relative error ~ 1/sqrt(2n)); 25 planted
+    # dead pixels are found exactly (common practice: outliers beyond a robust 6 sigma).
+    from analysis.uniformity import uniformity
+
+    rng = np.random.default_rng(11)
+    frame = 8000.0 * (1 + rng.normal(0, 0.01, (128, 160)))
+    idx = rng.choice(frame.size, 25, replace=False)
+    frame.flat[idx] = 0.0
+    result = uniformity(frame)
+    assert result.bad_pixels == 25
+    assert result.nonuniformity_percent == pytest.approx(1.0, rel=4 / np.sqrt(2 * frame.size))
