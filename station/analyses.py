@@ -18,6 +18,7 @@ from analysis.distortion_plots import write_distortion_plots
 from analysis.results_io import distortion_summary, write_distortion_results
 from analysis.sitf import central_mean, fit_sitf, netd
 from analysis.targets import PinholeGrid, SinglePinhole
+from analysis.uniformity import uniformity
 from station.atomic import write_json_atomic
 from station.frame_store import load_average, load_metadata, load_stack
 from station.waiting import StepFailed
@@ -103,19 +104,50 @@ def run_sitf(step: Any, ctx: Any) -> dict[str, Any]:
                               "intercept_counts": sitf.intercept_counts,
                               "r_squared": sitf.r_squared, "delta_t_k": list(sitf.delta_t_k),
                               "signal_counts": list(sitf.signal_counts)}
-    try:
-        stack = load_stack(ctx.run, instances[0])
-        if stack.shape[0] >= 2:
-            noise = netd(stack, sitf.sitf_counts_per_k)
-            result.update(netd_k=noise.netd_k, temporal_noise_counts=noise.temporal_noise_counts)
-    except Exception:  # no stack kept: SiTF alone is still a result
-        pass
     path = write_json_atomic(ctx.run.results_dir / "sitf.json", result)
     ctx.run.register(path)
-    return {k: result[k] for k in ("sitf_counts_per_k", "netd_k") if k in result}
+    return {k: result[k] for k in ("sitf_counts_per_k", "r_squared")}
+
+
+def run_netd(step: Any, ctx: Any) -> dict[str, Any]:
+    """NETD from the temporal noise of the captures' stacks over the SiTF of the same captures."""
+    instances = step.params["instances"]
+    deltas = [_difference_of(_capture_info(ctx.run, n)) for n in instances]
+    sitf = fit_sitf(deltas, [central_mean(load_average(ctx.run, n)) for n in instances])
+    stacks = list(instances)
+    try:
+        stack = load_stack(ctx.run, stacks[0])
+    except Exception as exc:
+        raise StepFailed(f"NETD needs the frames of a capture kept as a stack (keep: both or "
+                         f"stack): {exc}") from exc
+    noise = netd(stack, sitf.sitf_counts_per_k)
+    result = {"netd_k": noise.netd_k, "netd_mk": 1000 * noise.netd_k,
+              "temporal_noise_counts": noise.temporal_noise_counts,
+              "sitf_counts_per_k": sitf.sitf_counts_per_k, "frames": noise.frames,
+              "capture": stacks[0], "f_number": ctx.uut.f_number}
+    limit = ctx.uut.spec_limits.get("netd_mk")
+    if limit is not None:
+        result["passed"] = bool(result["netd_mk"] <= float(limit))
+    ctx.run.register(write_json_atomic(ctx.run.results_dir / "netd.json", result))
+    return {k: result[k] for k in ("netd_mk", "passed") if k in result}
+
+
+def run_uniformity(step: Any, ctx: Any) -> dict[str, Any]:
+    """Non-uniformity and bad pixels of each capture's averaged frame."""
+    out = {}
+    for name in step.params["instances"]:
+        u = uniformity(load_average(ctx.run, name), dark_counts=0.0)
+        out[name] = {"nonuniformity_percent": u.nonuniformity_percent,
+                     "bad_pixels": u.bad_pixels, "bad_pixel_fraction": u.bad_pixel_fraction,
+                     "mean_counts": u.mean_counts}
+    ctx.run.register(write_json_atomic(ctx.run.results_dir / "uniformity.json", out))
+    worst = max(v["nonuniformity_percent"] for v in out.values())
+    return {"worst_nonuniformity_percent": worst, "captures": len(out)}
 
 
 ANALYSES: Mapping[str, Callable[[Any, Any], dict[str, Any]]] = {
     "distortion": run_distortion,
     "sitf": run_sitf,
+    "netd": run_netd,
+    "uniformity": run_uniformity,
 }
