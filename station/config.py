@@ -163,6 +163,8 @@ def _check_resource(check: _Checker, entry: MarkedDict, role: str, simulated: bo
     resource = entry.get("resource")
     if not isinstance(resource, str):
         return
+    if role == "camera" and resource not in SIM_RESOURCES:
+        return  # a camera resource (device index, file, folder) is checked by its driver
     if resource in SIM_RESOURCES:
         if not simulated:
             check.add(entry.ref_of("resource"),
@@ -193,6 +195,42 @@ def _check_driver(check: _Checker, entry: MarkedDict, role: str, known: Mapping[
                   "pick a driver of the right kind ('nightbench drivers' lists them)")
 
 
+def _ref_of_path(entry: MarkedDict, path: str) -> SourceRef:
+    """Position of a dotted key path such as `commands.temperature.reply` inside an entry."""
+    node: Any = entry
+    where = entry.ref()
+    for part in path.split("."):
+        key: Any = int(part) if part.isdigit() and isinstance(node, dict) and int(part) in node \
+            else part
+        if isinstance(node, MarkedDict) and key in node:
+            where = node.ref_of(key)
+            node = node[key]
+        else:
+            break
+    return where
+
+
+def _check_driver_settings(check: _Checker, entry: MarkedDict, role: str) -> None:
+    """Let the driver check its own settings (e.g. command templates) when it can."""
+    from drivers.registry import find_driver
+
+    name = entry.get("driver")
+    try:
+        cls = find_driver(name)
+    except Exception:  # unknown or broken drivers are reported by _check_driver
+        return
+    validate = getattr(cls, "validate_settings", None)
+    if validate is None:
+        return
+    settings = {k: v for k, v in entry.items() if k not in COMMON_KEYS}
+    if role == "camera":  # camera drivers take their resource among their settings
+        settings["resource"] = entry.get("resource")
+    for text in validate(settings):
+        path, _, message = str(text).partition(": ")
+        check.add(_ref_of_path(entry, path) if message else entry.ref(),
+                  f"{role}: {text}", "see 'nightbench drivers' and DEVELOPERS.md")
+
+
 def _known_drivers() -> dict[str, str]:
     from drivers.registry import list_drivers
 
@@ -210,6 +248,8 @@ def _instrument(check: _Checker, instruments: MarkedDict, role: str, simulated: 
                           "give a resource string such as TCPIP::host::port::SOCKET, "
                           "ASRL/dev/ttyUSB0::INSTR, GPIB0::12::INSTR or socket://host:port")
     _check_driver(check, entry, role, known)
+    if isinstance(driver, str) and driver in known:
+        _check_driver_settings(check, entry, role)
     _check_resource(check, entry, role, simulated)
     timeout = check.number(entry, "timeout_s", "seconds to wait for a reply", positive=True,
                            default=2.0)
