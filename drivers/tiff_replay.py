@@ -130,6 +130,7 @@ class TiffReplayGrabber(FrameGrabber):
         self._next = 0
         self._served = 0
         self._last_counter = 0
+        self._wrapped = False
         first = self._load(self.items[0])
         self._shape = (int(first.shape[0]), int(first.shape[1]))
         self._bit_depth = int(settings.get("bit_depth") or (8 * first.dtype.itemsize
@@ -184,15 +185,16 @@ class TiffReplayGrabber(FrameGrabber):
                                           f"frames ({i} of {count} grabbed)",
                                           hint="set loop: true or record more frames")
                 self._next = 0
+                self._wrapped = True
             item = self.items[self._next]
             self._next += 1
             data = self._load(item)
             if data.shape != self._shape:
                 raise InstrumentError(self.name, f"{item.path.name} page {item.page} is "
                                       f"{data.shape}, the replay started with {self._shape}")
-            counter = item.counter if item.counter is not None else self._last_counter + 1
-            if self._served and counter <= self._last_counter and item.counter is not None:
-                counter = self._last_counter + 1  # looping: counters keep rising
+            # recorded counters as recorded; after a wrap-around they keep rising instead
+            recorded = item.counter if not self._wrapped else None
+            counter = recorded if recorded is not None else self._last_counter + 1
             self._last_counter = counter
             self._served += 1
             stamp = item.timestamp if item.timestamp is not None else (self._served - 1) / self._rate
