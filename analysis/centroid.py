@@ -34,6 +34,7 @@ __all__ = [
     "estimate_background",
     "detect_spots",
     "centroid_at",
+    "repair_isolated_pixels",
 ]
 
 _MAD_TO_SIGMA = 1.4826  # 1 / Phi^-1(3/4): MAD -> sigma for Gaussian data.
@@ -47,6 +48,7 @@ class SpotFlag(enum.Flag):
     TRUNCATED = enum.auto()  # the window crosses the frame edge
     MERGED = enum.auto()  # two peaks in one component, or a component too large for one spot
     NOT_CONVERGED = enum.auto()  # the centre kept moving or the fit failed
+    BAD_PIXEL = enum.auto()  # a repaired hot/dead pixel lies in the window (centroid may be biased)
 
 
 @dataclass(frozen=True)
@@ -331,8 +333,11 @@ def _measure_many(
         yi = int(round(min(max(y, 0.0), h - 1.0)))
         sl = (slice(max(0, yi - half), yi + half + 1), slice(max(0, xi - half), xi + half + 1))
         peak = float(resid[sl].max())
-        if saturation is not None and float(raw[sl].max()) >= saturation:
+        win = raw[sl]
+        if saturation is not None and float(win.max()) >= saturation:
             flags |= SpotFlag.SATURATED
+        if np.isneginf(win).any():
+            flags |= SpotFlag.BAD_PIXEL
         spots.append(Spot(x=float(x), y=float(y), sigma_x=float(s_x), sigma_y=float(s_y), flux=float(f),
                           peak=peak, snr=float(q), flags=flags))
     return spots
@@ -350,6 +355,7 @@ def detect_spots(
     min_area_px: int = 1,
     max_area_px: int | None = None,
     gain: float | None = None,
+    repair_bad_pixels: bool = True,
 ) -> list[Spot]:
     """Find every spot above the background and centroid it; returns Spots in (x, y) order.
 
@@ -359,13 +365,18 @@ def detect_spots(
     method "com" (iterated windowed centre of mass) or "gauss" (pixel-integrated Gaussian fit).
     window_px should span about three FWHM of the spot. gain (DN per electron), when given,
     adds shot noise to the per-spot variance. A component with two separated peaks, or larger
-    than max_area_px (default: 4 windows), is flagged MERGED.
+    than max_area_px (default: 4 windows), is flagged MERGED. Hot and dead pixels are repaired
+    first (repair_isolated_pixels) unless repair_bad_pixels is False; saturation is judged on
+    the raw frame.
     """
     raw = _as_float_image(image)
     bg = background or estimate_background(raw)
     noise = bg.noise
     level = bg.level
     resid = raw - level
+    if repair_bad_pixels:
+        resid, fixed = repair_isolated_pixels(resid, noise)
+        raw = _without(raw, fixed)
     if smooth_px > 0:
         sm = ndimage.gaussian_filter(resid, smooth_px, mode="nearest", truncate=3.0)
         k = _gauss_kernel_norm(smooth_px)
@@ -398,6 +409,48 @@ def detect_spots(
         if merged:
             spot = replace(spot, flags=spot.flags | SpotFlag.MERGED)
         out.append(spot)
+    return out
+
+
+def repair_isolated_pixels(
+    resid: np.ndarray, noise: float, *, k_sigma: float = 10.0,
+) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
+    """Replace hot and dead pixels (isolated single-pixel outliers) by their 8-neighbour median.
+
+    A pixel is isolated when it differs from the median of its eight neighbours by more than
+    k_sigma noise sigmas and by more than three times the neighbours' own excess over the
+    background (a blurred spot's peak never stands that far above its flanks; the classic
+    median-based cosmic-ray/bad-pixel test, common practice in astronomical CCD reduction),
+    or when it lies more than k_sigma sigmas below the background (nothing real is darker).
+    Works on a background-subtracted image (rows, cols); returns the repaired copy and the
+    (rows, cols) indices of the repaired pixels.
+    """
+    none = (np.zeros(0, dtype=int), np.zeros(0, dtype=int))
+    cand = np.nonzero((resid > k_sigma * noise) | (resid < -k_sigma * noise))
+    if cand[0].size == 0:
+        return resid, none
+    padded = np.pad(resid, 1, mode="edge")
+    r, c = cand[0] + 1, cand[1] + 1
+    neigh = np.stack([padded[r + dr, c + dc] for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc], axis=1)
+    med = np.median(neigh, axis=1)
+    v = resid[cand]
+    dev = v - med
+    bad = ((np.abs(dev) > k_sigma * noise) & (np.abs(dev) > 3.0 * np.abs(med))) | (v < -k_sigma * noise)
+    if not bad.any():
+        return resid, none
+    out = resid.copy()
+    idx = (cand[0][bad], cand[1][bad])
+    out[idx] = med[bad]
+    return out, idx
+
+
+def _without(raw: np.ndarray, idx: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    """Raw frame with repaired pixels set to -inf: a hot pixel never reads as saturation, and a
+    window holding one is flagged BAD_PIXEL."""
+    if idx[0].size == 0:
+        return raw
+    out = raw.copy()
+    out[idx] = -np.inf
     return out
 
 
@@ -452,6 +505,7 @@ def centroid_at(
     saturation: float | None = None,
     background: Background | None = None,
     gain: float | None = None,
+    repair_bad_pixels: bool = True,
 ) -> Spot:
     """Centroid of the one spot near (x0, y0) (x = column, y = row), for scan mode.
 
@@ -471,9 +525,11 @@ def centroid_at(
     xi, yi = int(round(x0)), int(round(y0))
     xa, xb = max(0, xi - search), min(w, xi + search + 1)
     ya, yb = max(0, yi - search), min(h, yi + search + 1)
-    level = bg.level if np.isscalar(bg.level) else bg.level[ya:yb, xa:xb]
-    box = ndimage.gaussian_filter(raw[ya:yb, xa:xb] - level, 1.0, mode="nearest")
-    r, c = np.unravel_index(int(np.argmax(box)), box.shape)
     resid = raw - bg.level
+    if repair_bad_pixels:
+        resid, fixed = repair_isolated_pixels(resid, bg.noise)
+        raw = _without(raw, fixed)
+    box = ndimage.gaussian_filter(resid[ya:yb, xa:xb], 1.0, mode="nearest")
+    r, c = np.unravel_index(int(np.argmax(box)), box.shape)
     return _measure_many(raw, resid, bg.noise, np.array([float(xa + c)]), np.array([float(ya + r)]),
                          window_px, method, saturation, gain)[0]

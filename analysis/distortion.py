@@ -66,7 +66,7 @@ __all__ = [
 ALL_TERMS = ("cx", "cy", "roll", "fx", "aspect", "skew", "k1", "k2", "p1", "p2", "k3")
 
 # Spots with these flags are left out of the fit: their centroids are biased or ambiguous.
-_UNUSABLE = SpotFlag.TRUNCATED | SpotFlag.MERGED | SpotFlag.NOT_CONVERGED
+_UNUSABLE = SpotFlag.TRUNCATED | SpotFlag.MERGED | SpotFlag.NOT_CONVERGED | SpotFlag.BAD_PIXEL
 
 
 @dataclass(frozen=True)
