@@ -3,6 +3,11 @@
 Each grabbed frame reads the current scene from `scene_source` (the simulated bench state:
 blackbody, wheel, stage), renders it, stamps it with the clock's time and a counter, and moves the
 clock on by one frame period, so a dry run takes the simulated time a real grab would.
+
+An optional fault plan makes it misbehave the way real grabbers do, per frame: `drop` (the frame
+never arrives: its counter is skipped), `repeat` (the previous frame is delivered again with the
+same counter) and `short` (a frame with only part of its rows). The station detects each from the
+counters and the shape and grabs again.
 """
 
 from __future__ import annotations
@@ -26,7 +31,8 @@ class SimFrameGrabber(FrameGrabber):
 
     def __init__(self, renderer: CameraRenderer, scene_source: Callable[[], SceneState],
                  clock: Clock, frame_rate_hz: float, name: str = "camera",
-                 attach_truth: bool = False) -> None:
+                 attach_truth: bool = False, faults: Any = None,
+                 fault_name: str = "grabber") -> None:
         if not frame_rate_hz > 0:
             raise ValueError(f"{name}: frame_rate_hz must be > 0, got {frame_rate_hz}")
         self.renderer = renderer
@@ -36,6 +42,9 @@ class SimFrameGrabber(FrameGrabber):
         self.name = name
         self._counter = 0
         self.attach_truth = attach_truth
+        self.faults = faults            # simulators.faults.FaultPlan or None
+        self.fault_name = fault_name    # the instrument name its rules use
+        self._last: Frame | None = None
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -53,13 +62,24 @@ class SimFrameGrabber(FrameGrabber):
         return f"nightbench simulated camera, {self.renderer.truth.model}"
 
     def grab(self, count: int) -> Iterator[Frame]:
-        """Yield `count` frames; counters increase by one; the clock advances 1/rate per frame."""
+        """Yield up to `count` frames; counters increase by one; the clock advances 1/rate per
+        frame. With a fault plan some frames are dropped (fewer yielded), repeated or short."""
         if count < 0:
             raise ValueError(f"{self.name}: frame count must be >= 0, got {count}")
         period = 1.0 / self._rate
         for _ in range(int(count)):
+            fault = self._fault()
+            last = self._last
+            if fault == "repeat" and last is not None:
+                yield Frame(data=last.data, counter=last.counter, timestamp=self.clock.now(),
+                            meta=dict(last.meta, fault="repeat"))
+                self.clock.sleep(period)
+                continue
             scene = self.scene_source()
             self._counter += 1
+            if fault == "drop":
+                self.clock.sleep(period)
+                continue
             data = self.renderer.render(scene, self._counter)
             meta: dict[str, Any] = {
                 "source_c": scene.source_c, "plate_c": scene.plate_c,
@@ -67,8 +87,24 @@ class SimFrameGrabber(FrameGrabber):
                 "az_deg": scene.az_deg, "el_deg": scene.el_deg}
             if self.attach_truth:  # tests only: a real grabber cannot know this
                 meta["truth_spots_xy_px"] = self.renderer.expected_spots(scene)[0].tolist()
-            yield Frame(data=data, counter=self._counter, timestamp=self.clock.now(), meta=meta)
+            last = self._last = Frame(data=data, counter=self._counter,
+                                      timestamp=self.clock.now(), meta=meta)
+            if fault == "short":
+                yield Frame(data=data[: max(1, data.shape[0] // 2)], counter=self._counter,
+                            timestamp=last.timestamp, meta=dict(meta, fault="short"))
+            else:
+                yield last
             self.clock.sleep(period)
+
+    def _fault(self) -> str | None:
+        """The grabber fault (drop, repeat, short) that fires for the next frame, if any."""
+        if self.faults is None:
+            return None
+        for kind in ("drop", "repeat", "short"):
+            if self.faults.should_fire(self.fault_name, kind, count=self._counter + 1,
+                                       t=self.clock.now()):
+                return kind
+        return None
 
     def truth_for_current_scene(self) -> dict[str, Any]:
         """Ground truth (spot positions, model parameters) of the scene now in view, for JSON."""

@@ -70,7 +70,8 @@ def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_
                           az_deg=angles.get("az", 0.0), el_deg=angles.get("el", 0.0),
                           collimator_focal_mm=station.collimator_focal_mm)
 
-    return SimFrameGrabber(renderer, scene, clock, frame_rate_hz=uut_frame_rate, name="camera")
+    return SimFrameGrabber(renderer, scene, clock, frame_rate_hz=uut_frame_rate, name="camera",
+                           faults=sim.faults)
 
 
 def camera_truth(station: StationConfig) -> Any:

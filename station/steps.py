@@ -55,6 +55,7 @@ class StepContext:
     release: Callable[[str], None]
     guard: BlackbodyGuard | None = None
     current_target: str | None = None
+    last_counter: int | None = None  # last accepted frame counter, across captures (repeats)
     analyses: Mapping[str, Callable[..., dict]] = field(default_factory=dict)
     poll_s: float = POLL_S
 
@@ -184,7 +185,7 @@ def _grab_into(step: Any, ctx: StepContext, writer: Any, count: int
     shape = camera.shape
     taken = 0
     bad = 0
-    last_counter: int | None = None
+    last_counter: int | None = ctx.last_counter
     last_check = ctx.clock.now()
     while taken < count:
         for frame in camera.grab(count - taken):
@@ -199,7 +200,7 @@ def _grab_into(step: Any, ctx: StepContext, writer: Any, count: int
                     raise StepFailed(f"camera: {bad} bad frames in capture {step.id} "
                                      f"(last: {problem}); check the grabber and cable")
                 continue
-            last_counter = frame.counter
+            last_counter = ctx.last_counter = frame.counter
             writer.add(frame)
             taken += 1
             if ctx.guard is not None and ctx.clock.now() - last_check >= ctx.poll_s:

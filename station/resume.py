@@ -1,0 +1,231 @@
+"""Resume an interrupted run in its own folder: same inputs, same plan, the open steps only.
+
+Why a separate module: resuming is the one path that must distrust what it finds. The journal
+and manifest may be damaged, the station or recipe file may have been edited since the run
+started, another process may still be running the run, and a half-written capture may sit in
+frames/. Each of these is either refused with a message naming the file and what to do, or
+handled (partials set aside under frames/abandoned/) before anything moves.
+
+The inputs come from the run folder's own copies (inputs/), so the plan, and therefore the step
+ids in the journal, are exactly those of the first session. The originals are only compared.
+
+Example::
+
+    state, cause, path = resume_run(Path("runs/20260101T000000Z_SN-1_grid"), console=live)
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import socket
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from drivers.clock import Clock, RealClock, SimClock
+from station.atomic import sha256_file
+from station.journal import JournalError
+from station.manifest import RUNNING, Manifest, ManifestError, load_manifest
+from station.runfolder import RunFolder, RunFolderError
+from station.runner import Inputs, execute, load_inputs
+
+ROLES = ("station", "uut", "recipe")
+BUILT_IN = "(built in)"
+TAIL_BYTES = 64 * 1024
+
+
+class ResumeRefused(ValueError):
+    """Resuming is not safe or not possible; the message names the file and what to do.
+
+    A ValueError so the command line reports it as an input problem (exit code 2).
+    """
+
+
+@dataclass(frozen=True)
+class InputChange:
+    """One input whose original file differs from the copy the run started with."""
+
+    role: str
+    source: str
+    problem: str
+
+
+def check_sources(inputs_index: Mapping[str, Mapping[str, Any]]) -> list[InputChange]:
+    """Compare each original input file (its recorded `source`) with the recorded SHA-256.
+
+    Built-in inputs (no file on disk) are not compared. A missing original counts as a change:
+    nobody can tell whether the station still matches.
+    """
+    changes: list[InputChange] = []
+    for role in ROLES:
+        entry = inputs_index.get(role)
+        if not entry:
+            continue
+        source = str(entry.get("source", ""))
+        if not source or source == BUILT_IN:
+            continue
+        path = Path(source)
+        if not path.is_file():
+            changes.append(InputChange(role, source, "the original file is gone"))
+            continue
+        if sha256_file(path) != entry.get("sha256"):
+            changes.append(InputChange(role, source, "the original file was changed since "
+                                       "the run started"))
+    return changes
+
+
+def load_run_inputs(run: RunFolder, manifest: Manifest) -> Inputs:
+    """Load station, UUT and recipe from the run folder's copies, with the run's overrides.
+
+    The station keeps its original path, so files it names relative to itself (the simulated
+    camera's truth, target drawings) resolve as they did in the first session.
+    """
+    try:
+        station_copy = run.input_path("station")
+        uut_copy = run.input_path("uut")
+        recipe_copy = run.input_path("recipe")
+    except RunFolderError as exc:
+        raise ResumeRefused(f"{exc}; inputs/inputs.json lists what was copied, and without the "
+                            "copies the plan cannot be rebuilt. Start the recipe again.") from None
+    overrides = dict(manifest.plan.get("overrides") or {})
+    inputs = load_inputs(recipe_copy, station_path=station_copy, uut_path=uut_copy,
+                         overrides=overrides)
+    source = str(run.inputs.get("station", {}).get("source", ""))
+    if source and source != BUILT_IN:
+        inputs.station = dataclasses.replace(inputs.station, path=Path(source))
+    return inputs
+
+
+def _refuse_plan_change(inputs: Inputs, manifest: Manifest, force: bool) -> None:
+    """The rebuilt plan must be the one the journal was written against."""
+    plan = manifest.plan
+    problems = []
+    if plan.get("uut_serial") not in (None, inputs.uut.serial):
+        problems.append(f"UUT serial is {inputs.uut.serial!r}, the run started with "
+                        f"{plan.get('uut_serial')!r}")
+    if plan.get("steps") not in (None, len(inputs.plan.steps)):
+        problems.append(f"the plan now has {len(inputs.plan.steps)} steps, it had "
+                        f"{plan.get('steps')}")
+    if plan.get("recipe") not in (None, inputs.plan.recipe):
+        problems.append(f"recipe is {inputs.plan.recipe!r}, the run started with "
+                        f"{plan.get('recipe')!r}")
+    if problems and not force:
+        raise ResumeRefused("the run folder's inputs do not rebuild the plan it started with: "
+                            + "; ".join(problems) + ". Start the recipe again in a new run "
+                            "folder, or pass --force if you know the difference is harmless.")
+
+
+def _refuse_if_running_elsewhere(manifest: Manifest, path: Path, force: bool) -> None:
+    """A manifest saying `running` whose process is still alive on this host: someone owns it."""
+    if manifest.state != RUNNING or force or not manifest.sessions:
+        return
+    last = manifest.sessions[-1]
+    pid, host = last.get("pid"), last.get("host")
+    if not isinstance(pid, int) or host != socket.gethostname() or pid == os.getpid():
+        return
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return
+    except PermissionError:
+        pass
+    raise ResumeRefused(f"{path / 'manifest.json'}: the run is still marked running by process "
+                        f"{pid} on this host, which is alive. Stop that process first (or wait "
+                        "for it), or pass --force if that process is not nightbench.")
+
+
+def last_clock_time(run: RunFolder, manifest: Manifest) -> float:
+    """The latest clock time the run folder records (end of the event log, else the manifest)."""
+    best = max(float(manifest.start_clock), float(manifest.end_clock or 0.0))
+    path = run.events_path
+    if not path.is_file():
+        return best
+    import json
+
+    with open(path, "rb") as fh:
+        size = fh.seek(0, os.SEEK_END)
+        fh.seek(max(0, size - TAIL_BYTES))
+        tail = fh.read()
+    for raw in reversed(tail.split(b"\n")):
+        try:
+            record = json.loads(raw)
+        except ValueError:
+            continue
+        if isinstance(record, dict) and isinstance(record.get("t"), (int, float)):
+            return max(best, float(record["t"]))
+    return best
+
+
+def resume_clock(inputs: Inputs, start: float) -> Clock:
+    """Simulated time for a simulated station (continuing from where the run stopped)."""
+    if inputs.station.simulated:
+        return SimClock(start=start + 1.0)
+    return RealClock()
+
+
+def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None,
+               console: Any, clock: Clock | None = None,
+               fault_plan: Any = None) -> tuple[str, str, Path]:
+    """Continue the run in `path` at its first step not in the journal.
+
+    Returns (end state, cause, run folder). Raises ResumeRefused (a ValueError) when the folder,
+    its journal or manifest is unusable, or the station/recipe/UUT changed (unless `force`).
+    `clock` and `fault_plan` are for in-process callers (tests, soak); the command line leaves
+    them None: a simulated station then runs on simulated time.
+    """
+    run_path = Path(path).resolve()
+    try:
+        run = RunFolder.open(run_path)
+        manifest = load_manifest(run_path)
+        journal = run.journal
+    except (RunFolderError, ManifestError, JournalError) as exc:
+        raise ResumeRefused(str(exc)) from None
+    if manifest.state == "complete":
+        return "complete", "already complete: every step is in the journal, nothing to resume", \
+            run_path
+    _refuse_if_running_elsewhere(manifest, run_path, force)
+    index = run.inputs or manifest.inputs
+    if not run.inputs:
+        run.inputs = dict(manifest.inputs)
+    changes = check_sources(index)
+    if changes and not force:
+        lines = "; ".join(f"{c.role} file {c.source}: {c.problem}" for c in changes)
+        raise ResumeRefused(f"{lines}. The run folder holds the copy the run started with "
+                            "(inputs/); resuming against a different station or recipe could "
+                            "mix incompatible data. Restore the original, or pass --force to "
+                            "go on with the copies in the run folder.")
+    inputs = load_run_inputs(run, manifest)
+    _refuse_plan_change(inputs, manifest, force)
+    run_seed = int(seed if seed is not None else manifest.plan.get("seed", 1))
+    clock = clock or resume_clock(inputs, last_clock_time(run, manifest))
+    run.clock = clock
+    completed = journal.completed()
+    emit = run.events.emit
+    emit("resume.start", completed=len(completed), total=len(inputs.plan.steps),
+         previous_state=manifest.state, previous_cause=manifest.cause, forced=bool(force),
+         changed_inputs=[dataclasses.asdict(c) for c in changes],
+         journal_warnings=list(journal.warnings))
+    aside = run.set_aside_partials()
+    note = (f"{len(completed)} of {len(inputs.plan.steps)} steps done; "
+            f"{len(aside)} unfinished capture(s) set aside"
+            + ("; forced past: " + ", ".join(c.role for c in changes) if changes else ""))
+    manifest.resumed(run_path, clock, note=note)
+    remaining_s = sum(s for step_id, s in inputs.estimate.per_step if step_id not in completed)
+    with console as live:
+        for warning in journal.warnings:
+            live.log("warning", warning)
+        for change in changes:
+            live.log("warning", f"--force: {change.role} file {change.source}: {change.problem}")
+        live.log("info", f"resuming: {note}")
+        live.start(len(inputs.plan.steps), remaining_s)
+        outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
+                          fault_plan=fault_plan, manifest=manifest)
+    run.close()
+    manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock)
+    return outcome.state, outcome.cause, run_path
+
+
+__all__ = ["InputChange", "ResumeRefused", "check_sources", "last_clock_time",
+           "load_run_inputs", "resume_clock", "resume_run"]
