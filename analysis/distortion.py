@@ -483,6 +483,7 @@ def _analyze(
     labels: Sequence[str],
     spec: Mapping[str, float] | None,
     terms: Sequence[str] | None,
+    loss: str,
     n_sigma: float,
     defect_floor_px: float,
     rule: ClassificationRule,
@@ -501,18 +502,17 @@ def _analyze(
     if terms is None:
         terms = choose_terms(ideal_normalized(nominal, m_dir))
 
-    # Pass 1: plain fit, robust scale of the normalized residuals.
-    model, r = fit_camera_model(m_xy, m_dir, nominal, sigma_px=sig_fit, terms=terms)
-    scale = _robust_scale(r)
-    # Pass 2: soft-L1 fit so a local defect does not drag the model; flag; pass 3: plain fit
-    # without the flagged points (its covariance is the one reported).
-    model, r = fit_camera_model(m_xy, m_dir, nominal, sigma_px=sig_fit, terms=terms, loss="soft_l1",
-                                f_scale=3.0 * scale, start=model.geometry)
+    # Pass 1: soft-L1 fit, so a local defect does not drag the model (robust loss, f_scale of
+    # 3 sigmas; with unit weights 3 x the median centroid-free scale is unknown, so 0.05 px).
+    f0 = 3.0 if sig_fit is not None else 0.05
+    model, r = fit_camera_model(m_xy, m_dir, nominal, sigma_px=sig_fit, terms=terms, loss=loss, f_scale=f0)
     scale = _robust_scale(r)
     s_px = _sigma_array(sig_fit, len(m_xy))
     outlier = _flag(r, s_px, scale, n_sigma, defect_floor_px)
     keep = ~outlier
-    if keep.sum() * 2 > len(model.fitted_terms) + 2:
+    # Pass 2 (always when the loss was robust: its covariance is not the least-squares one):
+    # plain least squares without the flagged points; its covariance is the one reported.
+    if (loss != "linear" or outlier.any()) and keep.sum() * 2 > len(model.fitted_terms) + 2:
         model, _ = fit_camera_model(m_xy[keep], m_dir[keep], nominal, sigma_px=None if sig_fit is None else sig_fit[keep],
                                     terms=terms, start=model.geometry)
     geom = model.geometry
@@ -647,6 +647,7 @@ def analyze_grid(
     sigma_px: np.ndarray | float | None = None,
     spec: Mapping[str, float] | None = None,
     terms: Sequence[str] | None = None,
+    loss: str = "soft_l1",
     assume_matched: bool = False,
     gate_px: float | None = None,
     n_sigma: float = 5.0,
@@ -661,7 +662,9 @@ def analyze_grid(
     camera frame (geometry.collimator_directions then to_camera_frame). Spots are paired with
     the nominal projections by analysis.matching unless assume_matched (then row i of the
     measured array belongs to direction i; NaN rows are missing points). sigma_px overrides the
-    spots' own sigmas. spec: limits such as {"max_distortion_percent": 2.0}.
+    spots' own sigmas. spec: limits such as {"max_distortion_percent": 2.0}. loss: the first
+    pass's scipy loss ("soft_l1" default, robust to defects; "linear" for one plain fit when
+    no point is flagged).
     min_radius_fraction: points nearer the centre than this fraction of the measured field are
     left out of the maximum (their percentage is noise over a tiny radius).
     """
@@ -690,7 +693,7 @@ def analyze_grid(
             notes.append(f"{n_extra} detected spot(s) matched no expected point (hot pixel, reflection?)")
     if np.isnan(sigma).any() and not np.isnan(sigma).all():
         sigma = np.where(np.isnan(sigma), np.nanmedian(sigma), sigma)
-    return _analyze("grid", measured, sigma, dirs, nominal, labels, spec, terms, n_sigma, defect_floor_px,
+    return _analyze("grid", measured, sigma, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,
                     rule, min_radius_fraction, n_extra, match, notes)
 
 
@@ -705,6 +708,7 @@ def analyze_scan(
     sigma_px: np.ndarray | float | None = None,
     spec: Mapping[str, float] | None = None,
     terms: Sequence[str] | None = None,
+    loss: str = "soft_l1",
     n_sigma: float = 5.0,
     defect_floor_px: float = 0.1,
     rule: ClassificationRule = ClassificationRule(),
@@ -740,5 +744,5 @@ def analyze_scan(
     if np.isnan(sig).any() and not np.isnan(sig).all():
         sig = np.where(np.isnan(sig), np.nanmedian(sig), sig)
     labels = tuple(labels) if labels is not None else tuple(f"az{az:+.2f}_el{el:+.2f}" for az, el in poses)
-    return _analyze("scan", xy, sig, dirs, nominal, labels, spec, terms, n_sigma, defect_floor_px,
+    return _analyze("scan", xy, sig, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,
                     rule, min_radius_fraction, 0, None, [])

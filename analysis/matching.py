@@ -135,7 +135,7 @@ def match_points(
     #    expected points; scored by the count of expected points with a detection within
     #    0.45 pitch (the middle is least affected by an unknown roll or scale).
     dmid = det.mean(axis=0)
-    seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(3, len(det))]]
+    seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(2, len(det))]]
     shifts = (seeds[:, None, :] - exp[None, :, :]).reshape(-1, 2)
     if max_offset_px is not None:
         base = np.median(det, axis=0) - np.median(exp, axis=0)
@@ -152,7 +152,13 @@ def match_points(
     moved = (exp[None, :, :] + shifts[lead][:, None, :]).reshape(-1, 2)
     dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
     full = np.isfinite(dist).reshape(len(lead), len(exp)).sum(axis=1)
-    order = lead[np.argsort(-full, kind="stable")[:3]]
+    order: list[int] = []
+    for h in lead[np.argsort(-full, kind="stable")]:
+        # Distinct hypotheses only: the same shift found from another seed adds nothing.
+        if all(np.hypot(*(shifts[h] - shifts[o])) > 0.3 * pitch for o in order):
+            order.append(int(h))
+        if len(order) == 2:
+            break
 
     best: tuple[int, float, np.ndarray, tuple[complex, complex, complex]] | None = None
     for h in order:
@@ -160,7 +166,7 @@ def match_points(
         pairs = np.empty((0, 2), dtype=int)
         for it in range(iterations):
             pred = _predict(z_exp, c, a, b, t, ref_radius)
-            g = max(gate, 0.45 * pitch * (1 - it / max(1, iterations - 1)))
+            g = max(gate, 0.45 * pitch * 0.75 ** it)  # shrink to the final gate in a few steps
             new_pairs = _mutual(tree_det, det, pred, g)
             if len(new_pairs) < 3:
                 break
