@@ -1,0 +1,64 @@
+"""Output contract (distortion.json, distortion_points.csv) and the plots."""
+
+from __future__ import annotations
+
+import csv
+import json
+
+import numpy as np
+import pytest
+
+from analysis.distortion import analyze_grid
+from analysis.distortion_plots import exaggeration_factor, write_distortion_plots
+from analysis.geometry import BrownConrady, CameraGeometry, collimator_directions, project
+from analysis.results_io import write_distortion_results
+
+NOMINAL = CameraGeometry(640, 512, 17.0, 25.0)
+
+
+@pytest.fixture(scope="module")
+def result():
+    X, Y = np.meshgrid((np.arange(15) - 7) * 12.0, (np.arange(11) - 5) * 12.0)
+    dirs = collimator_directions(np.column_stack([X.ravel(), Y.ravel()]), 500.0)
+    truth = NOMINAL.replace(cx=322.0, cy=254.0, distortion=BrownConrady(k1=-0.25, p1=2e-4))
+    meas = project(truth, dirs) + np.random.default_rng(0).normal(0, 0.02, (len(dirs), 2))
+    return analyze_grid(meas[5:], dirs, NOMINAL, sigma_px=0.02, spec={"max_distortion_percent": 3.0})
+
+
+def test_json_and_csv_contract(result, tmp_path):
+    jpath, cpath = write_distortion_results(result, tmp_path / "results")
+    doc = json.loads(jpath.read_text())
+    s, m = doc["summary"], doc["model"]
+    assert s["classification"] in ("barrel", "pincushion", "mustache", "none")
+    assert s["max_distortion_percent"] == pytest.approx(result.max_distortion_percent, rel=1e-12)
+    # Boresight offset = principal point - detector centre ((w-1)/2, (h-1)/2), (x, y).
+    assert s["boresight_offset_px"][0] == pytest.approx(m["cx_px"] - 319.5, abs=1e-9)
+    assert s["boresight_offset_px"][1] == pytest.approx(m["cy_px"] - 255.5, abs=1e-9)
+    # OpenCV order [k1, k2, p1, p2, k3] (calib3d documentation).
+    assert m["opencv_dist_coeffs"] == pytest.approx([m["k1"], m["k2"], m["p1"], m["p2"], m["k3"]])
+    assert m["k1"] == pytest.approx(-0.25, abs=4 * m["uncertainty"]["k1"])
+    for key in ("skew_deg",):
+        assert key in s
+    for key in ("fx_px", "fy_px", "cx_px", "cy_px", "k1", "k2", "k3", "p1", "p2"):
+        assert isinstance(m[key], float)
+    assert doc["verdicts"][0]["passed"] is True
+    rows = list(csv.DictReader(cpath.open()))
+    assert len(rows) == len(result.points) == 165
+    # The 5 points left out read as not measured, with empty measured columns.
+    assert sum(r["measured"] == "0" for r in rows) == 5
+    k = 100
+    assert float(rows[k]["distortion_percent"]) == pytest.approx(result.points.distortion_percent[k], rel=1e-5)
+    assert not list(tmp_path.joinpath("results").glob("*.tmp"))  # atomic: no temp files left
+
+
+def test_plots_written_with_readable_factor(result, tmp_path):
+    import matplotlib.image as mpimg
+
+    paths = write_distortion_plots(result, tmp_path / "plots")
+    for p in paths.values():
+        img = mpimg.imread(p)
+        assert img.shape[0] > 300 and img.shape[1] > 500
+    # Exaggeration: the longest vector drawn between 0.1 and 0.5 grid pitch (1-2-5 steps).
+    v = np.array([[3.0, 4.0], [0.1, 0.0]])
+    f = exaggeration_factor(v, 40.0)
+    assert 0.1 * 40 <= 5.0 * f <= 0.5 * 40
