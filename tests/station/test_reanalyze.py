@@ -110,7 +110,7 @@ def test_geometry_typo_exits_2_naming_file_and_line(grid_run: Path, tmp_path: Pa
     bad.write_text(text.replace("  pitch_mm:", "  pich_mm:"), encoding="utf-8")
     code = main(["analyze", "distortion", "--frame", str(grid_run / "frames" / "grid.avg.tif"),
                  "--geometry", str(bad), "--out", str(tmp_path / "out")])
-    out = capsys.readouterr().out.replace("\n", " ")
+    out = " ".join(capsys.readouterr().out.split())
     assert code == 2  # station/exitcodes.py INVALID
     assert f"typo.yaml:{line_no}:" in out
     assert "pich_mm" in out
@@ -160,3 +160,11 @@ def test_replayed_frames_give_the_same_results(grid_run: Path, recipe: Path,
     for key in MODEL_KEYS:
         assert again["model"][key] == pytest.approx(original["model"][key], abs=SAME), key
     assert again["summary"]["defect_labels"] == original["summary"]["defect_labels"]
+
+
+def test_not_a_run_folder_is_refused_clearly(tmp_path: Path,
+                                             capsys: pytest.CaptureFixture[str]) -> None:
+    with pytest.raises(ValueError, match="not a run folder"):
+        analyze_run_folder(tmp_path)
+    assert main(["analyze", "distortion", str(tmp_path / "nowhere")]) == 2  # exitcodes.INVALID
+    assert "no such folder" in " ".join(capsys.readouterr().out.split())
