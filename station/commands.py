@@ -10,6 +10,7 @@ from rich.console import Console
 from drivers.clock import SimClock
 from drivers.errors import InstrumentError
 from station import exitcodes
+from station.abort import OperatorRequests, abort_on_signals
 from station.manifest import Manifest
 from station.runner import (execute, format_duration, load_inputs, make_clock, new_run_folder,
                             plan_summary)
@@ -28,11 +29,13 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     run = new_run_folder(inputs, args.runs, clock)
     manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, args.seed))
     manifest.write(run.path)
-    with _console_for(console, args.plain) as live:
-        live.start(len(inputs.plan.steps), inputs.estimate.total_s)
-        outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
-    run.close()
-    manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
+    # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
+    with abort_on_signals(OperatorRequests()):
+        with _console_for(console, args.plain) as live:
+            live.start(len(inputs.plan.steps), inputs.estimate.total_s)
+            outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
+        run.close()
+        manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
     console.print(f"run folder: {run.path}", highlight=False, markup=False)
     return exitcodes.BY_STATE.get(outcome.state, exitcodes.FAULTED)

@@ -40,18 +40,18 @@ steps:
   - target: open
   - blackbody: {{mode: difference, value: 1.0, tolerance: 1.5, hold: 1, timeout: 60}}
   - capture: {{name: first, frames: {FIRST_FRAMES}, keep: both}}
-  - move: {{az: 20.0, el: -10.0}}
+  - move: {{az: 35.0, el: -25.0}}
   - capture: {{name: long, frames: 5000, keep: stack}}
 """
 
 
-def start_run(tmp_path: Path) -> tuple[subprocess.Popen, Path]:
+def start_run(tmp_path: Path, speed: float = 20.0) -> tuple[subprocess.Popen, Path]:
     recipe = tmp_path / "abort.yaml"
     recipe.write_text(RECIPE, encoding="utf-8")
     runs = tmp_path / "runs"
     proc = subprocess.Popen(
         [sys.executable, "-m", "station", "run", str(recipe), "--runs", str(runs), "--plain",
-         "--realtime", "20"], cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+         "--realtime", str(speed)], cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
         text=True)
     return proc, runs
 
@@ -120,7 +120,9 @@ def check_left_safe(folder: Path, output: str, returncode: int) -> list[dict]:
 @pytest.fixture(scope="module")
 def launched(tmp_path_factory: pytest.TempPathFactory) -> Iterator[dict[str, tuple[subprocess.Popen, Path]]]:
     """Both runs start together: most of a run's real time is Python importing, done in parallel."""
-    runs = {name: start_run(tmp_path_factory.mktemp(name)) for name in ("one", "two")}
+    # the second run is paced slower so parking (about 4 s simulated) outlasts the test's reaction
+    runs = {"one": start_run(tmp_path_factory.mktemp("one")),
+            "two": start_run(tmp_path_factory.mktemp("two"), speed=5.0)}
     yield runs
     for proc, _ in runs.values():
         if proc.poll() is None:
@@ -136,13 +138,24 @@ def test_sigint_mid_capture_leaves_bench_safe(launched) -> None:
     check_left_safe(folder, output, proc.returncode)
 
 
+def wait_for_safing(proc: subprocess.Popen, folder: Path, timeout_s: float = 30.0) -> None:
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline and proc.poll() is None:
+        if '"dest":"safing"' in (folder / "events.jsonl").read_text():
+            return
+        time.sleep(0.01)
+    pytest.fail("the run never reached safing")
+
+
 def test_second_sigint_does_not_skip_safing(launched) -> None:
     proc, runs = launched["two"]
     folder = wait_for_long_capture(proc, runs)
     os.kill(proc.pid, signal.SIGINT)
-    time.sleep(0.01)
+    wait_for_safing(proc, folder)
     os.kill(proc.pid, signal.SIGINT)
     output = finish(proc)
     events = check_left_safe(folder, output, proc.returncode)
-    texts = [e.get("text", "") for e in events if e["type"] == "log"]
-    assert any("received again" in t for t in texts), texts
+    again = [e["seq"] for e in events if e["type"] == "log" and "received again" in e["text"]]
+    assert len(again) == 1, output
+    parked = next(e["seq"] for e in events if e["type"] == "safing.stage")
+    assert again[0] < parked  # the second signal came during safing, which still finished
