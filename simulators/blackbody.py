@@ -64,6 +64,7 @@ class BlackbodyPhysics:
         self._seg = _Segment(self.t_start, float(start_c), "absolute", float(start_c))
         self.unsettled_from: float | None = None     # fault: never settles from this time
         self.runaway: tuple[float, float] | None = None  # fault: (from time, K/s) drift away
+        self.runaway_until: float | None = None  # fault: the drift ends (controller recovers)
 
     # --- setpoints --------------------------------------------------------------------------
     def reference_c(self, t: float | None = None) -> float:
@@ -124,7 +125,8 @@ class BlackbodyPhysics:
 
     def _fault_offset(self, t: float) -> float:
         offset = 0.0
-        if self.runaway is not None and t > self.runaway[0]:
+        if self.runaway is not None and t > self.runaway[0] and (
+                self.runaway_until is None or t < self.runaway_until):
             offset += self.runaway[1] * (t - self.runaway[0])
         if self.unsettled_from is not None and t > self.unsettled_from:
             # a controller hunting around its setpoint: 0.15 K, 40 s period

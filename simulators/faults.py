@@ -9,7 +9,7 @@ commands -> same failures. From a dict (the simulated station file's `faults:` s
       seed: 7
       blackbody:
         - {kind: timeout, at_command: 12}
-        - {kind: drift, after_s: 600, rate_k_per_s: 0.002}
+        - {kind: drift, after_s: 600, rate_k_per_s: 0.002}    # add duration_s: N to recover
       stage:
         - {kind: stall, at_command: 4, axis: az}
       grabber:

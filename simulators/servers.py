@@ -163,6 +163,8 @@ class BlackbodyProtocol(InstrumentProtocol):
         if rule is not None:
             bb.runaway = (_fault_time(rule, plan.t0, t), float(rule.params.get("rate_k_per_s",
                                                                                 0.002)))
+            duration = rule.params.get("duration_s")  # given: the drift stops and snaps back
+            bb.runaway_until = None if duration is None else bb.runaway[0] + float(duration)
 
     def restart(self) -> None:
         self.bench.blackbody.restart()
