@@ -1,0 +1,131 @@
+"""Bad input through `nightbench check`: exit code 2 and a message naming file, line and the fix.
+
+The recipe-level rules are tested in tests/sequences; here every case goes through the command
+line (station.cli.main, in process) against the built-in simulated station, so station limits,
+the wheel's slots and the stage's axes come from station/data/sim_station.yaml. The expected line
+of each case is found in the recipe text itself (the line holding the marker), and for YAML syntax
+errors from PyYAML, the reference parser.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+import yaml
+
+from station import exitcodes
+from station.cli import main
+from station.config import BUILTIN_DIR
+
+STATION = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
+BB_LIMITS = STATION["instruments"]["blackbody"]["limits"]
+AZ = STATION["instruments"]["stage"]["axes"]["az"]
+
+HEAD = "recipe: bad\nparameters:\n  frames: 4\nsteps:\n  - target: open\n"
+
+# (case id, recipe body after HEAD, marker on the offending line, expected message fragment)
+CASES = [
+    ("unknown-step", "  - captur: {name: flat, frames: 4}\n", "captur",
+     "unknown step 'captur'. did you mean 'capture'?"),
+    ("target-not-on-wheel", "  - target: crosshair\n", "crosshair",
+     "target 'crosshair' is not on the wheel. the wheel holds: blank, open, pinhole"),
+    ("difference-above-station-limit",
+     f"  - blackbody: {{mode: difference, value: {BB_LIMITS['max_difference_k'] + 15:g}}}\n",
+     "difference", f"blackbody difference {BB_LIMITS['max_difference_k'] + 15:g} K is outside the "
+     f"station's limits {BB_LIMITS['min_difference_k']:g} .. {BB_LIMITS['max_difference_k']:g} K"),
+    ("absolute-above-station-limit",
+     f"  - blackbody: {{mode: absolute, value: {BB_LIMITS['max_c'] + 20:g}}}\n", "absolute",
+     f"blackbody absolute {BB_LIMITS['max_c'] + 20:g} C is outside the station's limits "
+     f"{BB_LIMITS['min_c']:g} .. {BB_LIMITS['max_c']:g} C"),
+    ("stage-outside-soft-limits", f"  - move: {{az: {AZ['max'] + 10:g}, el: 0}}\n", "move",
+     f"az = {AZ['max'] + 10:g} is outside the soft limits {AZ['min']:g} .. {AZ['max']:g}"),
+    ("unknown-axis", "  - move: {roll: 1.0}\n", "roll", "the stage has no axis 'roll'"),
+    ("frames-wrong-type", "  - capture: {name: flat, frames: lots}\n", "lots",
+     "frames must be a whole number, not 'lots'"),
+    ("keep-unknown", "  - capture: {name: flat, frames: 4, keep: median}\n", "median",
+     "keep must be one of average, stack, both, not 'median'"),
+    ("unknown-reference", "  - capture: {name: flat, frames: \"${frame}\"}\n", "${frame}",
+     "unknown reference ${frame}"),
+    ("capture-used-before-defined",
+     "  - analyze: {analysis: sitf, captures: [flat]}\n  - capture: {name: flat, frames: 4}\n",
+     "analyze", "capture 'flat' is used before it is defined"),
+    ("unknown-analysis", "  - capture: {name: g, frames: 4}\n"
+     "  - analyze: {analysis: distorsion, captures: [g]}\n", "distorsion",
+     "unknown analysis 'distorsion'"),
+    ("timeout-shorter-than-hold",
+     "  - blackbody: {mode: difference, value: 2, hold: 60, timeout: 30}\n", "timeout",
+     "timeout 30 s is not longer than its hold time 60 s"),
+    ("duplicate-capture-name", "  - capture: {name: flat, frames: 4}\n"
+     "  - note: between\n  - capture: {name: flat, frames: 8}\n", "frames: 8",
+     "capture name 'flat' is already used"),
+    ("empty-sweep", "  - sweep:\n      over: d\n      values: []\n      steps:\n"
+     "        - note: never\n", "values", "sweep values must not be empty"),
+]
+
+
+def check(capsys: pytest.CaptureFixture, monkeypatch: pytest.MonkeyPatch,
+          *args: str) -> tuple[int, str]:
+    monkeypatch.setenv("COLUMNS", "400")  # rich wraps at 80 columns when not a terminal
+    code = main(["check", *args, "--no-connect"])
+    return code, capsys.readouterr().out
+
+
+@pytest.mark.parametrize("case, body, marker, fragment", CASES, ids=[c[0] for c in CASES])
+def test_bad_recipe_through_check(case, body, marker, fragment, tmp_path, capsys,
+                                  monkeypatch) -> None:
+    text = HEAD + body
+    path = tmp_path / f"{case}.yaml"
+    path.write_text(text, encoding="utf-8")
+    line = 1 + next(i for i, x in enumerate(text.splitlines()) if marker in x)
+    code, out = check(capsys, monkeypatch, str(path))
+    assert code == exitcodes.INVALID
+    matching = [x.strip() for x in out.splitlines() if fragment in x]
+    assert matching, out
+    assert matching[0].startswith(f"{path}:{line}:"), out
+    assert "check passed" not in out
+
+
+def test_yaml_syntax_error_line_from_pyyaml(tmp_path, capsys, monkeypatch) -> None:
+    text = HEAD + "  - capture: {name: flat, frames: 4\n  - note: after\n"
+    path = tmp_path / "syntax.yaml"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(yaml.MarkedYAMLError) as ref:  # PyYAML decides where the error is
+        yaml.safe_load(text)
+    code, out = check(capsys, monkeypatch, str(path))
+    assert code == exitcodes.INVALID
+    assert f"{path}:{ref.value.problem_mark.line + 1}:" in out and "YAML syntax error" in out
+
+
+def test_all_problems_of_a_file_reported_at_once(tmp_path, capsys, monkeypatch) -> None:
+    cases = CASES[:6]  # independent one-line mistakes
+    text = HEAD + "".join(c[1] for c in cases)
+    path = tmp_path / "many.yaml"
+    path.write_text(text, encoding="utf-8")
+    code, out = check(capsys, monkeypatch, str(path))
+    assert code == exitcodes.INVALID
+    for _, _, _, fragment in cases:
+        assert fragment in out
+
+
+def test_bad_station_file(tmp_path, capsys, monkeypatch) -> None:
+    station = tmp_path / "station.yaml"
+    station.write_text("station: half-written\ninstruments:\n  blackbody: {driver: nope}\n")
+    code, out = check(capsys, monkeypatch, "sitf-sweep", "--station", str(station))
+    assert code == exitcodes.INVALID
+    assert f"{station}:3:" in out and "unknown driver 'nope'" in out
+    assert f"{station}:1:1: missing 'collimator'" in out
+
+
+def test_unknown_recipe_name(capsys, monkeypatch) -> None:
+    code, out = check(capsys, monkeypatch, "no-such-recipe")
+    assert code == exitcodes.INVALID
+    assert "no recipe file 'no-such-recipe' and no built-in recipe of that name" in out
+    assert "sitf-sweep" in out  # lists what exists
+
+
+def test_override_of_undeclared_parameter(capsys, monkeypatch) -> None:
+    code, out = check(capsys, monkeypatch, "sitf-sweep", "--set", "frams=3")
+    assert code == exitcodes.INVALID
+    assert "override of 'frams': the recipe declares no such parameter" in out
+    assert "did you mean 'frames'?" in out
