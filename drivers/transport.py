@@ -13,6 +13,8 @@ from __future__ import annotations
 
 import logging
 import re
+import select
+import socket
 import threading
 from abc import ABC, abstractmethod
 from collections.abc import Callable, Mapping
@@ -236,11 +238,21 @@ class VisaTransport(Transport):
 
         if self._res is None:
             self._open_link()
+        problem = self._link_problem()
+        if problem is not None:
+            self._close_link()
+            raise self._dropped(command, problem)
         try:
             self._res.write(command)
             return self._res.read() if expect_reply else None
         except VisaIOError as exc:
             if exc.error_code == constants.StatusCode.error_timeout:
+                problem = self._link_problem()
+                if problem is not None:
+                    # pyvisa-py does not see EOF on a socket: its read spins to the timeout
+                    # and its clear() would loop forever on the dead socket.
+                    self._close_link()
+                    raise self._dropped(command, problem) from None
                 self._clear()
                 raise self._timeout(command) from None
             raise self._dropped(command, exc) from None
@@ -251,6 +263,27 @@ class VisaTransport(Transport):
             self._clear()
             raise InstrumentReplyError(self.instrument, f"reply is not text ({exc})",
                                        command) from None
+
+    def _link_problem(self) -> OSError | None:
+        """Why a raw TCP session (``::SOCKET``) is unusable: closed by the other end, refused,
+        reset; None when it looks healthy.
+
+        Peeks at the pyvisa-py session's socket without consuming data; other session kinds
+        (serial, GPIB, USB, VXI-11) report None and rely on their own errors.
+        """
+        try:
+            sock = self._rm.visalib.sessions[self._res.session].interface
+        except Exception:
+            return None
+        if not isinstance(sock, socket.socket):
+            return None
+        try:
+            readable, _, _ = select.select([sock], [], [], 0)
+            if readable and sock.recv(1, socket.MSG_PEEK) == b"":
+                return ConnectionResetError("connection closed by the instrument")
+        except (OSError, ValueError) as exc:
+            return exc if isinstance(exc, OSError) else OSError(str(exc))
+        return None
 
     def _clear(self) -> None:
         """Drop late or partial replies so they cannot answer the next query."""
