@@ -19,7 +19,7 @@ from typing import Any
 
 from drivers.errors import LimitError
 from drivers.interfaces import Blackbody, BlackbodyMode
-from drivers.scpi import ScpiDriver, SettingsError
+from drivers.scpi import ScpiDriver
 from drivers.transport import Transport
 
 _MODES: dict[str, BlackbodyMode] = {"ABS": "absolute", "DIFF": "difference"}
@@ -40,15 +40,15 @@ class ScpiBlackbody(ScpiDriver, Blackbody):
         super().__init__(transport, name=name, settings=settings)
         limits = self._setting("limits")
         if not isinstance(limits, Mapping):
-            raise SettingsError(f"{name}: limits must be a mapping")
+            raise self._fail("limits", "must be a mapping {min_c, max_c, min_difference_k, max_difference_k}")
         self.min_c = self._number(limits, "min_c", "limits")
         self.max_c = self._number(limits, "max_c", "limits")
         self.min_k = self._number(limits, "min_difference_k", "limits")
         self.max_k = self._number(limits, "max_difference_k", "limits")
-        self.safe_c = self._number(self.settings, "safe_c", "settings")
+        self.safe_c = self._number(self.settings, "safe_c", "")
         if not self.min_c <= self.safe_c <= self.max_c:
-            raise SettingsError(f"{name}: safe_c {self.safe_c} outside limits "
-                                f"{self.min_c}..{self.max_c} C")
+            raise self._fail("safe_c", f"{self.safe_c} C outside the limits "
+                                       f"{self.min_c}..{self.max_c} C")
 
     def set_mode(self, mode: BlackbodyMode) -> None:
         code = {v: k for k, v in _MODES.items()}.get(mode)

@@ -16,7 +16,13 @@ from drivers.transport import Transport
 
 
 class SettingsError(ValueError):
-    """Driver settings from the station file are missing or wrong."""
+    """Driver settings from the station file are missing or wrong; `path` is the dotted key
+    (e.g. `limits.min_c`) and `detail` the problem without the instrument name."""
+
+    def __init__(self, message: str, path: str = "", detail: str = "") -> None:
+        super().__init__(message)
+        self.path = path
+        self.detail = detail or message
 
 
 class InstrumentFault(InstrumentError):
@@ -94,17 +100,33 @@ class ScpiDriver:
         self.transport.close()
 
     # --- settings helpers -------------------------------------------------------------------
+    @classmethod
+    def validate_settings(cls, settings: Mapping[str, Any]) -> list[str]:
+        """Problems with station-file settings as `path: message` lines (empty when fine).
+
+        Constructors only read settings (no I/O), so building one without a transport checks
+        them exactly as a real connection would.
+        """
+        try:
+            cls(None, name=cls.KIND, settings=settings)  # type: ignore[arg-type]
+        except SettingsError as exc:
+            return [f"{exc.path}: {exc.detail}" if exc.path else exc.detail]
+        return []
+
+    def _fail(self, path: str, detail: str) -> SettingsError:
+        return SettingsError(f"{self.name}: {path}: {detail}", path, detail)
+
     def _setting(self, key: str) -> Any:
         if key not in self.settings:
-            raise SettingsError(f"{self.name}: setting '{key}' missing ({self.SETTINGS.get(key, '')})"
-                                f"; settings of this driver: {', '.join(self.SETTINGS)}")
+            raise self._fail(key, f"missing ({self.SETTINGS.get(key, '')}); settings of this "
+                                  f"driver: {', '.join(self.SETTINGS)}")
         return self.settings[key]
 
     def _number(self, mapping: Mapping[str, Any], key: str, where: str) -> float:
+        path = f"{where}.{key}" if where else key
         try:
             return float(mapping[key])
         except KeyError:
-            raise SettingsError(f"{self.name}: {where}.{key} missing") from None
+            raise self._fail(path, "missing") from None
         except (TypeError, ValueError):
-            raise SettingsError(f"{self.name}: {where}.{key} must be a number, "
-                                f"got {mapping[key]!r}") from None
+            raise self._fail(path, f"must be a number, got {mapping[key]!r}") from None

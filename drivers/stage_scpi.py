@@ -19,7 +19,7 @@ from typing import Any
 
 from drivers.errors import LimitError
 from drivers.interfaces import AxisLimits, MotionStage
-from drivers.scpi import InstrumentFault, ScpiDriver, SettingsError
+from drivers.scpi import InstrumentFault, ScpiDriver
 from drivers.transport import Transport
 
 
@@ -37,19 +37,19 @@ class ScpiStage(ScpiDriver, MotionStage):
         super().__init__(transport, name=name, settings=settings)
         axes = self._setting("axes")
         if not isinstance(axes, Mapping) or not axes:
-            raise SettingsError(f"{name}: axes must be a mapping of axis name to limits")
+            raise self._fail("axes", "must be a mapping of axis name to {min, max, park, unit}")
         self._limits: dict[str, AxisLimits] = {}
         for axis, spec in axes.items():
             if isinstance(spec, AxisLimits):
                 self._limits[str(axis)] = spec
                 continue
             if not isinstance(spec, Mapping):
-                raise SettingsError(f"{name}: axis '{axis}' needs {{min, max, park, unit}}")
+                raise self._fail(f"axes.{axis}", "needs {min, max, park, unit}")
             where = f"axes.{axis}"
             lo, hi = self._number(spec, "min", where), self._number(spec, "max", where)
-            park = float(spec.get("park", 0.0))
+            park = self._number(spec, "park", where) if "park" in spec else 0.0
             if not lo <= park <= hi:
-                raise SettingsError(f"{name}: {where}.park {park} outside {lo}..{hi}")
+                raise self._fail(f"{where}.park", f"{park} outside {lo}..{hi}")
             self._limits[str(axis)] = AxisLimits(lo, hi, park, str(spec.get("unit", "deg")))
 
     def axes(self) -> list[str]:

@@ -18,7 +18,7 @@ from typing import Any
 
 from drivers.errors import LimitError
 from drivers.interfaces import TargetWheel
-from drivers.scpi import ScpiDriver, SettingsError
+from drivers.scpi import ScpiDriver
 from drivers.transport import Transport
 
 
@@ -36,13 +36,13 @@ class ScpiWheel(ScpiDriver, TargetWheel):
         super().__init__(transport, name=name, settings=settings)
         slots = self._setting("slots")
         if not isinstance(slots, Mapping):
-            raise SettingsError(f"{name}: slots must be a mapping of slot number to name")
+            raise self._fail("slots", "must be a mapping of slot number to name")
         self._names: dict[int, str] = {}
         for key, spec in slots.items():
             try:
                 number = int(key)
             except (TypeError, ValueError):
-                raise SettingsError(f"{name}: slot '{key}' is not a slot number") from None
+                raise self._fail(f"slots.{key}", "is not a slot number") from None
             label = spec.get("name") if isinstance(spec, Mapping) else spec
             self._names[number] = str(label if label is not None else f"slot{number}")
         self._count: int | None = None

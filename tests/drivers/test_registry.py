@@ -49,3 +49,19 @@ def test_parse_resource_serial_settings_and_refusals():
             parse_resource(bad)
     with pytest.raises(ResourceStringError, match="accepted forms"):
         parse_resource("blackbody-1")
+
+
+def test_drivers_validate_their_station_settings_without_a_connection():
+    from drivers.stage_scpi import ScpiStage
+    from drivers.wheel_scpi import ScpiWheel
+
+    good = {"limits": {"min_c": 0, "max_c": 100, "min_difference_k": -20,
+                       "max_difference_k": 60}, "safe_c": 22}
+    assert ScpiBlackbody.validate_settings(good) == []
+    bad = {**good, "safe_c": 150}
+    assert ScpiBlackbody.validate_settings(bad) == ["safe_c: 150.0 C outside the limits "
+                                                    "0.0..100.0 C"]
+    assert ScpiStage.validate_settings({"axes": {"az": {"min": -5, "max": 5, "park": 9}}}) == [
+        "axes.az.park: 9.0 outside -5.0..5.0"]
+    assert ScpiWheel.validate_settings({"slots": {"one": "open"}}) == [
+        "slots.one: is not a slot number"]
