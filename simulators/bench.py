@@ -81,6 +81,8 @@ class SimBench:
             raise ValueError(f"simulation: {exc}") from None
         if isinstance(faults, FaultPlan):
             plan = faults
+            if plan.t0 is None:
+                plan.t0 = clock.now()
         else:
             plan = FaultPlan.from_mapping(faults if faults is not None else d.get("faults"),
                                           seed=seed, t0=clock.now())

@@ -72,10 +72,14 @@ class FaultEvent:
 
 
 class FaultPlan:
-    """Rules plus a seeded generator; thread-safe (servers run one thread per connection)."""
+    """Rules plus a seeded generator; thread-safe (servers run one thread per connection).
+
+    `t0` is the clock time `after_s` counts from; left None, the simulated bench sets it to
+    its own start time when the plan is handed to it.
+    """
 
     def __init__(self, rules: list[FaultRule] | None = None, *, seed: int = 0,
-                 t0: float = 0.0) -> None:
+                 t0: float | None = None) -> None:
         self.rules: list[FaultRule] = list(rules or [])
         self.seed = seed
         self.t0 = t0
@@ -84,7 +88,7 @@ class FaultPlan:
         self.fired: list[FaultEvent] = []
 
     @classmethod
-    def from_mapping(cls, d: Mapping[str, Any] | None, *, seed: int = 0, t0: float = 0.0,
+    def from_mapping(cls, d: Mapping[str, Any] | None, *, seed: int = 0, t0: float | None = None,
                      kinds: Mapping[str, str] | None = None) -> FaultPlan:
         """Build from a station-file mapping. `kinds` maps instrument name -> instrument kind
         (defaults: the name is the kind) so rules are checked against what the instrument is."""
@@ -113,6 +117,10 @@ class FaultPlan:
                     raise ValueError(f"{where}: {exc}") from None
         return cls(rules, seed=seed, t0=t0)
 
+    def start(self) -> float:
+        """Clock time that `after_s` triggers count from (0 until a bench binds the plan)."""
+        return 0.0 if self.t0 is None else self.t0
+
     def add(self, instrument: str, kind: str, **trigger: Any) -> FaultRule:
         """Add a rule from a test: `plan.add("wheel", "timeout", at_command=3)`."""
         params = trigger.pop("params", {})
@@ -135,7 +143,7 @@ class FaultPlan:
                 if rule.at_command is not None:
                     hit = count is not None and count >= rule.at_command
                 elif rule.after_s is not None:
-                    hit = t is not None and t - self.t0 >= rule.after_s
+                    hit = t is not None and t - self.start() >= rule.after_s
                 else:
                     hit = self._rng.random() < (rule.probability or 0.0)
                 if hit:

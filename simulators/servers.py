@@ -158,10 +158,10 @@ class BlackbodyProtocol(InstrumentProtocol):
         plan, bb = self.bench.faults, self.bench.blackbody
         rule = plan.fire(self.name, "unsettled", count=self.count, t=t)
         if rule is not None:
-            bb.unsettled_from = _fault_time(rule, plan.t0, t)
+            bb.unsettled_from = _fault_time(rule, plan.start(), t)
         rule = plan.fire(self.name, "drift", count=self.count, t=t)
         if rule is not None:
-            bb.runaway = (_fault_time(rule, plan.t0, t), float(rule.params.get("rate_k_per_s",
+            bb.runaway = (_fault_time(rule, plan.start(), t), float(rule.params.get("rate_k_per_s",
                                                                                 0.002)))
             duration = rule.params.get("duration_s")  # given: the drift stops and snaps back
             bb.runaway_until = None if duration is None else bb.runaway[0] + float(duration)

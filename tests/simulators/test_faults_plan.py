@@ -66,3 +66,16 @@ def test_physics_faults_through_the_protocol_handlers():
     bench.faults.add("blackbody", "garbled", at_command=bb.count + 1)
     raw = bb("*IDN?").raw
     assert raw.endswith(b"\n") and all(c >= 0x80 for c in raw[:-1])
+
+
+def test_a_plan_handed_to_the_bench_counts_time_from_the_bench_start():
+    clock = SimClock()
+    plan = FaultPlan(seed=2)
+    plan.add("blackbody", "drift", after_s=30.0, params={"rate_k_per_s": 0.01})
+    bench = SimBench.from_mapping({"blackbody": {"noise_mk": 0.0}}, clock, faults=plan)
+    assert plan.t0 == clock.now()
+    bb = BlackbodyProtocol(bench)
+    clock.sleep(20.0)
+    assert float(bb("MEAS:TEMP?").text) == pytest.approx(22.0, abs=1e-4)
+    clock.sleep(30.0)  # drifting since t = 30 s at 10 mK/s -> +0.2 K at t = 50 s
+    assert float(bb("MEAS:TEMP?").text) == pytest.approx(22.2, abs=1e-4)
