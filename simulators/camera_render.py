@@ -142,6 +142,7 @@ class CameraRenderer:
         self.sigma_map = sigma.reshape(self.shape)
         self._uniform_sigma = n_noisy == 0
         self._cache: OrderedDict[SceneState, np.ndarray] = OrderedDict()
+        self._patterns: OrderedDict[tuple, np.ndarray] = OrderedDict()
         self._cache_size = max(1, cache_size)
 
     # --- truth -------------------------------------------------------------------------------
@@ -165,19 +166,38 @@ class CameraRenderer:
 
     # --- images ------------------------------------------------------------------------------
     def render_clean(self, scene: SceneState) -> np.ndarray:
-        """Noise-free mean signal (counts, float64) of an ideal camera: no FPN, no bad pixels."""
+        """Noise-free mean signal (counts, float64) of an ideal camera: no FPN, no bad pixels.
+
+        The signal is linear in radiance: plate radiance everywhere plus the source-minus-plate
+        contrast times the fraction of each pixel that sees the source (the pattern). The pattern
+        depends on geometry only, so it is cached and temperatures may change every frame.
+        """
         tr = self.truth
         l_src, l_plate = self.radiances(scene)
         r = tr.responsivity_counts_per_radiance
+        return tr.offset_counts + r * (l_plate + (l_src - l_plate) * self.source_fraction(scene))
+
+    def source_fraction(self, scene: SceneState) -> np.ndarray:
+        """Fraction of each pixel's signal that comes from the source (0 plate .. 1 source)."""
         target = scene.target
+        key = (target, scene.az_deg, scene.el_deg, scene.collimator_focal_mm)
+        cached = self._patterns.get(key)
+        if cached is not None:
+            self._patterns.move_to_end(key)
+            return cached
         if isinstance(target, OpenAperture):
-            return np.full(self.shape, tr.offset_counts + r * l_src)
-        img = np.full(self.shape, tr.offset_counts + r * l_plate)
-        if isinstance(target, (PinholeGrid, SinglePinhole)):
-            self._add_pinholes(img, scene, target, r * (l_src - l_plate))
+            pattern = np.ones(self.shape)
         elif isinstance(target, SlantedEdge):
-            img += r * (l_src - l_plate) * self._edge_fraction(scene, target)
-        return img
+            pattern = self._edge_fraction(scene, target)
+        else:
+            pattern = np.zeros(self.shape)
+            if isinstance(target, (PinholeGrid, SinglePinhole)):
+                self._add_pinholes(pattern, scene, target, 1.0)
+        pattern.setflags(write=False)
+        self._patterns[key] = pattern
+        if len(self._patterns) > self._cache_size:
+            self._patterns.popitem(last=False)
+        return pattern
 
     def _add_pinholes(self, img: np.ndarray, scene: SceneState,
                       target: PinholeGrid | SinglePinhole, delta_counts: float) -> None:

@@ -136,4 +136,4 @@ def test_overnight_soak_is_at_least_eight_hours(facts, timing) -> None:
     # The benchmark recipe must represent a real overnight run (issue requirement: >= 8 h).
     est = estimate(expand(load_recipe(find_recipe("overnight-soak"), facts=facts)), timing)
     assert est.total_s >= 8 * 3600
-    assert est.frames == 5 * 63 * 16
+    assert est.frames == 5 * 64 + 21 * 11 * 8   # five flat fields, then the field scan
