@@ -174,3 +174,31 @@ def write_distortion_results(result: DistortionResult, folder: str | os.PathLike
     d = Path(folder)
     return (write_distortion_json(result, d / "distortion.json"),
             write_distortion_points_csv(result, d / "distortion_points.csv"))
+
+
+def write_undistortion_map(result: DistortionResult, folder: str | os.PathLike[str]) -> Path:
+    """Write undistortion_map.tif: two float32 pages, map_x then map_y, (rows, cols) each.
+
+    For every pixel of the corrected image they give the column and row to sample in the frame,
+    as cv2.remap(frame, map_x, map_y, cv2.INTER_LINEAR) expects; analysis.undistort does the same
+    without OpenCV. Built from the fitted model (analysis.undistort.undistortion_maps).
+    """
+    import tifffile
+
+    from analysis.undistort import undistortion_maps
+
+    map_x, map_y = undistortion_maps(result.model.geometry)
+    path = Path(folder) / "undistortion_map.tif"
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".undistortion_map.", suffix=".tmp")
+    os.close(fd)
+    try:
+        tifffile.imwrite(tmp, np.stack([map_x, map_y]).astype(np.float32),
+                         metadata={"axes": "QYX", "pages": "map_x, map_y"})
+        with open(tmp, "rb") as fh:
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+    return path

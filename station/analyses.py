@@ -14,7 +14,8 @@ import numpy as np
 
 from analysis.distortion import _SPEC_KEYS as DISTORTION_SPEC_KEYS
 from analysis.distortion_frames import distortion_from_grid_frame, distortion_from_scan_frames
-from analysis.results_io import distortion_summary, write_distortion_results
+from analysis.results_io import (distortion_summary, write_distortion_results,
+                                 write_undistortion_map)
 from analysis.sitf import central_mean, fit_sitf, netd
 from analysis.targets import PinholeGrid, SinglePinhole
 from analysis.uniformity import uniformity
@@ -79,6 +80,7 @@ def run_distortion(step: Any, ctx: Any) -> dict[str, Any]:
     out = options.get("results_dir")
     results_dir = ctx.run.results_dir if out is None else out
     _register_all(ctx.run, write_distortion_results(result, results_dir))
+    ctx.run.register(write_undistortion_map(result, results_dir))
     from analysis.distortion_plots import write_distortion_plots  # matplotlib: load on use
 
     _register_all(ctx.run, write_distortion_plots(result, ctx.run.plots_dir))

@@ -16,10 +16,11 @@ from station.runner import (execute, format_duration, load_inputs, make_clock, n
                             plan_summary)
 
 
-def _console_for(console: Console, plain: bool):
+def _console_for(console: Console, plain: bool, clock=None):
+    """The live display (plain lines when not a terminal); times in the run's clock."""
     from station.console import RunConsole
 
-    return RunConsole(console, plain=True if plain else None)
+    return RunConsole(console, plain=True if plain else None, clock=clock)
 
 
 def cmd_run(args: argparse.Namespace, console: Console) -> int:
@@ -31,7 +32,7 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     manifest.write(run.path)
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
     with abort_on_signals(OperatorRequests()):
-        with _console_for(console, args.plain) as live:
+        with _console_for(console, args.plain, clock) as live:
             live.start(len(inputs.plan.steps), inputs.estimate.total_s)
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
         run.close()

@@ -19,7 +19,8 @@ import tifffile
 
 from analysis.distortion_frames import distortion_from_grid_frame
 from analysis.distortion_plots import write_distortion_plots
-from analysis.results_io import distortion_summary, write_distortion_results
+from analysis.results_io import (distortion_summary, write_distortion_results,
+                                 write_undistortion_map)
 from analysis.targets import PinholeGrid
 from sequences.plan import expand
 from sequences.recipe import load_recipe
@@ -189,6 +190,7 @@ def analyze_frame_file(frame: str | Path, geometry: str | Path,
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     write_distortion_results(result, out)
+    write_undistortion_map(result, out)
     write_distortion_plots(result, out)
     written = distortion_summary(result)
     return _short(written["summary"], written["model"])

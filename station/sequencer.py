@@ -7,6 +7,7 @@ a resumed run skips them and first brings the bench back to the state the next s
 
 from __future__ import annotations
 
+import time
 import traceback
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -20,6 +21,7 @@ from station.steps import STEP_HANDLERS, StepContext, StepHandler
 from station.waiting import StepFailed
 
 RESTORE_KINDS = ("blackbody", "target", "move")
+READINGS_REFRESH_S = 1.0  # real seconds between console readings while a step waits
 
 
 class PreflightFailed(Exception):
@@ -58,11 +60,20 @@ class Sequencer:
         build_machine(self.status)
         ctx.hold = self._hold
         ctx.release = self._release
+        ctx.tick = self._refresh_readings
+        self._last_refresh = 0.0
         self.steps_done = len(self.completed)
 
     def _on_transition(self, source: str, dest: str, trigger: str, cause: str) -> None:
         self.ctx.emit("state", source=source, dest=dest, trigger=trigger, cause=cause)
         self.console.state(dest, cause)
+
+    def _refresh_readings(self) -> None:
+        """Show live readings during long waits; throttled on real time (it is for a person)."""
+        now = time.monotonic()
+        if now - self._last_refresh >= READINGS_REFRESH_S:
+            self._last_refresh = now
+            self.console.readings(self.ctx.bench.readings())
 
     def _hold(self, cause: str) -> None:
         self.status.guard_failed(cause=cause)

@@ -58,6 +58,7 @@ class StepContext:
     last_counter: int | None = None  # last accepted frame counter, across captures (repeats)
     analyses: Mapping[str, Callable[..., dict]] = field(default_factory=dict)
     poll_s: float = POLL_S
+    tick: Callable[[], None] = lambda: None  # live-readings refresh while waiting
 
 
 def run_blackbody(step: Any, ctx: StepContext) -> dict:
@@ -74,7 +75,8 @@ def run_blackbody(step: Any, ctx: StepContext) -> dict:
                                 float(p["timeout"]))
     guard = BlackbodyGuard(mode, criterion)
     reading = wait_settled(ctx.clock, ctx.requests, lambda: guard.reading(ctx.bench), criterion,
-                           poll_s=ctx.poll_s, what=f"blackbody ({mode} {value:g})")
+                           poll_s=ctx.poll_s, what=f"blackbody ({mode} {value:g})",
+                           on_poll=ctx.tick)
     ctx.guard = guard
     ctx.emit("blackbody.settled", step=step.id, mode=mode, setpoint=value, reading=reading)
     return {"mode": mode, "setpoint": value, "reading": reading}
@@ -85,7 +87,8 @@ def run_target(step: Any, ctx: StepContext) -> dict:
     wheel = ctx.bench.wheel
     slot = wheel.select(name)
     wait_until(ctx.clock, ctx.requests, lambda: not wheel.is_moving(),
-               timeout_s=WHEEL_TIMEOUT_S, poll_s=ctx.poll_s / 4, what=f"target wheel to {name}")
+               timeout_s=WHEEL_TIMEOUT_S, poll_s=ctx.poll_s / 4, what=f"target wheel to {name}",
+               on_poll=ctx.tick)
     arrived = wheel.current_slot()
     if arrived != slot:
         raise StepFailed(f"target wheel reports slot {arrived} after moving to slot {slot} "
@@ -99,7 +102,8 @@ def run_move(step: Any, ctx: StepContext) -> dict:
     stage = ctx.bench.stage
     stage.move_to(targets)
     wait_until(ctx.clock, ctx.requests, lambda: not stage.is_moving(),
-               timeout_s=STAGE_TIMEOUT_S, poll_s=ctx.poll_s / 4, what="stage move")
+               timeout_s=STAGE_TIMEOUT_S, poll_s=ctx.poll_s / 4, what="stage move",
+               on_poll=ctx.tick)
     reached = {a: stage.position(a) for a in targets}
     for axis, want in targets.items():
         if abs(reached[axis] - want) > STAGE_POSITION_TOLERANCE:
@@ -136,7 +140,8 @@ def _wait_for_guard(ctx: StepContext, step_id: str, value: float | None) -> None
              f"{ctx.guard.criterion.target:g} ± {ctx.guard.criterion.tolerance:g}")
     ctx.hold(cause)
     wait_settled(ctx.clock, ctx.requests, lambda: ctx.guard.reading(ctx.bench),  # type: ignore
-                 ctx.guard.criterion, poll_s=ctx.poll_s, what="blackbody (guard)")
+                 ctx.guard.criterion, poll_s=ctx.poll_s, what="blackbody (guard)",
+                 on_poll=ctx.tick)
     ctx.release("blackbody back within tolerance")
 
 

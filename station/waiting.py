@@ -27,24 +27,33 @@ class SettleCriterion:
 
 
 def wait_until(clock: Clock, requests: OperatorRequests, done: Callable[[], bool], *,
-               timeout_s: float, poll_s: float, what: str) -> None:
-    """Poll `done` until it is true; StepFailed after `timeout_s` of clock time."""
+               timeout_s: float, poll_s: float, what: str,
+               on_poll: Callable[[], None] | None = None) -> None:
+    """Poll `done` until it is true; StepFailed after `timeout_s` of clock time.
+
+    `on_poll` runs at every poll (the console uses it to show live readings while waiting).
+    """
     start = clock.now()
     while not done():
         requests.check()
+        if on_poll is not None:
+            on_poll()
         if clock.now() - start >= timeout_s:
             raise StepFailed(f"{what} did not finish within {timeout_s:g} s")
         clock.sleep(poll_s)
 
 
 def wait_settled(clock: Clock, requests: OperatorRequests, read: Callable[[], float],
-                 criterion: SettleCriterion, *, poll_s: float, what: str) -> float:
+                 criterion: SettleCriterion, *, poll_s: float, what: str,
+                 on_poll: Callable[[], None] | None = None) -> float:
     """Wait until `read()` stays within tolerance for the hold time; returns the last reading."""
     start = clock.now()
     inside_since: float | None = None
     value = read()
     while True:
         requests.check()
+        if on_poll is not None:
+            on_poll()
         now = clock.now()
         if criterion.within(value):
             inside_since = now if inside_since is None else inside_since

@@ -62,3 +62,24 @@ def test_plots_written_with_readable_factor(result, tmp_path):
     v = np.array([[3.0, 4.0], [0.1, 0.0]])
     f = exaggeration_factor(v, 40.0)
     assert 0.1 * 40 <= 5.0 * f <= 0.5 * 40
+
+
+def test_undistortion_map_file_matches_opencv(result, tmp_path):
+    # The exported map must be what OpenCV builds from the same fitted K and coefficients
+    # (cv2.initUndistortRectifyMap, calib3d documentation), so a user can cv2.remap with it.
+    # The fit includes a small skew term OpenCV's K ignores, so compare where skew shifts < 0.01 px.
+    import cv2
+    import tifffile
+
+    from analysis.results_io import write_undistortion_map
+
+    path = write_undistortion_map(result, tmp_path)
+    map_x, map_y = tifffile.imread(path)
+    g = result.model.geometry.replace(skew_deg=0.0)
+    k = np.array([[g.fx, 0, g.principal_point[0]], [0, g.fy, g.principal_point[1]], [0, 0, 1]])
+    ref_x, ref_y = cv2.initUndistortRectifyMap(k, g.distortion.as_opencv(), None, k,
+                                               (g.width, g.height), cv2.CV_32FC1)
+    skew_px = abs(np.tan(np.radians(result.model.geometry.skew_deg))) * g.height * 2
+    assert map_x.shape == (512, 640) and map_y.shape == (512, 640)
+    assert np.max(np.abs(map_x - ref_x)) < 2e-3 + skew_px
+    assert np.max(np.abs(map_y - ref_y)) < 2e-3
