@@ -26,6 +26,7 @@ from typing import Any
 
 from drivers.clock import Clock, RealClock, SimClock
 from station.atomic import sha256_file
+from station.events import read_events
 from station.journal import JournalError
 from station.manifest import RUNNING, Manifest, ManifestError, load_manifest
 from station.runfolder import RunFolder, RunFolderError
@@ -136,6 +137,14 @@ def _refuse_if_running_elsewhere(manifest: Manifest, path: Path, force: bool) ->
                         "for it), or pass --force if that process is not nightbench.")
 
 
+def first_identities(run: RunFolder) -> dict[str, str]:
+    """The instruments' identities as the run's first preflight recorded them."""
+    found: dict[str, str] = {}
+    for event in read_events(run.events_path, "preflight.identity"):
+        found.setdefault(str(event.get("instrument")), str(event.get("identity")))
+    return found
+
+
 def last_clock_time(run: RunFolder, manifest: Manifest) -> float:
     """The latest clock time the run folder records (end of the event log, else the manifest)."""
     best = max(float(manifest.start_clock), float(manifest.end_clock or 0.0))
@@ -221,7 +230,8 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
         live.log("info", f"resuming: {note}")
         live.start(len(inputs.plan.steps), remaining_s)
         outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
-                          fault_plan=fault_plan, manifest=manifest)
+                          fault_plan=fault_plan, manifest=manifest,
+                          expected_identities=None if force else first_identities(run))
     run.close()
     manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock)
     return outcome.state, outcome.cause, run_path

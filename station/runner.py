@@ -75,13 +75,20 @@ def plan_bytes(inputs: Inputs) -> int:
     return int(inputs.estimate.bytes)
 
 
-def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: Any) -> None:
-    """Before anything moves: instruments answer, setpoints within limits, disk is enough."""
+def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: Any,
+              expected_identities: Mapping[str, str] | None = None) -> None:
+    """Before anything moves: instruments answer (the same ones, when resuming), setpoints
+    within limits, disk is enough."""
     for role, inst in bench.instruments().items():
         try:
             identity = inst.identify()
         except InstrumentError as exc:
             raise PreflightFailed(f"{role} does not answer: {exc}") from exc
+        expected = (expected_identities or {}).get(role)
+        if expected is not None and expected != identity:
+            raise PreflightFailed(f"{role} is not the instrument this run started with (was "
+                                  f"{expected!r}, now {identity!r}); reconnect the original, or "
+                                  "resume with --force if the replacement is intended")
         bench.identities[role] = identity
         emit("preflight.identity", instrument=role, identity=identity)
     limits = inputs.station.blackbody_limits
@@ -131,7 +138,8 @@ class RunResult:
 
 def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
             completed: Mapping[str, Any] | None = None, fault_plan: Any = None,
-            manifest: Any = None) -> RunOutcome:
+            manifest: Any = None,
+            expected_identities: Mapping[str, str] | None = None) -> RunOutcome:
     """Open the bench and run the plan into `run` (a RunFolder). Always leaves the bench safe."""
     requests = OperatorRequests()
     emit = run.events.emit
@@ -153,7 +161,8 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
                                   release=hold, analyses=ANALYSES)
                 sequencer = Sequencer(
                     inputs.plan, ctx, journal=run.journal, console=console,
-                    preflight=lambda: preflight(inputs, bench, run.path, emit, console),
+                    preflight=lambda: preflight(inputs, bench, run.path, emit, console,
+                                                expected_identities),
                     completed=completed)
                 outcome = sequencer.execute()
                 if manifest is not None:

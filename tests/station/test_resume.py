@@ -127,3 +127,27 @@ def test_changed_recipe_is_refused_unless_forced(copy_of: Path) -> None:
 def test_not_a_run_folder_is_refused(tmp_path: Path) -> None:
     with pytest.raises(ResumeRefused, match="not a run folder"):
         resume_run(tmp_path, console=_console())
+
+
+def test_preflight_refuses_a_swapped_instrument_on_resume(tmp_path):
+    # Resume must talk to the same instruments the run started with: a different identity
+    # string (*IDN?, IEEE 488.2 common command) stops preflight before anything moves.
+    from drivers.clock import SimClock
+    from station.bench import open_bench
+    from station.runner import load_inputs, preflight
+    from station.sequencer import PreflightFailed
+
+    inputs = load_inputs("distortion-grid", station_path=None, uut_path=None, overrides={})
+    logged: list[tuple] = []
+
+    class Quiet:
+        def log(self, *args):
+            logged.append(args)
+
+    with open_bench(inputs.station, SimClock()) as bench:
+        same = {r: i.identify() for r, i in bench.instruments().items()}
+        preflight(inputs, bench, tmp_path, lambda *a, **k: None, Quiet(), same)
+        swapped = {**same, "blackbody": "Other maker,BB-9,0001,2.0"}
+        with pytest.raises(PreflightFailed, match="blackbody is not the instrument this run "
+                           "started with"):
+            preflight(inputs, bench, tmp_path, lambda *a, **k: None, Quiet(), swapped)
