@@ -63,6 +63,7 @@ class Sequencer:
         ctx.tick = self._refresh_readings
         self._last_refresh = 0.0
         self.steps_done = len(self.completed)
+        self.current_step: Any = None
 
     def _on_transition(self, source: str, dest: str, trigger: str, cause: str) -> None:
         self.ctx.emit("state", source=source, dest=dest, trigger=trigger, cause=cause)
@@ -112,6 +113,7 @@ class Sequencer:
                 continue
             self._pause_point()
             self.ctx.requests.check()
+            self.current_step = step
             self.console.step(index, step.id, describe(step))
             self.ctx.emit("step.start", step=step.id, kind=step.kind, index=index, total=total)
             result = self.handlers[step.kind](step, self.ctx)
@@ -119,6 +121,7 @@ class Sequencer:
             self.steps_done += 1
             self.ctx.emit("step.done", step=step.id, kind=step.kind, result=result)
             self.console.readings(self.ctx.bench.readings())
+        self.current_step = None
 
     def _restore_bench(self) -> None:
         """On resume, redo the last blackbody, target and move steps before the first open step."""
@@ -137,6 +140,11 @@ class Sequencer:
                 self.console.log("info", f"resume: restoring bench state from {step.id}")
                 self.handlers[kind](step, self.ctx)
 
+    @staticmethod
+    def plan_source(step: Any) -> str:
+        where = getattr(step, "source", None)
+        return f"recipe line {where.line}" if where is not None else "recipe"
+
     def _pause_point(self) -> None:
         if not self.ctx.requests.pause_requested:
             return
@@ -147,6 +155,9 @@ class Sequencer:
         self.status.operator_resume(cause="operator resume")
 
     def _finish_badly(self, kind: str, cause: str) -> RunOutcome:
+        step = self.current_step
+        if step is not None:  # say which step, so the operator knows where it stopped
+            cause = f"step {step.id} ({step.kind}, {self.plan_source(step)}): {cause}"
         if kind == "abort":
             self.status.request_abort(cause=cause)
         else:
