@@ -12,7 +12,8 @@ from drivers.errors import InstrumentError
 from station import exitcodes
 from station.abort import OperatorRequests, abort_on_signals
 from station.manifest import Manifest
-from station.runner import (execute, format_duration, load_inputs, make_clock, new_run_folder,
+from station.console import format_duration
+from station.runner import (execute, load_inputs, make_clock, new_run_folder,
                             plan_summary)
 
 

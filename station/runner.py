@@ -6,7 +6,6 @@ This is the glue the command line calls. Everything it needs is passed in explic
 from __future__ import annotations
 
 import datetime as dt
-import shutil
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -22,6 +21,7 @@ from station.abort import OperatorRequests, abort_on_signals
 from station.analyses import ANALYSES
 from station.atomic import check_free_space
 from station.bench import Bench, open_bench
+from station.console import format_duration
 from station.config import BUILTIN_DIR, StationConfig, load_station
 from station.sequencer import PreflightFailed, RunOutcome, Sequencer
 from station.steps import StepContext
@@ -71,10 +71,6 @@ def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
     return SimClock()
 
 
-def plan_bytes(inputs: Inputs) -> int:
-    return int(inputs.estimate.bytes)
-
-
 def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: Any,
               expected_identities: Mapping[str, str] | None = None) -> None:
     """Before anything moves: instruments answer (the same ones, when resuming), setpoints
@@ -106,10 +102,10 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
                     raise PreflightFailed(f"{step.id}: stage {axis}={value} outside the soft "
                                           "limits")
     try:
-        check_free_space(run_dir, plan_bytes(inputs), DISK_MARGIN_BYTES)
+        check_free_space(run_dir, int(inputs.estimate.bytes), DISK_MARGIN_BYTES)
     except OSError as exc:
         raise PreflightFailed(str(exc)) from exc
-    emit("preflight.passed", estimate_s=inputs.estimate.total_s, bytes=plan_bytes(inputs),
+    emit("preflight.passed", estimate_s=inputs.estimate.total_s, bytes=int(inputs.estimate.bytes),
          frames=inputs.estimate.frames)
     console.log("info", f"preflight passed: {len(inputs.plan.steps)} steps, "
                 f"{inputs.estimate.frames} frames, estimated {format_duration(inputs.estimate.total_s)}")
@@ -121,19 +117,6 @@ def plan_summary(inputs: Inputs, seed: int) -> dict[str, Any]:
             "uut_serial": inputs.uut.serial, "overrides": dict(inputs.overrides), "seed": seed,
             "steps": len(inputs.plan.steps), "frames": inputs.estimate.frames,
             "estimate_s": inputs.estimate.total_s, "simulated": inputs.station.simulated}
-
-
-def format_duration(seconds: float) -> str:
-    seconds = int(round(seconds))
-    h, rem = divmod(seconds, 3600)
-    m, s = divmod(rem, 60)
-    return f"{h}h{m:02d}m{s:02d}s" if h else f"{m}m{s:02d}s"
-
-
-@dataclass
-class RunResult:
-    outcome: RunOutcome
-    run_dir: Path
 
 
 def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
@@ -148,17 +131,14 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
         emit("log", level=level, text=text)
         console.log(level, text)
 
-    def hold(cause: str) -> None:  # replaced by the sequencer
-        raise RuntimeError(cause)
-
     with abort_on_signals(requests, notify=lambda m: log("warning", m)):
         try:
             with open_bench(inputs.station, clock, events=io_sink(run.events),
                             frame_rate_hz=inputs.uut.frame_rate_hz, seed=seed,
                             fault_plan=fault_plan) as bench:
                 ctx = StepContext(bench=bench, station=inputs.station, uut=inputs.uut, run=run,
-                                  clock=clock, requests=requests, emit=emit, log=log, hold=hold,
-                                  release=hold, analyses=ANALYSES)
+                                  clock=clock, requests=requests, emit=emit, log=log,
+                                  analyses=ANALYSES)
                 sequencer = Sequencer(
                     inputs.plan, ctx, journal=run.journal, console=console,
                     preflight=lambda: preflight(inputs, bench, run.path, emit, console,
@@ -192,8 +172,3 @@ def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> Any:
                            recipe_name=inputs.plan.recipe, utc=utc, clock=clock)
     run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path, recipe=inputs.recipe_path)
     return run
-
-
-def copy_file(src: Path, dst: Path) -> None:
-    dst.parent.mkdir(parents=True, exist_ok=True)
-    shutil.copyfile(src, dst)

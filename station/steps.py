@@ -51,8 +51,8 @@ class StepContext:
     requests: OperatorRequests
     emit: Callable[..., None]
     log: Callable[[str, str], None]
-    hold: Callable[[str], None]
-    release: Callable[[str], None]
+    hold: Callable[[str], None] = lambda cause: None      # the sequencer moves to held ...
+    release: Callable[[str], None] = lambda cause: None   # ... and back to running
     guard: BlackbodyGuard | None = None
     current_target: str | None = None
     last_counter: int | None = None  # last accepted frame counter, across captures (repeats)

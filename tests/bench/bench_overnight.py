@@ -21,7 +21,8 @@ from pathlib import Path
 from typing import Any
 
 from drivers.clock import SimClock
-from station.runner import execute, format_duration, load_inputs, new_run_folder
+from station.console import format_duration
+from station.runner import execute, load_inputs, new_run_folder
 
 
 class QuietConsole:

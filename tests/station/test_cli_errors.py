@@ -9,7 +9,6 @@ errors from PyYAML, the reference parser.
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import pytest
 import yaml
