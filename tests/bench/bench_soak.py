@@ -26,6 +26,9 @@ from pathlib import Path
 import tifffile
 from rich.console import Console
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))  # run as a script from anywhere
+from tests.station.fast_bench import fast_station_yaml  # noqa: E402
+
 from drivers.clock import SimClock
 from simulators.faults import FaultPlan
 from station.console import RunConsole
@@ -35,46 +38,8 @@ from station.resume import resume_run
 from station.runner import execute, load_inputs, new_run_folder, plan_summary
 from station.verify import verify_run
 
-REPO = Path(__file__).resolve().parents[2]
-TRUTH = REPO / "station" / "data" / "demo_camera_truth.yaml"
 
-STATION = f"""\
-station: Simulated bench for the soak
-lab: Demo bay, invented
-collimator: {{focal_length_mm: 500.0}}
-instruments:
-  blackbody:
-    driver: scpi-blackbody
-    resource: sim+visa
-    timeout_s: 0.2
-    recovery: {{retries: 3, backoff_s: 0.2}}
-    limits: {{min_c: 0.0, max_c: 100.0, min_difference_k: -20.0, max_difference_k: 60.0}}
-    safe_c: 22.0
-  wheel:
-    driver: scpi-wheel
-    resource: sim+serial
-    timeout_s: 0.2
-    recovery: {{retries: 3, backoff_s: 0.2}}
-    slots:
-      1: {{name: open, target: {{kind: open_aperture}}}}
-      2: {{name: pinhole_grid, target: {{kind: pinhole_grid, rows: 11, cols: 15, pitch_mm: 12.0,
-           diameter_mm: 1.0}}}}
-  stage:
-    driver: scpi-stage
-    resource: sim+visa
-    timeout_s: 0.2
-    recovery: {{retries: 3, backoff_s: 0.2}}
-    axes:
-      az: {{min: -40.0, max: 40.0, park: 0.0, unit: deg}}
-      el: {{min: -30.0, max: 30.0, park: 0.0, unit: deg}}
-  camera: {{driver: sim-camera, resource: sim}}
-simulation:
-  camera_truth: {TRUTH}
-  bench:
-    blackbody: {{start_c: 22.0, reference_c: 22.0, time_constant_s: 5.0, slew_k_per_s: 5.0,
-                 noise_mk: 2.0, reference_drift_k_per_h: 0.0}}
-    wheel: {{slots: 2, seconds_per_slot: 1.5, start_slot: 1}}
-"""
+STATION = fast_station_yaml("Simulated bench for the soak", timeout_s=0.2)
 
 # 2 differences x 9 az x 7 el = 126 poses, 3 frames each: 378 planned frames.
 RECIPE = """\
