@@ -22,6 +22,7 @@ class OperatorRequests:
     def __init__(self) -> None:
         self._abort = threading.Event()
         self._pause = threading.Event()
+        self._wake = threading.Event()
         self.abort_cause = ""
         self.abort_count = 0
 
@@ -30,6 +31,7 @@ class OperatorRequests:
         if not self._abort.is_set():
             self.abort_cause = cause
             self._abort.set()
+        self._wake.set()
 
     @property
     def abort_requested(self) -> bool:
@@ -45,6 +47,12 @@ class OperatorRequests:
 
     def request_resume(self) -> None:
         self._pause.clear()
+        self._wake.set()
+
+    def wait_for_operator(self, seconds: float) -> None:
+        """While paused: wait (real time: a person decides) until resumed, aborted or timed out."""
+        self._wake.wait(seconds)
+        self._wake.clear()
 
     @property
     def pause_requested(self) -> bool:
@@ -54,7 +62,18 @@ class OperatorRequests:
 @contextmanager
 def abort_on_signals(requests: OperatorRequests,
                      notify: Callable[[str], None] | None = None) -> Iterator[None]:
-    """Route SIGINT and SIGTERM to an orderly abort for the duration of a run."""
+    """Route SIGINT and SIGTERM to an orderly abort, SIGUSR1 to pause and SIGUSR2 to continue,
+    for the duration of a run (`kill -USR1 PID` pauses at the next step boundary)."""
+
+    def pause_handler(signum: int, _frame: object) -> None:
+        if signum == signal.SIGUSR1:
+            requests.request_pause()
+            message = "SIGUSR1 received: pausing after the step in progress (SIGUSR2 continues)"
+        else:
+            requests.request_resume()
+            message = "SIGUSR2 received: continuing"
+        if notify is not None:
+            notify(message)
 
     def handler(signum: int, _frame: object) -> None:
         name = signal.Signals(signum).name
@@ -69,9 +88,10 @@ def abort_on_signals(requests: OperatorRequests,
     if threading.current_thread() is not threading.main_thread():
         yield
         return
-    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM)}
+    pausing = tuple(getattr(signal, n) for n in ("SIGUSR1", "SIGUSR2") if hasattr(signal, n))
+    previous = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM, *pausing)}
     for s in previous:
-        signal.signal(s, handler)
+        signal.signal(s, pause_handler if s in pausing else handler)
     try:
         yield
     finally:

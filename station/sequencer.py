@@ -151,7 +151,9 @@ class Sequencer:
         self.status.operator_pause(cause="operator pause")
         while self.ctx.requests.pause_requested:
             self.ctx.requests.check()
-            self.ctx.clock.sleep(self.ctx.poll_s)
+            self.ctx.tick()
+            self.ctx.requests.wait_for_operator(self.ctx.poll_s)
+        self.ctx.requests.check()
         self.status.operator_resume(cause="operator resume")
 
     def _finish_badly(self, kind: str, cause: str) -> RunOutcome:
