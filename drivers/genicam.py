@@ -104,18 +104,6 @@ class GenicamGrabber(FrameGrabber):
             problems.append("producer: missing; the path of the GenTL producer (.cti)")
         return problems
 
-    @property
-    def shape(self) -> tuple[int, int]:
-        return self._shape
-
-    @property
-    def bit_depth(self) -> int:
-        return self._bit_depth
-
-    @property
-    def frame_rate(self) -> float:
-        return self._rate
-
     def identify(self) -> str:
         return self._ident or "GenICam camera"
 

@@ -176,23 +176,31 @@ class Frame:
 
 
 class FrameGrabber(Instrument):
-    """A source of frames from the UUT."""
+    """A source of frames from the UUT.
+
+    Most grabbers learn their format once when they open: they set `_shape` (rows, cols),
+    `_bit_depth` and `_rate` (frames per second) and inherit the three properties below; a
+    grabber whose format can change overrides them.
+    """
 
     kind = "grabber"
+    _shape: tuple[int, int]
+    _bit_depth: int
+    _rate: float
 
     @property
-    @abstractmethod
     def shape(self) -> tuple[int, int]:
         """(rows, cols)."""
+        return self._shape
 
     @property
-    @abstractmethod
-    def bit_depth(self) -> int: ...
+    def bit_depth(self) -> int:
+        return self._bit_depth
 
     @property
-    @abstractmethod
     def frame_rate(self) -> float:
         """Frames per second (used for timing and duration estimates)."""
+        return self._rate
 
     @abstractmethod
     def grab(self, count: int) -> Iterator[Frame]:

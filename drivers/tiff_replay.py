@@ -159,18 +159,6 @@ class TiffReplayGrabber(FrameGrabber):
                                   f"{data.shape}; replay serves single-channel (rows, cols) frames")
         return data
 
-    @property
-    def shape(self) -> tuple[int, int]:
-        return self._shape
-
-    @property
-    def bit_depth(self) -> int:
-        return self._bit_depth
-
-    @property
-    def frame_rate(self) -> float:
-        return self._rate
-
     def identify(self) -> str:
         return f"TIFF replay of {self.folder} ({len(self.items)} frames)"
 

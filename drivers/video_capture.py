@@ -151,14 +151,6 @@ class VideoCaptureGrabber(FrameGrabber):
                     int(self._cap.get(self._cv2.CAP_PROP_FRAME_WIDTH)))
         return int(image.shape[0]), int(image.shape[1])
 
-    @property
-    def bit_depth(self) -> int:
-        return self._bit_depth
-
-    @property
-    def frame_rate(self) -> float:
-        return self._rate
-
     def identify(self) -> str:
         backend = self._cap.getBackendName() if hasattr(self._cap, "getBackendName") else "?"
         return f"OpenCV VideoCapture ({backend}) {self.source_kind} {self.source}"

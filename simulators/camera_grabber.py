@@ -54,10 +54,6 @@ class SimFrameGrabber(FrameGrabber):
     def bit_depth(self) -> int:
         return int(self.renderer.truth.bit_depth)
 
-    @property
-    def frame_rate(self) -> float:
-        return self._rate
-
     def identify(self) -> str:
         return f"nightbench simulated camera, {self.renderer.truth.model}"
 
