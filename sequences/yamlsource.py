@@ -19,6 +19,7 @@ caller can still point at it.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Hashable, Union
@@ -35,6 +36,7 @@ __all__ = [
     "MarkedNode",
     "load_yaml",
     "ref_in",
+    "is_number",
 ]
 
 
@@ -152,6 +154,13 @@ def ref_in(container: Any, key: Any, fallback: SourceRef) -> SourceRef:
     if isinstance(container, (MarkedDict, MarkedList)):
         return container.ref_of(key)
     return fallback
+
+
+def is_number(value: Any, *, integer: bool = False) -> bool:
+    """True for a finite int/float (an int when `integer`); YAML booleans are not numbers."""
+    if isinstance(value, bool) or not isinstance(value, int if integer else (int, float)):
+        return False
+    return math.isfinite(float(value))
 
 
 class _Builder:

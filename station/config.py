@@ -28,7 +28,8 @@ from analysis.targets import Target, target_from_mapping
 from drivers.errors import ResourceStringError
 from drivers.interfaces import AxisLimits
 from sequences.facts import StationFacts
-from sequences.yamlsource import MarkedDict, Problem, SourceError, SourceRef, load_yaml
+from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, is_number,
+                                  load_yaml)
 
 ROLES = ("blackbody", "wheel", "stage", "camera")
 SIM_RESOURCES = ("sim", "sim+visa", "sim+serial")
@@ -139,7 +140,7 @@ class _Checker:
             self.add(parent.ref(), f"missing '{key}'", hint)
             return None
         value = parent[key]
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
+        if not is_number(value):
             self.add(parent.ref_of(key), f"'{key}' must be a number, not {value!r}", hint)
             return None
         if positive and value <= 0:

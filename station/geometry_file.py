@@ -17,7 +17,6 @@ Every problem is reported at once with file:line and what to write instead.
 from __future__ import annotations
 
 import difflib
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -25,7 +24,8 @@ from typing import Any
 from analysis.distortion import _SPEC_KEYS as DISTORTION_SPEC_KEYS
 from analysis.geometry import PROJECTIONS, CameraGeometry
 from analysis.targets import PinholeGrid, SinglePinhole, target_from_mapping
-from sequences.yamlsource import MarkedDict, Problem, SourceError, SourceRef, load_yaml
+from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, is_number,
+                                  load_yaml)
 
 _TOP = ("uut", "collimator", "target", "stage", "spec_limits", "saturation_counts", "notes")
 _UUT_REQUIRED = ("width", "height", "pixel_pitch_um", "focal_length_mm")
@@ -91,8 +91,7 @@ class _Reader:
             return None
         v = m[key]
         kind = "a whole number" if integer else "a number"
-        ok = isinstance(v, int) if integer else isinstance(v, (int, float))
-        if isinstance(v, bool) or not ok or not math.isfinite(float(v)):
+        if not is_number(v, integer=integer):
             self.add(m.ref_of(key), f"{path}: expected {kind}, got {v!r}", f"write {kind}")
             return None
         if positive and v <= 0:

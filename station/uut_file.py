@@ -20,7 +20,8 @@ from typing import Any
 
 from analysis.geometry import PROJECTIONS
 from analysis.uut import UutSpec
-from sequences.yamlsource import MarkedDict, Problem, SourceError, SourceRef, load_yaml
+from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, is_number,
+                                  load_yaml)
 
 
 class UutFileError(SourceError):
@@ -78,8 +79,7 @@ class _Reader:
             return None
         v = m[key]
         kind = "a whole number" if integer else "a number"
-        ok = isinstance(v, int) if integer else isinstance(v, (int, float))
-        if isinstance(v, bool) or not ok or not math.isfinite(float(v)):
+        if not is_number(v, integer=integer):
             self.add(m.ref_of(key), f"{path}: expected {kind}, got {v!r}", f"write {kind}")
             return None
         if not (lo < v <= hi):
