@@ -29,7 +29,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
-__all__ = ["PASS", "FAIL", "MARGINAL", "COVERAGE_K", "Verdict", "judge", "overall",
+__all__ = ["PASS", "FAIL", "MARGINAL", "COVERAGE_K", "SpecKey", "Verdict", "judge", "overall",
            "count_failed", "verdict_from_dict"]
 
 PASS = "PASS"
@@ -38,6 +38,33 @@ MARGINAL = "MARGINAL"
 COVERAGE_K = 2.0
 
 Sense = Literal["max", "min"]
+
+
+@dataclass(frozen=True)
+class SpecKey:
+    """What one spec key of a UUT file means: exactly one quantity, defined once.
+
+    An analysis declares the keys it evaluates; ``conditions`` names the measurement conditions
+    the key is defined at (for example ``("source_c", "background_c")`` for NETD), which a UUT
+    file may state beside the limit and a recipe must reach.
+
+    >>> k = SpecKey("netd_mk", "NETD", "mK", "max", "temporal noise over SiTF at the source "
+    ...             "temperature", conditions=("source_c", "background_c"))
+    >>> k.judge(48.0, 0.5, 50.0).status
+    'PASS'
+    """
+
+    key: str
+    quantity: str
+    unit: str
+    sense: Sense
+    definition: str
+    conditions: tuple[str, ...] = ()
+
+    def judge(self, value: float, sigma: float, limit: float,
+              conditions: Mapping[str, Any] | None = None) -> "Verdict":
+        return judge(self.key, self.quantity, value, sigma, self.unit, limit, self.sense,
+                     conditions)
 
 
 @dataclass(frozen=True)
