@@ -28,15 +28,12 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any, Callable
+from typing import Any, Callable, Protocol
 
 from sequences.facts import StationFacts
 from sequences.steps import (NAME_PATTERN, STEP_SPECS, Option, StepNode, axis_problems,
                              coerce_options, coerce_value, station_problems, suggest)
 from sequences.yamlsource import MarkedDict, MarkedList, Problem, SourceError, SourceRef
-
-if TYPE_CHECKING:
-    from sequences.recipe import Recipe
 
 __all__ = ["PlanStep", "Plan", "expand", "expand_nodes", "substitute", "instance_name",
            "MAX_PLAN_STEPS"]
@@ -544,7 +541,18 @@ def expand_nodes(nodes: list[StepNode], parameters: dict[str, Any],
                      list(unique.values()))
 
 
-def expand(recipe: "Recipe") -> Plan:
+class ValidatedRecipe(Protocol):
+    """What expansion needs of a recipe (sequences.recipe.Recipe provides it)."""
+
+    name: str
+    description: str
+    file: str
+    parameters: dict[str, Any]
+    steps: list[StepNode]
+    facts: StationFacts | None
+
+
+def expand(recipe: ValidatedRecipe) -> Plan:
     """The flat plan of a validated recipe (raises SourceError if it does not validate)."""
     result = expand_nodes(recipe.steps, recipe.parameters, recipe.facts)
     if result.problems:

@@ -2,6 +2,6 @@
 
 import sys
 
-from station.cli import main
+from station.cli.main import main
 
 sys.exit(main())

@@ -21,7 +21,7 @@ import numpy as np
 
 from drivers.clock import SimClock
 from drivers.interfaces import Frame
-from station.frame_store import CaptureWriter
+from station.record.frame_store import CaptureWriter
 
 ROWS, COLS = 512, 640
 

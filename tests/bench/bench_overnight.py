@@ -21,8 +21,8 @@ from pathlib import Path
 from typing import Any
 
 from drivers.clock import SimClock
-from station.console import format_duration
-from station.runner import execute, load_inputs, new_run_folder
+from station.formatting import format_duration
+from station.engine.runner import execute, load_inputs, new_run_folder
 
 
 class QuietConsole:

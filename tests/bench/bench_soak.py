@@ -31,12 +31,12 @@ from tests.station.fast_bench import fast_station_yaml  # noqa: E402
 
 from drivers.clock import SimClock
 from simulators.faults import FaultPlan
-from station.console import RunConsole
-from station.events import read_events
-from station.manifest import Manifest
-from station.resume import resume_run
-from station.runner import execute, load_inputs, new_run_folder, plan_summary
-from station.verify import verify_run
+from station.cli.console import RunConsole
+from station.record.events import read_events
+from station.record.manifest import Manifest
+from station.engine.resume import resume_run
+from station.engine.runner import execute, load_inputs, new_run_folder, plan_summary
+from station.record.verify import verify_run
 
 
 STATION = fast_station_yaml("Simulated bench for the soak", timeout_s=0.2)

@@ -112,7 +112,7 @@ def test_templates_format_values_as_written(simbench) -> None:
 
 
 def test_full_recipe_through_the_station_uses_the_yaml_templates(tmp_path: Path) -> None:
-    from station.cli import main
+    from station.cli.main import main
 
     code = main(["run", str(RECIPE), "--station", str(STATION), "--runs", str(tmp_path),
                  "--plain"])

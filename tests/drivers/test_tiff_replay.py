@@ -43,7 +43,7 @@ def test_loose_files_in_natural_order_pages_in_turn(tmp_path: Path) -> None:
 
 
 def test_run_folder_captures_replay_recorded_counters_and_times(tmp_path: Path) -> None:
-    from station.frame_store import CaptureWriter
+    from station.record.frame_store import CaptureWriter
 
     frames_dir = tmp_path / "frames"
     clock = SimClock()

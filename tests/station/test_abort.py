@@ -24,8 +24,8 @@ import pytest
 import tifffile
 import yaml
 
-from station import exitcodes
-from station.config import BUILTIN_DIR
+from station.cli import exitcodes
+from station.inputs.config import BUILTIN_DIR
 
 SIM_STATION = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
 SAFE_C = float(SIM_STATION["instruments"]["blackbody"]["safe_c"])

@@ -1,4 +1,4 @@
-"""Atomic writes, checksums and free-disk checks (station.atomic)."""
+"""Atomic writes, checksums and free-disk checks (station.record.atomic)."""
 
 from __future__ import annotations
 
@@ -15,8 +15,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from station import atomic
-from station.atomic import (DiskFullError, check_free_space, dumps_json, free_bytes, sha256_file,
+from station.record import atomic
+from station.record.atomic import (DiskFullError, check_free_space, dumps_json, free_bytes, sha256_file,
                             write_bytes_atomic, write_json_atomic, write_text_atomic)
 
 # FIPS 180-2, Appendix B (SHA-256 examples): "abc" and one million "a".
@@ -73,7 +73,7 @@ def test_kill_9_during_rewrites_leaves_one_whole_version(tmp_path: Path) -> None
     target = tmp_path / "state.json"
     child = textwrap.dedent(f"""
         import sys
-        from station.atomic import write_json_atomic
+        from station.record.atomic import write_json_atomic
         for i in range(100000):
             write_json_atomic({str(target)!r}, {{"i": i, "pad": "x" * (20000 + (i % 7) * 3000)}})
             print(i, flush=True)

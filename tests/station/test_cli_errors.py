@@ -1,7 +1,7 @@
 """Bad input through `nightbench check`: exit code 2 and a message naming file, line and the fix.
 
 The recipe-level rules are tested in tests/sequences; here every case goes through the command
-line (station.cli.main, in process) against the built-in simulated station, so station limits,
+line (station.cli.main.main, in process) against the built-in simulated station, so station limits,
 the wheel's slots and the stage's axes come from station/data/sim_station.yaml. The expected line
 of each case is found in the recipe text itself (the line holding the marker), and for YAML syntax
 errors from PyYAML, the reference parser.
@@ -13,9 +13,9 @@ from __future__ import annotations
 import pytest
 import yaml
 
-from station import exitcodes
-from station.cli import main
-from station.config import BUILTIN_DIR
+from station.cli import exitcodes
+from station.cli.main import main
+from station.inputs.config import BUILTIN_DIR
 
 STATION = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
 BB_LIMITS = STATION["instruments"]["blackbody"]["limits"]

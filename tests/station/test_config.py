@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 
 from sequences.yamlsource import SourceError
-from station.config import BUILTIN_DIR, DEFAULT_SIM_STATION, load_station
+from station.inputs.config import BUILTIN_DIR, DEFAULT_SIM_STATION, load_station
 
 BAD_STATION = """\
 station: Broken bench

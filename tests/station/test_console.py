@@ -10,8 +10,9 @@ import pytest
 from rich.console import Console
 
 from drivers.clock import SimClock
-from station.console import RunConsole, format_duration
-from station.events import EventLog
+from station.cli.console import RunConsole
+from station.formatting import format_duration
+from station.record.events import EventLog
 
 ESC = "\x1b"  # ECMA-48: every control sequence starts with ESC (0x1B)
 STAMP = re.compile(r"^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d\.\d{3}Z ")  # ISO 8601 extended, UTC

@@ -13,8 +13,8 @@ from pathlib import Path
 import tifffile
 
 from drivers.clock import SimClock
-from station import atomic
-from station.runner import execute, load_inputs, new_run_folder
+from station.record import atomic
+from station.engine.runner import execute, load_inputs, new_run_folder
 from tests.station.test_guard import QuietConsole
 
 RECIPE = """\

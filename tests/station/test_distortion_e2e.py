@@ -19,8 +19,8 @@ import pytest
 import yaml
 
 from simulators.camera_truth import CameraTruth, truth_from_mapping
-from station.cli import main
-from station.config import BUILTIN_DIR
+from station.cli.main import main
+from station.inputs.config import BUILTIN_DIR
 
 SIGMAS = 4.0  # coverage factor: a 4-sigma miss of a Gaussian estimate has odds ~6e-5
 

@@ -20,7 +20,7 @@ import pytest
 import tifffile
 import yaml
 
-from station.config import BUILTIN_DIR
+from station.inputs.config import BUILTIN_DIR
 
 SIM_STATION = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
 SIM_BB = SIM_STATION["simulation"]["bench"]["blackbody"]
@@ -91,7 +91,7 @@ def test_manifest_complete_and_every_checksum_matches(run_folder: Path) -> None:
     assert set(files) == on_disk
     for rel, entry in files.items():
         data = (run_folder / rel).read_bytes()
-        # SHA-256 recomputed with hashlib (FIPS 180-4), independently of station.atomic
+        # SHA-256 recomputed with hashlib (FIPS 180-4), independently of station.record.atomic
         assert hashlib.sha256(data).hexdigest() == entry["sha256"], rel
         assert len(data) == entry["bytes"], rel
 

@@ -15,8 +15,8 @@ from pathlib import Path
 import pytest
 
 from drivers.clock import SimClock
-from station import events as events_mod
-from station.events import EventLog, read_events, scan_events, utc_iso
+from station.record import events as events_mod
+from station.record.events import EventLog, read_events, scan_events, utc_iso
 
 
 def test_event_carries_clock_time_and_iso8601_utc(tmp_path: Path) -> None:
@@ -134,7 +134,7 @@ def test_kill_9_keeps_every_acknowledged_event(tmp_path: Path) -> None:
     path = tmp_path / "events.jsonl"
     child = textwrap.dedent(f"""
         from drivers.clock import SimClock
-        from station.events import EventLog
+        from station.record.events import EventLog
         log = EventLog({str(path)!r}, SimClock(), fsync_every=25)
         for i in range(1, 1000000):
             log.emit("reply", i=i, pad="z" * 500)

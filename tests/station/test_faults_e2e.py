@@ -21,9 +21,9 @@ from rich.console import Console
 
 from drivers.clock import SimClock
 from simulators.faults import FaultPlan
-from station.console import RunConsole
-from station.events import read_events
-from station.runner import execute, load_inputs, new_run_folder
+from station.cli.console import RunConsole
+from station.record.events import read_events
+from station.engine.runner import execute, load_inputs, new_run_folder
 from tests.station.fast_bench import fast_station_yaml
 
 FRAMES = 8

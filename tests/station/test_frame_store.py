@@ -17,10 +17,10 @@ import tifffile
 
 from drivers.clock import SimClock
 from drivers.interfaces import Frame
-from station import atomic
-from station.atomic import DiskFullError
-from station.events import EventLog, read_events
-from station.frame_store import (CaptureWriter, FrameStoreError, list_captures, load_average,
+from station.record import atomic
+from station.record.atomic import DiskFullError
+from station.record.events import EventLog, read_events
+from station.record.frame_store import (CaptureWriter, FrameStoreError, list_captures, load_average,
                                  load_metadata, load_stack, move_partials_aside, partial_files)
 
 ROWS, COLS = 64, 80
@@ -211,7 +211,7 @@ def test_kill_9_mid_capture_then_partials_are_set_aside_on_resume(tmp_path: Path
     child = textwrap.dedent(f"""
         import numpy as np
         from drivers.interfaces import Frame
-        from station.frame_store import CaptureWriter
+        from station.record.frame_store import CaptureWriter
         w = CaptureWriter({str(frames_dir)!r}, "sweep[3].capture", "flat_15K", "both")
         img = np.full(({ROWS}, {COLS}), 1234, np.uint16)
         for i in range(1, 100000):

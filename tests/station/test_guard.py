@@ -17,7 +17,7 @@ from typing import Any
 
 from drivers.clock import SimClock
 from simulators.faults import FaultPlan
-from station.runner import execute, load_inputs, new_run_folder
+from station.engine.runner import execute, load_inputs, new_run_folder
 
 TOLERANCE = 0.05      # K
 HOLD_S = 2.0          # s within tolerance before the source counts as settled
@@ -75,7 +75,7 @@ def test_guard_holds_then_resumes_and_retakes_the_capture(tmp_path: Path) -> Non
     drift_start = t0 + DRIFT_AFTER_S
     recovered = drift_start + DRIFT_DURATION_S
     # closed form of the injected drift: out of the band at drift_start + tol / rate; the guard
-    # polls once a second (station.steps.POLL_S), readback noise 2 mK moves that by < 0.1 s
+    # polls once a second (station.engine.steps.POLL_S), readback noise 2 mK moves that by < 0.1 s
     assert drift_start + TOLERANCE / DRIFT_RATE - 0.1 <= held_at \
         <= drift_start + TOLERANCE / DRIFT_RATE + 1.0 + 0.1
     # released only after the hold time back inside the band

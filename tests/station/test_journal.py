@@ -13,9 +13,9 @@ from pathlib import Path
 
 import pytest
 
-from station import journal as journal_mod
-from station.atomic import dumps_json
-from station.journal import Journal, JournalError
+from station.record import journal as journal_mod
+from station.record.atomic import dumps_json
+from station.record.journal import Journal, JournalError
 
 
 def _fill(path: Path, n: int) -> Journal:
@@ -108,7 +108,7 @@ def test_a_step_cannot_be_recorded_twice(tmp_path: Path) -> None:
 def test_kill_9_never_loses_an_acknowledged_step(tmp_path: Path) -> None:
     path = tmp_path / "journal.jsonl"
     child = textwrap.dedent(f"""
-        from station.journal import Journal
+        from station.record.journal import Journal
         journal = Journal({str(path)!r})
         for i in range(1, 100000):
             journal.record(f"scan[{{i}}].capture", "capture", {{"frames": i, "pad": "q" * 800}})

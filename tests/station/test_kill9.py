@@ -5,7 +5,7 @@ kill lands where the test wants it: the test polls events.jsonl (and frames/) fo
 sends SIGKILL. The resume runs in simulated time. All runs go in parallel to keep the file short
 in wall time; every wait is bounded.
 
-What "the same as an uninterrupted run" means here (the journal contract of station/journal.py):
+What "the same as an uninterrupted run" means here (the journal contract of station/record/journal.py):
 the same step ids in the journal, the same captures with the same frame counts (exact: the plan
 says how many), the same result file names, `verify` clean, and a capture cut by the kill kept
 under frames/abandoned/ with fewer frames than planned.
@@ -26,8 +26,8 @@ import numpy as np
 import pytest
 import tifffile
 
-from station.cli import main as cli_main
-from station.verify import verify_run
+from station.cli.main import main as cli_main
+from station.record.verify import verify_run
 from tests.station.fast_bench import fast_station_yaml
 
 REPO = Path(__file__).resolve().parents[2]

@@ -12,7 +12,7 @@ import pytest
 
 from drivers.clock import RealClock, SimClock
 from station import __version__
-from station.manifest import Manifest, ManifestError, load_manifest
+from station.record.manifest import Manifest, ManifestError, load_manifest
 
 
 def test_start_then_end_with_checksums_of_every_file(tmp_path: Path) -> None:

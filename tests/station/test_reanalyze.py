@@ -18,10 +18,10 @@ import tifffile
 import yaml
 
 from sequences.library import find_recipe
-from station.cli import main
-from station.config import BUILTIN_DIR
-from station.geometry_file import example_geometry_path, load_geometry
-from station.reanalyze import analyze_frame_file, analyze_run_folder
+from station.cli.main import main
+from station.inputs.config import BUILTIN_DIR
+from station.inputs.geometry_file import example_geometry_path, load_geometry
+from station.analyses.reanalyze import analyze_frame_file, analyze_run_folder
 
 SAME = 1e-9  # same input and code: only float rounding may differ
 MODEL_KEYS = ("k1", "k2", "p1", "p2", "fx_px", "fy_px", "cx_px", "cy_px")
@@ -111,7 +111,7 @@ def test_geometry_typo_exits_2_naming_file_and_line(grid_run: Path, tmp_path: Pa
     code = main(["analyze", "distortion", "--frame", str(grid_run / "frames" / "grid.avg.tif"),
                  "--geometry", str(bad), "--out", str(tmp_path / "out")])
     out = " ".join(capsys.readouterr().out.split())
-    assert code == 2  # station/exitcodes.py INVALID
+    assert code == 2  # station/cli/exitcodes.py INVALID
     assert f"typo.yaml:{line_no}:" in out
     assert "pich_mm" in out
     assert not (tmp_path / "out" / "distortion.json").exists()

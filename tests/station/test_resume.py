@@ -13,11 +13,11 @@ from rich.console import Console
 
 from drivers.clock import SimClock
 from simulators.faults import FaultPlan
-from station.console import RunConsole
-from station.events import read_events
-from station.manifest import Manifest
-from station.resume import ResumeRefused, check_sources, resume_run
-from station.runner import execute, load_inputs, new_run_folder, plan_summary
+from station.cli.console import RunConsole
+from station.record.events import read_events
+from station.record.manifest import Manifest
+from station.engine.resume import ResumeRefused, check_sources, resume_run
+from station.engine.runner import execute, load_inputs, new_run_folder, plan_summary
 
 REPO = Path(__file__).resolve().parents[2]
 TRUTH = REPO / "station" / "data" / "demo_camera_truth.yaml"
@@ -133,9 +133,9 @@ def test_preflight_refuses_a_swapped_instrument_on_resume(tmp_path):
     # Resume must talk to the same instruments the run started with: a different identity
     # string (*IDN?, IEEE 488.2 common command) stops preflight before anything moves.
     from drivers.clock import SimClock
-    from station.bench import open_bench
-    from station.runner import load_inputs, preflight
-    from station.sequencer import PreflightFailed
+    from station.engine.bench import open_bench
+    from station.engine.runner import load_inputs, preflight
+    from station.engine.sequencer import PreflightFailed
 
     inputs = load_inputs("distortion-grid", station_path=None, uut_path=None, overrides={})
     logged: list[tuple] = []

@@ -11,8 +11,8 @@ import pytest
 
 from drivers.clock import SimClock
 from drivers.interfaces import Frame
-from station.events import read_events
-from station.runfolder import RunFolder, RunFolderError, folder_name, is_run_folder
+from station.record.events import read_events
+from station.record.runfolder import RunFolder, RunFolderError, folder_name, is_run_folder
 
 START = dt.datetime(2026, 1, 1, 18, 5, 9, tzinfo=dt.timezone.utc)
 
@@ -93,7 +93,7 @@ def test_capture_and_registered_result_are_logged(tmp_path: Path) -> None:
     kinds = [e["type"] for e in read_events(folder.events_path)]
     assert kinds == ["capture_done", "file_written"]
     # The mean of 100, 101, 102 is exactly 101 (float32 holds it exactly).
-    from station.frame_store import load_average
+    from station.record.frame_store import load_average
     assert float(load_average(folder, "flat").mean()) == 101.0
 
 

@@ -1,4 +1,4 @@
-"""UUT file loading (station/uut_file.py) and the nominal camera it implies (analysis/uut.py)."""
+"""UUT file loading (station/inputs/uut_file.py) and the nominal camera it implies (analysis/uut.py)."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ from pathlib import Path
 
 import pytest
 
-from station.uut_file import UutFileError, demo_uut_path, load_uut
+from station.inputs.uut_file import UutFileError, demo_uut_path, load_uut
 
 
 def test_demo_uut_loads_with_the_data_sheet_values() -> None:

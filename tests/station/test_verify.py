@@ -11,9 +11,9 @@ import pytest
 
 from drivers.clock import SimClock
 from drivers.interfaces import Frame
-from station.manifest import Manifest
-from station.runfolder import RunFolder
-from station.verify import verify_run
+from station.record.manifest import Manifest
+from station.record.runfolder import RunFolder
+from station.record.verify import verify_run
 
 START = dt.datetime(2026, 1, 1, 18, 0, tzinfo=dt.timezone.utc)
 

@@ -20,13 +20,13 @@ from typing import Any
 
 import tifffile
 
-from station.atomic import TEMP_SUFFIX, sha256_file
-from station.events import scan_events
-from station.frame_store import (ABANDONED, CAPTURE_FORMAT, META_SUFFIX, capture_files,
+from station.record.atomic import TEMP_SUFFIX, sha256_file
+from station.record.events import scan_events
+from station.record.frame_store import (ABANDONED, CAPTURE_FORMAT, META_SUFFIX, capture_files,
                                  partial_files, safe_name)
-from station.journal import Journal, JournalError
-from station.manifest import MANIFEST_NAME, RUNNING, ManifestError, load_manifest
-from station.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
+from station.record.journal import Journal, JournalError
+from station.record.manifest import MANIFEST_NAME, RUNNING, ManifestError, load_manifest
+from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
 
 
 @dataclass

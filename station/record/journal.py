@@ -24,7 +24,7 @@ import threading
 from pathlib import Path
 from typing import Any
 
-from station.atomic import dumps_json, fsync_dir
+from station.record.atomic import dumps_json, fsync_dir
 
 FORMAT_VERSION = 1
 

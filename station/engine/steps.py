@@ -14,10 +14,10 @@ from typing import Any
 
 from drivers.clock import Clock
 from drivers.interfaces import Frame
-from station.abort import OperatorRequests
-from station.bench import Bench
-from station.config import StationConfig
-from station.waiting import SettleCriterion, StepFailed, wait_settled, wait_until
+from station.engine.abort import OperatorRequests
+from station.engine.bench import Bench
+from station.inputs.config import StationConfig
+from station.engine.waiting import SettleCriterion, StepFailed, wait_settled, wait_until
 
 POLL_S = 1.0
 WHEEL_TIMEOUT_S = 120.0
@@ -46,7 +46,7 @@ class StepContext:
     bench: Bench
     station: StationConfig
     uut: Any
-    run: Any  # station.runfolder.RunFolder
+    run: Any  # station.record.runfolder.RunFolder
     clock: Clock
     requests: OperatorRequests
     emit: Callable[..., None]

@@ -28,8 +28,8 @@ from typing import Any
 
 from drivers.clock import Clock
 from station import __version__
-from station.atomic import TEMP_SUFFIX, sha256_file, write_json_atomic
-from station.events import utc_iso
+from station.record.atomic import TEMP_SUFFIX, sha256_file, write_json_atomic
+from station.record.events import utc_iso
 
 MANIFEST_NAME = "manifest.json"
 MANIFEST_FORMAT = "nightbench-manifest"

@@ -1,4 +1,4 @@
-"""What each `nightbench` sub-command does (argument parsing lives in station/cli.py)."""
+"""What each `nightbench` sub-command does (argument parsing lives in station/cli/main.py)."""
 
 from __future__ import annotations
 
@@ -9,17 +9,17 @@ from rich.console import Console
 
 from drivers.clock import SimClock
 from drivers.errors import InstrumentError
-from station import exitcodes
-from station.abort import OperatorRequests, abort_on_signals
-from station.manifest import Manifest
-from station.console import format_duration
-from station.runner import (execute, load_inputs, make_clock, new_run_folder,
+from station.cli import exitcodes
+from station.engine.abort import OperatorRequests, abort_on_signals
+from station.record.manifest import Manifest
+from station.formatting import format_duration
+from station.engine.runner import (execute, load_inputs, make_clock, new_run_folder,
                             plan_summary)
 
 
 def _console_for(console: Console, plain: bool, clock=None):
     """The live display (plain lines when not a terminal); times in the run's clock."""
-    from station.console import RunConsole
+    from station.cli.console import RunConsole
 
     return RunConsole(console, plain=True if plain else None, clock=clock)
 
@@ -44,8 +44,8 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_check(args: argparse.Namespace, console: Console) -> int:
-    from station.bench import open_bench
-    from station.cli import print_table
+    from station.engine.bench import open_bench
+    from station.cli.console import print_table
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
@@ -78,16 +78,16 @@ def _brief(params: dict) -> str:
 
 def cmd_recipes(args: argparse.Namespace, console: Console) -> int:
     from sequences.library import list_builtin
-    from station.cli import print_table
+    from station.cli.console import print_table
 
     print_table(console, "built-in recipes", ["name", "description"], list_builtin())
     return exitcodes.OK
 
 
 def cmd_bench(args: argparse.Namespace, console: Console) -> int:
-    from station.bench import open_bench
-    from station.cli import print_table
-    from station.config import load_station
+    from station.engine.bench import open_bench
+    from station.cli.console import print_table
+    from station.inputs.config import load_station
 
     station = load_station(args.station)
     clock = make_clock(station, None)
@@ -113,7 +113,7 @@ def cmd_bench(args: argparse.Namespace, console: Console) -> int:
 
 def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
     from drivers.registry import list_drivers
-    from station.cli import print_table
+    from station.cli.console import print_table
 
     rows = [(d.name, d.kind, d.package, ", ".join(d.settings)) for d in list_drivers()]
     print_table(console, "drivers", ["name", "kind", "package", "settings"], rows)
@@ -121,7 +121,7 @@ def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
-    from station.reanalyze import analyze_frame_file, analyze_run_folder
+    from station.analyses.reanalyze import analyze_frame_file, analyze_run_folder
 
     if args.frame is not None:
         if args.geometry is None:
@@ -143,7 +143,7 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_resume(args: argparse.Namespace, console: Console) -> int:
-    from station.resume import resume_run
+    from station.engine.resume import resume_run
 
     state, cause, path = resume_run(args.run_folder, force=args.force, seed=args.seed,
                                     console=_console_for(console, args.plain))
@@ -153,7 +153,7 @@ def cmd_resume(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_verify(args: argparse.Namespace, console: Console) -> int:
-    from station.verify import verify_run
+    from station.record.verify import verify_run
 
     report = verify_run(args.run_folder)
     console.print(report.format(), highlight=False, markup=False)

@@ -43,9 +43,9 @@ import tifffile
 
 from drivers.clock import Clock
 from drivers.interfaces import Frame
-from station import atomic
-from station.atomic import DiskFullError, dumps_json, fsync_dir, fsync_file, sha256_file
-from station.events import EventLog, utc_iso
+from station.record import atomic
+from station.record.atomic import DiskFullError, dumps_json, fsync_dir, fsync_file, sha256_file
+from station.record.events import EventLog, utc_iso
 
 Keep = Literal["stack", "average", "both"]
 KEEP_MODES: tuple[str, ...] = ("stack", "average", "both")

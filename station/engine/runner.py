@@ -17,16 +17,16 @@ from sequences.estimate import Estimate, estimate
 from sequences.library import find_recipe
 from sequences.plan import Plan, expand
 from sequences.recipe import load_recipe
-from station.abort import OperatorRequests, abort_on_signals
-from station.analyses import ANALYSES
-from station.atomic import check_free_space
-from station.bench import Bench, open_bench
-from station.console import format_duration
-from station.config import BUILTIN_DIR, StationConfig, load_station
-from station.sequencer import PreflightFailed, RunOutcome, Sequencer
-from station.steps import StepContext
-from station.timing import timing_model
-from station.uut_file import load_uut
+from station.engine.abort import OperatorRequests, abort_on_signals
+from station.analyses.builtin import ANALYSES
+from station.record.atomic import check_free_space
+from station.engine.bench import Bench, open_bench
+from station.formatting import format_duration
+from station.inputs.config import BUILTIN_DIR, StationConfig, load_station
+from station.engine.sequencer import PreflightFailed, RunOutcome, Sequencer
+from station.engine.steps import StepContext
+from station.engine.timing import timing_model
+from station.inputs.uut_file import load_uut
 
 DEMO_UUT = BUILTIN_DIR / "demo_uut.yaml"
 DISK_MARGIN_BYTES = 200 * 1024 * 1024
@@ -165,7 +165,7 @@ def io_sink(events: Any) -> Any:
 
 
 def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> Any:
-    from station.runfolder import RunFolder
+    from station.record.runfolder import RunFolder
 
     utc = dt.datetime.fromtimestamp(clock.now(), tz=dt.timezone.utc)
     run = RunFolder.create(Path(runs_root).resolve(), uut_serial=inputs.uut.serial,

@@ -158,4 +158,4 @@ def load_uut(path: str | Path) -> UutSpec:
 
 def demo_uut_path() -> Path:
     """The demo UUT file shipped with the package."""
-    return Path(__file__).resolve().parent / "data" / "demo_uut.yaml"
+    return Path(__file__).resolve().parent.parent / "data" / "demo_uut.yaml"

@@ -10,7 +10,7 @@
     nightbench verify RUN_FOLDER
 
 Every bad input ends in a message naming the file and line and what to do, and an exit code from
-station/exitcodes.py, never a bare traceback.
+station/cli/exitcodes.py, never a bare traceback.
 """
 
 from __future__ import annotations
@@ -23,10 +23,9 @@ from typing import Any
 
 import yaml
 from rich.console import Console
-from rich.table import Table
 
 from sequences.yamlsource import SourceError
-from station import exitcodes
+from station.cli import exitcodes
 
 
 def _parse_overrides(pairs: Sequence[str]) -> dict[str, Any]:
@@ -100,7 +99,7 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     console = Console(stderr=False)
-    from station import commands
+    from station.cli import commands
 
     handlers = {
         "run": commands.cmd_run, "check": commands.cmd_check, "recipes": commands.cmd_recipes,
@@ -123,16 +122,6 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         console.print("interrupted")
         return exitcodes.ABORTED
-
-
-def print_table(console: Console, title: str, columns: Sequence[str],
-                rows: Sequence[Sequence[Any]]) -> None:
-    table = Table(title=title)
-    for c in columns:
-        table.add_column(c)
-    for r in rows:
-        table.add_row(*[str(x) for x in r])
-    console.print(table)
 
 
 if __name__ == "__main__":

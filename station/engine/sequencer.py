@@ -14,11 +14,11 @@ from dataclasses import dataclass
 from typing import Any
 
 from drivers.errors import InstrumentError, LimitError
-from station.abort import RunInterrupted
-from station.machine import RunStatus, build_machine
-from station.safing import make_safe
-from station.steps import STEP_HANDLERS, StepContext, StepHandler
-from station.waiting import StepFailed
+from station.engine.abort import RunInterrupted
+from station.engine.machine import RunStatus, build_machine
+from station.engine.safing import make_safe
+from station.engine.steps import STEP_HANDLERS, StepContext, StepHandler
+from station.engine.waiting import StepFailed
 
 RESTORE_KINDS = ("blackbody", "target", "move")
 READINGS_REFRESH_S = 1.0  # real seconds between console readings while a step waits

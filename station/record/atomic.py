@@ -197,7 +197,7 @@ def check_free_space(path: Path | str, needed_bytes: int, margin: float | int = 
 
     `margin` below 1 is a fraction of `needed_bytes`; otherwise it is a number of bytes.
     Returns the free bytes measured. The free-space probe is looked up at call time, so tests
-    can monkeypatch `station.atomic.free_bytes`.
+    can monkeypatch `station.record.atomic.free_bytes`.
     """
     if needed_bytes < 0:
         raise ValueError(f"needed_bytes must be >= 0, got {needed_bytes}")

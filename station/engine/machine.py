@@ -2,7 +2,7 @@
 
 States and the triggers that move between them. Every way out of a run except `complete` passes
 through `safing` (blackbody to its safe setpoint, stage parked) before it reaches `aborted` or
-`faulted`. The table is data; the sequencer loop (station/sequencer.py) fires the triggers and runs
+`faulted`. The table is data; the sequencer loop (station/engine/sequencer.py) fires the triggers and runs
 the steps outside any callback (transitions holds its lock through callbacks, see FIELD-NOTES).
 """
 

@@ -16,7 +16,7 @@ from typing import Any
 from drivers.clock import Clock
 from drivers.errors import InstrumentError
 from drivers.interfaces import Blackbody, FrameGrabber, Instrument, MotionStage, TargetWheel
-from station.config import StationConfig
+from station.inputs.config import StationConfig
 
 EventSink = Callable[[dict[str, Any]], None]
 

@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import Any
 
 from drivers.clock import Clock
-from station.atomic import dumps_json, fsync_dir
+from station.record.atomic import dumps_json, fsync_dir
 
 RESERVED_KEYS = frozenset({"t", "utc", "type", "seq"})
 """Keys every event carries; `emit` refuses fields with these names."""

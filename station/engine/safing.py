@@ -9,9 +9,9 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from drivers.errors import InstrumentError
-from station.abort import OperatorRequests
-from station.bench import Bench
-from station.waiting import StepFailed, wait_until
+from station.engine.abort import OperatorRequests
+from station.engine.bench import Bench
+from station.engine.waiting import StepFailed, wait_until
 
 PARK_TIMEOUT_S = 600.0
 

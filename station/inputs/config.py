@@ -33,7 +33,7 @@ from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, i
 
 ROLES = ("blackbody", "wheel", "stage", "camera")
 SIM_RESOURCES = ("sim", "sim+visa", "sim+serial")
-BUILTIN_DIR = Path(__file__).parent / "data"
+BUILTIN_DIR = Path(__file__).resolve().parent.parent / "data"
 DEFAULT_SIM_STATION = BUILTIN_DIR / "sim_station.yaml"
 COMMON_KEYS = {"driver", "resource", "timeout_s", "recovery"}
 

@@ -36,7 +36,8 @@ from rich.table import Table
 from rich.text import Text
 
 from drivers.clock import Clock, RealClock
-from station.events import utc_iso
+from station.formatting import format_duration, format_value
+from station.record.events import utc_iso
 
 READING_LABELS: dict[str, tuple[str, str]] = {
     "blackbody_C": ("blackbody", "C"),
@@ -51,29 +52,6 @@ READING_LABELS: dict[str, tuple[str, str]] = {
 }
 LEVEL_STYLES = {"DEBUG": "dim", "INFO": "", "WARNING": "yellow", "ERROR": "bold red",
                 "CRITICAL": "bold red"}
-
-
-def format_duration(seconds: float | None) -> str:
-    """h:mm:ss (or '--:--' when unknown)."""
-    if seconds is None or seconds != seconds or seconds < 0:
-        return "--:--"
-    total = int(round(seconds))
-    return f"{total // 3600}:{total % 3600 // 60:02d}:{total % 60:02d}"
-
-
-def format_value(value: Any, unit: str = "") -> str:
-    """Readings as an operator reads them: 3 decimals for floats, axes as name=value."""
-    if isinstance(value, Mapping):
-        return "  ".join(f"{k}={format_value(v)}" for k, v in value.items())
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, float):
-        text = f"{value:.3f}"
-    elif value is None:
-        text = "-"
-    else:
-        text = str(value)
-    return f"{text} {unit}".rstrip()
 
 
 class RunConsole:
@@ -280,3 +258,14 @@ class RunConsole:
         line = f"{stamp or utc_iso(self.clock.now())} {level:<7} {text}"
         self.console.print(line, markup=False, highlight=False, emoji=False, soft_wrap=True,
                            style=None)
+
+
+def print_table(console: Console, title: str, columns: list[str] | tuple[str, ...],
+                rows: list[Any] | tuple[Any, ...]) -> None:
+    """A titled table of plain cells (every cell shown with str())."""
+    table = Table(title=title)
+    for c in columns:
+        table.add_column(c)
+    for r in rows:
+        table.add_row(*[str(x) for x in r])
+    console.print(table)

@@ -19,9 +19,9 @@ from analysis.results_io import (distortion_summary, write_distortion_results,
 from analysis.sitf import central_mean, fit_sitf, netd
 from analysis.targets import PinholeGrid, SinglePinhole
 from analysis.uniformity import uniformity
-from station.atomic import write_json_atomic
-from station.frame_store import load_average, load_metadata, load_stack
-from station.waiting import StepFailed
+from station.record.atomic import write_json_atomic
+from station.record.frame_store import load_average, load_metadata, load_stack
+from station.engine.waiting import StepFailed
 
 
 

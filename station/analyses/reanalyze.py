@@ -4,7 +4,7 @@ Why: the analysis improves after a run (a better fit, a corrected target file) a
 from other labs. Re-analysis uses the copies of the station, UUT and recipe files kept in the run
 folder's inputs/, so the answer does not drift when the originals are edited later; it never
 touches an instrument. The computation is the same code path a live run takes
-(station.analyses.run_distortion); the standalone path uses analysis.distortion_frames directly.
+(station.analyses.builtin.run_distortion); the standalone path uses analysis.distortion_frames directly.
 """
 
 from __future__ import annotations
@@ -24,12 +24,12 @@ from analysis.results_io import (distortion_summary, write_distortion_results,
 from analysis.targets import PinholeGrid
 from sequences.plan import expand
 from sequences.recipe import load_recipe
-from station.analyses import ANALYSES, run_distortion
-from station.config import StationConfig, load_station
-from station.geometry_file import load_geometry
-from station.runfolder import RunFolder, RunFolderError
-from station.uut_file import load_uut
-from station.waiting import StepFailed
+from station.analyses.builtin import ANALYSES, run_distortion
+from station.inputs.config import StationConfig, load_station
+from station.inputs.geometry_file import load_geometry
+from station.record.runfolder import RunFolder, RunFolderError
+from station.inputs.uut_file import load_uut
+from station.engine.waiting import StepFailed
 
 _SHORT_KEYS = ("max_distortion_percent", "classification", "boresight_offset_px", "skew_deg",
                "n_defects", "defect_labels")

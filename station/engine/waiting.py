@@ -6,7 +6,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from drivers.clock import Clock
-from station.abort import OperatorRequests
+from station.engine.abort import OperatorRequests
 
 
 class StepFailed(Exception):

@@ -3,11 +3,11 @@
 Layout (`<root>/<UTC YYYYmmddTHHMMSSZ>_<serial>_<recipe>/`)::
 
     run-folder.json   marks the folder as a run folder (written atomically at creation)
-    manifest.json     see station.manifest
-    events.jsonl      see station.events
-    journal.jsonl     see station.journal
+    manifest.json     see station.record.manifest
+    events.jsonl      see station.record.events
+    journal.jsonl     see station.record.journal
     inputs/           station, UUT and recipe files exactly as run
-    frames/           captures (see station.frame_store); frames/abandoned/ holds set-aside ones
+    frames/           captures (see station.record.frame_store); frames/abandoned/ holds set-aside ones
     results/  plots/  written by analysis; `register` records each file in the event log
 
 Example::
@@ -28,10 +28,10 @@ from pathlib import Path
 from typing import Any
 
 from drivers.clock import Clock, RealClock
-from station.atomic import fsync_dir, sha256_file, write_bytes_atomic, write_json_atomic
-from station.events import EventLog
-from station.frame_store import DEFAULT_MIN_FREE, CaptureWriter, Keep, move_partials_aside
-from station.journal import Journal
+from station.record.atomic import fsync_dir, sha256_file, write_bytes_atomic, write_json_atomic
+from station.record.events import EventLog
+from station.record.frame_store import DEFAULT_MIN_FREE, CaptureWriter, Keep, move_partials_aside
+from station.record.journal import Journal
 
 MARKER_NAME = "run-folder.json"
 MARKER_FORMAT = "nightbench-run-folder"

@@ -204,4 +204,4 @@ def load_geometry(path: str | Path) -> GeometrySpec:
 
 def example_geometry_path() -> Path:
     """The example geometry file shipped with the package (the demo bench and camera)."""
-    return Path(__file__).resolve().parent / "data" / "example_geometry.yaml"
+    return Path(__file__).resolve().parent.parent / "data" / "example_geometry.yaml"

@@ -25,12 +25,12 @@ from pathlib import Path
 from typing import Any
 
 from drivers.clock import Clock, RealClock, SimClock
-from station.atomic import sha256_file
-from station.events import read_events
-from station.journal import JournalError
-from station.manifest import RUNNING, Manifest, ManifestError, load_manifest
-from station.runfolder import RunFolder, RunFolderError
-from station.runner import Inputs, execute, load_inputs
+from station.record.atomic import sha256_file
+from station.record.events import read_events
+from station.record.journal import JournalError
+from station.record.manifest import RUNNING, Manifest, ManifestError, load_manifest
+from station.record.runfolder import RunFolder, RunFolderError
+from station.engine.runner import Inputs, execute, load_inputs
 
 ROLES = ("station", "uut", "recipe")
 BUILT_IN = "(built in)"

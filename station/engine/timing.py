@@ -11,7 +11,7 @@ from collections.abc import Mapping
 from typing import Any
 
 from sequences.facts import TimingModel
-from station.config import StationConfig
+from station.inputs.config import StationConfig
 
 DEFAULTS = {"time_constant_s": 60.0, "slew_k_per_s": 0.1, "seconds_per_slot": 2.0,
             "velocity": 5.0, "acceleration": 10.0}

@@ -1,0 +1,1 @@
+"""The command line: argument parsing, the sub-commands, the live console, exit codes."""

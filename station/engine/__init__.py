@@ -1,0 +1,1 @@
+"""The run engine: inputs to outcome, the state table, step handlers, waiting, safing, resume."""

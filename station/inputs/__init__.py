@@ -1,0 +1,1 @@
+"""The input files a run reads: station file, UUT file, geometry file."""
