@@ -25,7 +25,7 @@ from dataclasses import dataclass, field
 from sequences.facts import TimingModel
 from sequences.plan import Plan
 from sequences.plansteps import (BlackbodyStep, CaptureStep, MoveStep, TargetStep, WaitStep)
-from sequences.yamlsource import SourceRef
+from sequences.yamlsource import Problem, SourceRef
 
 __all__ = ["Estimate", "TimeoutWarning", "estimate", "blackbody_settle_s", "wheel_travel_s",
            "trapezoid_s", "slots_between", "NEAR_TIMEOUT_FRACTION"]
@@ -48,13 +48,17 @@ class TimeoutWarning:
     def exceeds(self) -> bool:
         return self.needed_s > self.timeout_s
 
+    def as_problem(self) -> Problem:
+        """The warning as a located message with its fix (printed like any input problem)."""
+        how = "times out after" if self.exceeds else "comes within 10 % of its timeout of"
+        return Problem(self.where, f"{self.step_id}: the blackbody needs about "
+                                   f"{self.needed_s:.0f} s to settle and hold but {how} "
+                                   f"{self.timeout_s:g} s",
+                       f"raise its timeout above {self.needed_s * 1.25:.0f} s, or approach the "
+                       "setpoint in smaller steps")
+
     def __str__(self) -> str:
-        how = ("times out after" if self.exceeds
-               else "is within 10 % of its timeout of")
-        fix = (f"raise its timeout above {self.needed_s * 1.25:.0f} s or approach the setpoint "
-               "in smaller steps")
-        return (f"{self.where}: {self.step_id}: the blackbody needs about {self.needed_s:.0f} s "
-                f"to settle and hold but {how} {self.timeout_s:g} s. {fix.capitalize()}.")
+        return str(self.as_problem())
 
 
 @dataclass(frozen=True)

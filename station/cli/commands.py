@@ -75,10 +75,15 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
         except InstrumentError as exc:
             console.print(f"[red]instrument not answering:[/] {exc}", highlight=False)
             return exitcodes.INSTRUMENT
+    if inputs.warnings:
+        console.print("[bold yellow]Warnings:[/]", highlight=False)
+        for warning in inputs.warnings:
+            console.print(f"  {warning}", highlight=False, markup=False)
     console.print(f"{len(inputs.plan.steps)} steps, {inputs.estimate.frames} frames, "
                   f"{inputs.estimate.bytes / 1e6:.1f} MB; estimated real duration "
                   f"{format_duration(inputs.estimate.total_s)}", highlight=False)
-    console.print("check passed: nothing was moved", highlight=False)
+    note = f" with {len(inputs.warnings)} warning(s)" if inputs.warnings else ""
+    console.print(f"check passed{note}: nothing was moved", highlight=False)
     return exitcodes.OK
 
 

@@ -30,7 +30,9 @@ from station.inputs.config import BUILTIN_DIR, StationConfig, load_station
 from station.engine.sequencer import PreflightFailed, RunOutcome, Sequencer
 from station.engine.steps import StepContext
 from station.engine.timing import timing_model
-from station.inputs.uut_file import load_uut
+from station.inputs.uut_file import load_uut, spec_sources
+from station.analyses.spec_check import spec_findings
+from sequences.yamlsource import Problem, SourceError, SourceRef
 from station.record.verdicts_file import verdicts_from_journal, write_verdicts
 
 DEMO_UUT = BUILTIN_DIR / "demo_uut.yaml"
@@ -50,6 +52,7 @@ class Inputs:
     estimate: Estimate
     overrides: Mapping[str, Any] = field(default_factory=dict)
     analyses: Registry = field(default_factory=builtin_registry)
+    warnings: list[Problem] = field(default_factory=list)  # shown by check and preflight
 
 
 def load_inputs(recipe: str | Path, *, station_path: Path | None, uut_path: Path | None,
@@ -63,10 +66,20 @@ def load_inputs(recipe: str | Path, *, station_path: Path | None, uut_path: Path
     parsed = load_recipe(recipe_path, overrides=dict(overrides),
                          facts=recipe_facts(station, registry))
     plan = expand(parsed)
+    problems, warnings = spec_findings(uut, spec_sources(uut_file),
+                                       SourceRef(str(uut_file), 1, 1), plan.steps, registry)
+    if problems:
+        raise SourceError(problems)
     timing = timing_model(station, frame_rate_hz=uut.frame_rate_hz,
                           frame_shape=(uut.height, uut.width))
-    return Inputs(station, uut, uut_file, recipe_path, parsed, plan, estimate(plan, timing),
-                  dict(overrides), registry)
+    planned = estimate(plan, timing)
+    warnings.extend(w.as_problem() for w in planned.warnings)
+    return Inputs(station, uut, uut_file, recipe_path, parsed, plan, planned,
+                  dict(overrides), registry, sorted(warnings, key=_place))
+
+
+def _place(problem: Problem) -> tuple[str, int, int]:
+    return (problem.where.file, problem.where.line, problem.where.column)
 
 
 def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
@@ -105,8 +118,8 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
             if refusal is not None:
                 raise PreflightFailed(f"{step.id} ({step.source}): {refusal.message}; "
                                       f"{refusal.hint}")
-    for warning in inputs.estimate.warnings:
-        emit("preflight.warning", step=warning.step_id, text=str(warning))
+    for warning in inputs.warnings:
+        emit("preflight.warning", text=str(warning))
         console.log("warning", str(warning))
     try:
         check_free_space(run_dir, int(inputs.estimate.bytes), DISK_MARGIN_BYTES)

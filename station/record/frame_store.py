@@ -181,7 +181,7 @@ def abandon_files(frames_dir: Path, step_id: str, files: list[Path], reason: str
         "frames_added": frames_added, "files": listing,
         "note": "set aside; never mixed with the frames of the capture that replaced it"})
     if events is not None:
-        events.emit("capture_abandoned", step=step_id, reason=reason,
+        events.emit("capture.abandoned", step=step_id, reason=reason,
                     folder=target.relative_to(frames_dir.parent).as_posix(),
                     files=sorted(listing), frames_added=frames_added)
     return target
@@ -383,7 +383,7 @@ class CaptureWriter:
             average_path=self.files["average"] if "average" in record_files else None,
             checksums=checksums, sizes=sizes)
         if self.events is not None:
-            self.events.emit("capture_done", step=self.step_id, name=self.name,
+            self.events.emit("capture.stored", step=self.step_id, name=self.name,
                              count=self.count, counter_gaps=gaps, repeated_counters=repeats,
                              files=sorted(checksums))
         return record
