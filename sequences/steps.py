@@ -281,6 +281,10 @@ def coerce_value(option: Option, value: Any, where: SourceRef, label: str,
             return fail(f"{what} must be text, not {_describe(value)}", "write it as a single value")
         value = str(value)
     elif kind == "capture_name":
+        if isinstance(value, str) and ("/" in value or "\\" in value):
+            return fail(f"capture name '{value}' contains a path separator",
+                        "a capture name becomes a file name inside the run folder's frames/: "
+                        "use letters, digits, '_', '-' or '.' only")
         if not isinstance(value, str) or not CAPTURE_NAME_PATTERN.match(value):
             return fail(f"capture name {_describe(value)} is not a plain name",
                         "use letters, digits, '_', '-' or '.', starting with a letter; loop values "
