@@ -8,7 +8,8 @@ from pathlib import Path
 
 from rich.console import Console
 
-from drivers.clock import SimClock
+from drivers.clock import Clock, SimClock
+from station.cli.console import RunConsole
 from drivers.errors import InstrumentError
 from analysis.verdicts import FAIL, Verdict
 from station.cli import exitcodes
@@ -20,10 +21,8 @@ from station.engine.runner import (execute, load_inputs, make_clock, new_run_fol
                             plan_summary)
 
 
-def _console_for(console: Console, plain: bool, clock=None):
+def _console_for(console: Console, plain: bool, clock: Clock | None = None) -> RunConsole:
     """The live display (plain lines when not a terminal); times in the run's clock."""
-    from station.cli.console import RunConsole
-
     return RunConsole(console, plain=True if plain else None, clock=clock)
 
 

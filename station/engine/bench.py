@@ -11,12 +11,17 @@ from collections.abc import Callable, Iterator
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from drivers.clock import Clock
 from drivers.errors import InstrumentError
 from drivers.interfaces import Blackbody, FrameGrabber, Instrument, MotionStage, TargetWheel
 from station.inputs.config import StationConfig
+
+if TYPE_CHECKING:
+    from simulators.bench import SimBench
+    from simulators.camera_truth import CameraTruth
+    from simulators.faults import FaultPlan
 
 EventSink = Callable[[dict[str, Any]], None]
 
@@ -30,7 +35,7 @@ class Bench:
     stage: MotionStage
     camera: FrameGrabber
     clock: Clock
-    simulation: Any = None  # simulators.bench.SimBench when simulated
+    simulation: SimBench | None = None  # the simulated bench behind the drivers, if any
     identities: dict[str, str] = field(default_factory=dict)
 
     def instruments(self) -> dict[str, Instrument]:
@@ -54,7 +59,7 @@ def _sim_resource(resource: str, port: int) -> str:
     return f"TCPIP::127.0.0.1::{port}::SOCKET"
 
 
-def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_rate: float,
+def _simulated_camera(station: StationConfig, sim: SimBench, clock: Clock, uut_frame_rate: float,
                       seed: int) -> FrameGrabber:
     from simulators.camera_grabber import SimFrameGrabber
     from simulators.camera_render import CameraRenderer, SceneState
@@ -74,7 +79,7 @@ def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_
                            faults=sim.faults)
 
 
-def camera_truth(station: StationConfig) -> Any:
+def camera_truth(station: StationConfig) -> CameraTruth:
     """The simulated camera's truth, from the file named in the station's simulation section."""
     import yaml
 
@@ -96,7 +101,7 @@ def camera_truth(station: StationConfig) -> Any:
 @contextmanager
 def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None = None,
                frame_rate_hz: float = 30.0, seed: int = 1,
-               fault_plan: Any = None) -> Iterator[Bench]:
+               fault_plan: FaultPlan | None = None) -> Iterator[Bench]:
     """Connect every instrument; close them (and stop simulators) on the way out."""
     from drivers.recovery import RetryPolicy
     from drivers.registry import find_driver

@@ -194,3 +194,30 @@ def test_unknown_spec_key_in_the_uut_file_is_refused(tmp_path, capsys, monkeypat
     assert code == exitcodes.INVALID
     (problem,) = [x.strip() for x in out.splitlines() if "max_rol_deg" in x]
     assert problem.startswith(f"{uut}:{line}:") and "did you mean 'max_roll_deg'?" in problem
+
+
+def test_scan_over_a_linear_axis_is_refused_for_a_scan_analysis(tmp_path, capsys,
+                                                                monkeypatch) -> None:
+    # A station whose stage is one linear axis in mm: a scan over it has no angular pose, so
+    # the distortion scan (which needs az and el in degrees) is refused at check.
+    from tests.station.fast_bench import fast_station_yaml
+
+    text = fast_station_yaml("linear-bench", timeout_s=1.0).replace(
+        "      az: {min: -40.0, max: 40.0, park: 0.0, unit: deg}\n"
+        "      el: {min: -30.0, max: 30.0, park: 0.0, unit: deg}\n",
+        "      x: {min: -50.0, max: 50.0, park: 0.0, unit: mm}\n")
+    text = text.replace("pinhole_grid, target: {kind: pinhole_grid, rows: 11, cols: 15, "
+                        "pitch_mm: 12.0,\n           diameter_mm: 1.0}",
+                        "pinhole, target: {kind: single_pinhole, diameter_mm: 1.0}")
+    station = tmp_path / "linear.yaml"
+    station.write_text(text, encoding="utf-8")
+    recipe = tmp_path / "scan.yaml"
+    recipe.write_text("recipe: linear-scan\nsteps:\n  - target: pinhole\n  - scan:\n"
+                      "      axes: {x: {from: -25, to: 25, step: 5}}\n      steps:\n"
+                      "        - capture: {name: spot, frames: 2}\n"
+                      "  - analyze: {analysis: distortion, captures: [spot], "
+                      "options: {mode: scan}}\n", encoding="utf-8")
+    code, out = check(capsys, monkeypatch, str(recipe), "--station", str(station))
+    assert code == exitcodes.INVALID, out
+    (line,) = [x.strip() for x in out.splitlines() if "angular axes az and el" in x]
+    assert line.startswith(f"{recipe}:8:") and "is at axes: x (mm)" in line
