@@ -59,13 +59,12 @@ def _sim_resource(resource: str, port: int) -> str:
     return f"TCPIP::127.0.0.1::{port}::SOCKET"
 
 
-def _simulated_camera(station: StationConfig, sim: SimBench, clock: Clock, uut_frame_rate: float,
-                      seed: int) -> FrameGrabber:
-    from simulators.camera_grabber import SimFrameGrabber
+def _simulated_scene(station: StationConfig, sim: SimBench, clock: Clock,
+                     uut_frame_rate: float, seed: int) -> dict[str, object]:
+    """What the simulated camera driver finds on its 'cable': renderer, scene, clock, rate."""
     from simulators.camera_render import CameraRenderer, SceneState
 
-    truth = camera_truth(station)
-    renderer = CameraRenderer(truth, seed=seed)
+    renderer = CameraRenderer(camera_truth(station), seed=seed)
 
     def scene() -> SceneState:
         slot = sim.slot_in_beam()
@@ -75,8 +74,8 @@ def _simulated_camera(station: StationConfig, sim: SimBench, clock: Clock, uut_f
                           az_deg=angles.get("az", 0.0), el_deg=angles.get("el", 0.0),
                           collimator_focal_mm=station.collimator_focal_mm)
 
-    return SimFrameGrabber(renderer, scene, clock, frame_rate_hz=uut_frame_rate, name="camera",
-                           faults=sim.faults)
+    return {"renderer": renderer, "scene": scene, "clock": clock,
+            "frame_rate_hz": uut_frame_rate, "faults": sim.faults}
 
 
 def camera_truth(station: StationConfig) -> CameraTruth:
@@ -134,13 +133,11 @@ def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None
             cls = find_driver(entry.driver)
             built[role] = cls(transport, name=role, settings=entry.settings)
         cam_entry = station.instruments["camera"]
-        if cam_entry.resource.startswith("sim"):
-            camera = _simulated_camera(station, sim, clock, frame_rate_hz, seed)
-        else:
-            camera = find_driver(cam_entry.driver)(None, name="camera",
-                                                   settings={**cam_entry.settings,
-                                                             "resource": cam_entry.resource,
-                                                             "base_dir": str(station.base_dir)})
+        settings = {**cam_entry.settings, "resource": cam_entry.resource,
+                    "base_dir": str(station.base_dir)}
+        if cam_entry.resource.startswith("sim") and sim is not None:
+            settings.update(_simulated_scene(station, sim, clock, frame_rate_hz, seed))
+        camera = find_driver(cam_entry.driver)(None, name="camera", settings=settings)
         stack.callback(camera.close)
         bench = Bench(blackbody=built["blackbody"], wheel=built["wheel"],  # type: ignore[arg-type]
                       stage=built["stage"], camera=camera, clock=clock,  # type: ignore[arg-type]
