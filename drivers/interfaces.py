@@ -7,6 +7,7 @@ the axis unit (degrees for rotary axes, millimetres for linear ones), times in s
 
 from __future__ import annotations
 
+import math
 from abc import ABC, abstractmethod
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -38,6 +39,21 @@ class Blackbody(Instrument):
     """An area blackbody source with a reference (ambient/target plate) sensor."""
 
     kind = "blackbody"
+
+    @abstractmethod
+    def setpoint_range(self, mode: BlackbodyMode) -> tuple[float, float]:
+        """The station's limits for a mode: (min, max) in C (absolute) or K (difference)."""
+
+    def setpoint_problem(self, mode: str, value: float) -> str | None:
+        """Why this setpoint is not allowed (None when it is): the one limit check, used by
+        the driver before sending and by recipe validation and preflight alike."""
+        if mode not in ("absolute", "difference"):
+            return f"mode is 'absolute' or 'difference', not {mode!r}"
+        lo, hi = self.setpoint_range(mode)  # type: ignore[arg-type]
+        unit, what = ("C", "") if mode == "absolute" else ("K", "difference ")
+        if not math.isfinite(value) or not lo <= value <= hi:
+            return f"{what}{value} {unit} outside the station limits {lo}..{hi} {unit}"
+        return None
 
     @abstractmethod
     def set_mode(self, mode: BlackbodyMode) -> None: ...
@@ -88,6 +104,13 @@ class TargetWheel(Instrument):
 
     @abstractmethod
     def slot_names(self) -> dict[int, str]: ...
+
+    def slot_problem(self, slot: int) -> str | None:
+        """Why this slot cannot be selected (None when it can)."""
+        names = self.slot_names()
+        if slot not in names:
+            return f"no slot {slot} in the station file; slots are {sorted(names)}"
+        return None
 
     @abstractmethod
     def select_slot(self, slot: int) -> None:
@@ -140,6 +163,16 @@ class MotionStage(Instrument):
     @abstractmethod
     def limits(self, axis: str) -> AxisLimits:
         """Soft limits (the station's, which may be tighter than the controller's)."""
+
+    def position_problem(self, axis: str, value: float) -> str | None:
+        """Why this target is not allowed (None when it is): the one limit check, used by the
+        driver before moving and by recipe validation and preflight alike."""
+        if axis not in self.axes():
+            return f"no axis {axis!r}; axes are {', '.join(self.axes())}"
+        lim = self.limits(axis)
+        if not math.isfinite(value) or not lim.contains(value):
+            return f"{axis} {value} outside {lim.minimum}..{lim.maximum} {lim.unit}"
+        return None
 
     @abstractmethod
     def move_to(self, targets: dict[str, float]) -> None:
