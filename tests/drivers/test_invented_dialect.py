@@ -1,0 +1,169 @@
+"""An invented-dialect blackbody (CR+LF, WHO?, T.SET, T.NOW?, T.STABLE? answered YES/NO, bare
+`ERR <code>` refusals, a fifth of the replies 200 ms late) driven two ways: by the station-file
+driver (tests/drivers/data/invented_station.yaml) and by a Python declaration
+(tests/drivers/invented_blackbody.py). Both through a scripted conversation, and both over a real
+socket on real time against the bench simulator speaking the Python declaration's dialect.
+"""
+
+from __future__ import annotations
+
+import math
+import random
+import threading
+import time
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+
+from drivers.clock import RealClock
+from drivers.configurable import ConfigurableBlackbody
+from drivers.errors import InstrumentRefused
+from drivers.interfaces import Blackbody
+from drivers.protocol import command_table
+from drivers.recovery import RetryPolicy
+from drivers.testkit import Script, ScriptedTransport
+from drivers.transport import open_transport
+from simulators.bench import SimBench
+from simulators.line_server import LineServer, Response
+from simulators.servers import BlackbodyProtocol
+from tests.drivers.invented_blackbody import InventedBlackbody
+
+STATION = Path(__file__).parent / "data" / "invented_station.yaml"
+COMMON = {"driver", "resource", "timeout_s", "recovery"}
+
+
+def yaml_settings() -> dict[str, Any]:
+    entry = yaml.safe_load(STATION.read_text(encoding="utf-8"))["instruments"]["blackbody"]
+    return {k: v for k, v in entry.items() if k not in COMMON}
+
+
+SETTINGS = {k: v for k, v in yaml_settings().items()
+            if k in ("limits", "safe_c")}  # a Python driver needs only the kind's settings
+
+
+def station_file_driver(link: Any) -> Blackbody:
+    return ConfigurableBlackbody(link, name="blackbody", settings=yaml_settings())
+
+
+def python_driver(link: Any) -> Blackbody:
+    return InventedBlackbody(link, name="blackbody", settings=SETTINGS)
+
+
+BUILDERS = pytest.mark.parametrize("build", [station_file_driver, python_driver],
+                                   ids=["station-file", "python"])
+
+# The manual's conversation: a setpoint, readings, the stability flag in words, a refusal
+# without a message and the safing path.
+CONVERSATION = Script.parse("""
+    > WHO?
+    < Invented Lab,TB-7,0042,2.1
+    > T.SET 30.00
+    < OK
+    > T.NOW?
+    < 29.874
+    > T.STABLE?
+    < NO
+    > T.STABLE?
+    < YES
+    > T.REL 5.00
+    < ERR 12
+    > T.ERR?
+    < 12
+    > T.MODE ABS
+    < OK
+    > T.SET 22.00
+    < OK
+""")
+
+
+@BUILDERS
+def test_scripted_conversation_in_the_invented_dialect(build) -> None:
+    with ScriptedTransport(CONVERSATION, instrument="blackbody") as link:
+        bb = build(link)
+        assert (link.read_termination, link.write_termination) == ("\r\n", "\r\n")
+        assert bb.identify() == "Invented Lab,TB-7,0042,2.1"
+        bb.set_temperature(30.0)
+        assert bb.temperature() == 29.874
+        assert bb.is_stable() is False and bb.is_stable() is True
+        with pytest.raises(InstrumentRefused) as err:
+            bb.set_difference(5.0)
+        assert str(err.value) == ("blackbody: refused (error 12); command 'T.REL 5.00'; "
+                                  "reply 'ERR 12'")
+        assert bb.last_error() == (12, "")
+        bb.go_safe()
+
+
+def test_both_journeys_declare_the_same_table() -> None:
+    """The station file and the Python declaration describe one instrument: same commands."""
+    yaml_driver = station_file_driver(None)
+    py = python_driver(None)
+    rows = {(c.header, c.args) for c in command_table(py.commands, py.dialect)}
+    assert rows == {(c.header, c.args) for c in command_table(yaml_driver.commands,
+                                                              yaml_driver.dialect)}
+    assert yaml_driver.dialect.true_words == py.dialect.true_words == ("YES",)
+
+
+class LateReplies:
+    """A fifth of the replies 200 ms late (seeded), the rest at once: the issue's fake."""
+
+    def __init__(self, protocol: BlackbodyProtocol, seed: int = 7) -> None:
+        self.protocol, self.rng = protocol, random.Random(seed)
+        self.late = 0
+        self.lock = threading.Lock()
+
+    def __call__(self, line: str) -> Response:
+        with self.lock:
+            late = self.rng.random() < 0.2
+            self.late += late
+        if late:
+            time.sleep(0.2)  # the instrument's own latency, in the server thread
+        return self.protocol(line)
+
+
+# Fast physics so a real-time test takes seconds: first-order lag tau = 50 ms, stable within
+# 20 mK held for 0.2 s (simulators/blackbody.py).
+TAU_S, BAND_K, HOLD_S = 0.05, 0.02, 0.2
+
+
+@pytest.fixture
+def fake() -> Iterator[tuple[RealClock, SimBench, LineServer, LateReplies]]:
+    clock = RealClock()
+    bench = SimBench.from_mapping({"blackbody": {
+        "time_constant_s": TAU_S, "slew_k_per_s": 1000.0, "noise_mk": 0.0,
+        "stable_band_k": BAND_K, "stable_hold_s": HOLD_S, "reference_drift_k_per_h": 0.0},
+        "identity": {"blackbody": "Invented Lab,TB-7,0042,2.1"}}, clock)
+    late = LateReplies(BlackbodyProtocol(bench, driver=InventedBlackbody))
+    with LineServer(late, name="tb7", terminator=b"\r\n", line_end=b"\r\n") as server:
+        yield clock, bench, server, late
+
+
+@BUILDERS
+def test_two_temperatures_over_a_socket_on_real_time(fake, build) -> None:
+    clock, bench, server, late = fake
+    events: list[dict[str, Any]] = []
+    with open_transport(f"socket://127.0.0.1:{server.port}", instrument="blackbody",
+                        clock=clock, timeout_s=1.0, events=events.append) as link:
+        bb = build(link)
+        assert bb.identify().startswith("Invented Lab,TB-7")
+        for target in (30.0, 35.0):
+            start_c = bb.temperature()
+            bb.set_temperature(target)
+            t0 = clock.now()
+            while not bb.is_stable():
+                assert clock.now() - t0 < 5.0, "did not settle in 5 s"
+                clock.sleep(0.05)
+            waited = clock.now() - t0
+            # First-order step (closed form): |e| = e0 exp(-t/tau) enters the band at
+            # tau ln(e0/band), then must stay there for the hold time.
+            assert waited >= TAU_S * math.log(abs(target - start_c) / BAND_K) + HOLD_S - 0.02
+            assert bb.temperature() == pytest.approx(target, abs=BAND_K)
+            assert bb.setpoint() == pytest.approx(target, abs=0.005)  # sent with 2 decimals
+        bb.go_safe()
+        assert bb.mode() == "absolute" and bb.setpoint() == pytest.approx(22.0, abs=0.005)
+    assert late.late >= 1                                     # some replies were late...
+    assert [e for e in events if e["type"].startswith("transport.")] == []  # ...none retried
+    sent = [e["command"] for e in events if e["type"] == "io"]
+    assert "T.SET 30.00" in sent and "T.SET 35.00" in sent
