@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 from abc import ABC, abstractmethod
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -33,6 +33,13 @@ class Instrument(ABC):
     def snapshot(self) -> dict[str, Any]:
         """Live readings for the console and frame metadata. Never raises on a healthy link."""
         return {}
+
+    def harmless_queries(self) -> dict[str, Callable[[], Any]]:
+        """Every question that changes nothing (identity, readbacks, status), ready to call.
+        `nightbench check` asks them all and parses the replies, so `check` fails wherever
+        `bench` or a run would. Declared drivers list each query; this default asks the
+        identity and the snapshot."""
+        return {"identify": self.identify, "snapshot": self.snapshot}
 
 
 class Blackbody(Instrument):
@@ -92,6 +99,11 @@ class Blackbody(Instrument):
     @abstractmethod
     def go_safe(self) -> None:
         """Drive to the safe setpoint configured for this station (never raises silently)."""
+
+    def safing_problem(self) -> str | None:
+        """Exercise the safing path without changing anything, where the driver can; the
+        problem found, or None. Called by `check` and preflight before anything moves."""
+        return None
 
 
 class TargetWheel(Instrument):

@@ -202,11 +202,13 @@ class Transport(ABC):
             self._events(event)
         return reply
 
-    def _timeout(self, command: str, received: bytes | None = None) -> InstrumentTimeout:
+    def _timeout(self, command: str, received: bytes | None = None,
+                 partial_known: bool = True) -> InstrumentTimeout:
         """A timeout naming what did arrive and the line endings in use: a wrong terminator
         looks exactly like a silent instrument otherwise."""
-        seen = (f"received {received!r} so far, without the read terminator"
-                if received else "nothing received")
+        seen = (f"received {received!r} so far, without the read terminator" if received
+                else "nothing received" if partial_known
+                else "no line ending in the read terminator; VISA does not show partial replies")
         return InstrumentTimeout(
             self.instrument, f"no reply within {self.timeout_s:g} s ({seen})", command,
             hint=f"check the instrument is on, {self.resource} is right, and the line endings: "
@@ -278,9 +280,8 @@ class VisaTransport(Transport):
                     # and its clear() would loop forever on the dead socket.
                     self._close_link()
                     raise self._dropped(command, problem) from None
-                received = self._partial()
                 self._clear()
-                raise self._timeout(command, received) from None
+                raise self._timeout(command, None, partial_known=False) from None
             raise self._dropped(command, exc) from None
         except (OSError, EOFError) as exc:  # ConnectionRefusedError, BrokenPipe, reset
             self._close_link()
@@ -310,14 +311,6 @@ class VisaTransport(Transport):
         except (OSError, ValueError) as exc:
             return exc if isinstance(exc, OSError) else OSError(str(exc))
         return None
-
-    def _partial(self) -> bytes | None:
-        """Bytes the VISA session read without finding the terminator (raw sockets only)."""
-        try:
-            session = self._rm.visalib.sessions[self._res.session]
-            return bytes(getattr(session, "_pending_buffer", b"")) or None
-        except Exception:
-            return None
 
     def _clear(self) -> None:
         """Drop late or partial replies so they cannot answer the next query."""
