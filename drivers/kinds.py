@@ -314,8 +314,10 @@ class DeclaredStage(DeclaredDriver, MotionStage):
         for axis in self.axes():
             state = self.axis_state(axis)
             if state not in ("ready", "moving"):
+                asked = self.commands["state" if self.has("state") else "moving"]
                 raise InstrumentFault(self.name, f"axis {axis} {state} at "
-                                      f"{self.position(axis):.3f}", f"state of {axis}", state,
+                                      f"{self.position(axis):.3f}",
+                                      asked.command.format(axis=axis), state,
                                       hint=f"{self.commands['home'].command.format(axis=axis)}"
                                            " after checking the stage")
             moving = moving or state == "moving"

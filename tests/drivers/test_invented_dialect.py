@@ -23,7 +23,6 @@ from drivers.configurable import ConfigurableBlackbody
 from drivers.errors import InstrumentRefused
 from drivers.interfaces import Blackbody
 from drivers.protocol import command_table
-from drivers.recovery import RetryPolicy
 from drivers.testkit import Script, ScriptedTransport
 from drivers.transport import open_transport
 from simulators.bench import SimBench
