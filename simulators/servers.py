@@ -58,13 +58,16 @@ class InstrumentProtocol:
     kind = ""
 
     def __init__(self, bench: SimBench, name: str | None = None,
-                 driver: type[DeclaredDriver] | None = None) -> None:
+                 driver: type[DeclaredDriver] | DeclaredDriver | None = None) -> None:
+        """`driver`: whose declaration to answer, a class or a built driver (a station-file
+        driver carries its declaration on the instance); the built-in one by default."""
         self.bench = bench
         self.name = name or self.kind
         self.count = 0
         self.last_error: tuple[int, str] = (0, "No error")
         declared = driver or type(self).driver
-        self.dialect, self.commands = declared.DIALECT, dict(declared.COMMANDS)
+        self.dialect = getattr(declared, "dialect", None) or declared.DIALECT
+        self.commands = dict(getattr(declared, "commands", None) or declared.COMMANDS)
         self._requests = [(key, re.compile(template_regex(cap.command), re.IGNORECASE))
                           for key, cap in self.commands.items()]
         self._headers = {header(cap.command).upper(): cap.command
@@ -160,6 +163,7 @@ class BlackbodyProtocol(InstrumentProtocol):
             "temperature": lambda f: float(bb.measured_c()),
             "reference_temperature": lambda f: float(bb.measured_reference_c()),
             "stable": lambda f: bool(bb.is_stable()),
+            "go_safe": lambda f: bb.set("absolute", bb.start_c),  # standby at its start
         }
 
     def _set(self, mode: Literal["absolute", "difference"], value: float) -> None:
@@ -236,7 +240,7 @@ class StageProtocol(InstrumentProtocol):
     kind = "stage"
 
     def __init__(self, bench: SimBench, name: str | None = None,
-                 driver: type[DeclaredDriver] | None = None) -> None:
+                 driver: type[DeclaredDriver] | DeclaredDriver | None = None) -> None:
         self.pending: list[FaultRule] = []   # stall / hard_limit waiting for the next MOVE
         super().__init__(bench, name, driver)
 
@@ -309,13 +313,15 @@ def serve(protocol: InstrumentProtocol, name: str | None = None) -> LineServer:
 class BenchServers:
     """One LineServer per simulated instrument; `ports` maps instrument kind -> TCP port."""
 
-    def __init__(self, bench: SimBench) -> None:
+    def __init__(self, bench: SimBench,
+                 drivers: Mapping[str, type[DeclaredDriver] | DeclaredDriver] | None = None
+                 ) -> None:
         self.bench = bench
         self.protocols: dict[str, InstrumentProtocol] = {}
         self.servers: dict[str, LineServer] = {}
         try:
             for kind, cls in PROTOCOLS.items():
-                self.protocols[kind] = cls(bench)
+                self.protocols[kind] = cls(bench, driver=(drivers or {}).get(kind))
                 self.servers[kind] = serve(self.protocols[kind], name=kind)
         except Exception:
             self.close()
@@ -346,6 +352,9 @@ class BenchServers:
         self.close()
 
 
-def start_bench_servers(bench: SimBench) -> BenchServers:
-    """Start the blackbody, wheel and stage servers on 127.0.0.1 (ephemeral ports)."""
-    return BenchServers(bench)
+def start_bench_servers(bench: SimBench, drivers: Mapping[str, type[DeclaredDriver]
+                                                       | DeclaredDriver] | None = None
+                        ) -> BenchServers:
+    """Start the blackbody, wheel and stage servers on 127.0.0.1 (ephemeral ports). `drivers`
+    maps a kind to the declared driver whose dialect its simulator speaks (built-in default)."""
+    return BenchServers(bench, drivers)

@@ -234,3 +234,41 @@ def test_check_bench_and_a_two_temperature_recipe_through_the_station(
     # real time: the run's clock is the wall clock (within a minute of now), not the
     # simulated epoch of 2026-01-01
     assert abs(events[-1]["t"] - time.time()) < 60.0
+
+
+def test_a_station_file_dialect_dry_runs_on_the_simulated_bench(tmp_path: Path) -> None:
+    """Before the instrument arrives: the simulated blackbody speaks the station file's own
+    dialect (CR+LF, T.SET, YES/NO), in simulated time."""
+    import json
+
+    from station.cli import main
+    from station.config import BUILTIN_DIR
+
+    doc = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
+    entry = yaml.safe_load(STATION.read_text(encoding="utf-8"))["instruments"]["blackbody"]
+    doc["instruments"]["blackbody"] = {**entry, "resource": "sim+serial"}
+    doc["simulation"]["camera_truth"] = str(BUILTIN_DIR / "demo_camera_truth.yaml")
+    station = tmp_path / "station.yaml"
+    station.write_text(yaml.safe_dump(doc, sort_keys=False), encoding="utf-8")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("recipe: one-temperature\ndescription: 30 C\nsteps:\n"
+                      "  - blackbody: {mode: absolute, value: 30.0, tolerance: 0.05, hold: 10, "
+                      "timeout: 900}\n", encoding="utf-8")
+    runs = tmp_path / "runs"
+    assert main(["run", str(recipe), "--station", str(station), "--runs", str(runs),
+                 "--plain"]) == 0
+    (run,) = runs.iterdir()
+    events = [json.loads(x) for x in (run / "events.jsonl").read_text().splitlines()]
+    io = [(e["command"], e["reply"]) for e in events
+          if e["type"] == "io" and e["instrument"] == "blackbody"]
+    assert ("T.SET 30.00", "OK") in io and ("T.MODE?", "ABS") in io
+    (settled,) = [e for e in events if e["type"] == "blackbody.settled"]
+    # Simulated source (sim_station.yaml): tau 60 s, slew 0.1 K/s, 2 mK noise, from 22 C.
+    # The 8 K step slews until the error is r tau = 6 K ((8 - 6)/0.1 = 20 s), then decays as
+    # 6 exp(-t/60) into the recipe's 0.05 K (closed form), then holds 10 s; readings are polled
+    # each second, and 4 sigma of noise (8 mK) may move the entry either way.
+    start = next(e["t"] for e in events if e["type"] == "step.start")
+    took = settled["t"] - start
+    assert 20.0 + 60.0 * math.log(6.0 / 0.058) + 10.0 <= took
+    assert took <= 20.0 + 60.0 * math.log(6.0 / 0.042) + 10.0 + 2.0
+    assert abs(settled["reading"] - 30.0) <= 0.05
