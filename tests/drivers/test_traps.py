@@ -270,3 +270,51 @@ def test_any_real_instrument_means_real_time() -> None:
         "this station mixes real (blackbody) and simulated (wheel, stage) instruments: it runs "
         "on real time, so the simulated ones move at their real speed and waits take wall-clock "
         "time")
+
+
+# --- the drivers command and the station loader name the cause ---------------------------------
+
+def test_a_station_naming_a_broken_driver_shows_its_exception(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from sequences.yamlsource import SourceError
+    from station.config import BUILTIN_DIR, load_station
+
+    _dist(tmp_path / "site", "lab_broken", "[nightbench.drivers]\n"
+                                           "lab-broken = no_such_module:Stage\n")
+    monkeypatch.syspath_prepend(str(tmp_path / "site"))
+    text = (BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8")
+    text = text.replace("driver: scpi-stage", "driver: lab-broken")
+    text = text.replace("camera_truth: demo_camera_truth.yaml",
+                        f"camera_truth: {BUILTIN_DIR / 'demo_camera_truth.yaml'}")
+    path = tmp_path / "station.yaml"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(SourceError) as info:
+        load_station(path)
+    (problem,) = [str(p) for p in info.value.problems]
+    assert ("stage: driver 'lab-broken' (no_such_module:Stage, package lab_broken) cannot be "
+            "loaded: ModuleNotFoundError: No module named 'no_such_module'") in problem
+    assert "not a stage driver" not in problem
+
+
+def test_drivers_name_shows_one_drivers_settings(capsys: pytest.CaptureFixture[str]) -> None:
+    from station.cli import main
+
+    assert main(["drivers", "scpi-configurable-blackbody"]) == 0
+    out = " ".join(capsys.readouterr().out.split())  # undo the console's line wrapping
+    assert out.startswith("scpi-configurable-blackbody: blackbody driver from package nightbench")
+    assert "booleans: {'true': [words], 'false': [words]} (default 1 / 0; quote YES, NO, ON, " \
+           "OFF)" in out
+    assert main(["drivers", "scpi-blackbod"]) == 2
+    assert "did you mean 'scpi-blackbody'?" in capsys.readouterr().out
+
+
+def test_drivers_check_reports_a_misspelt_group(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                                capsys: pytest.CaptureFixture[str]) -> None:
+    from station.cli import main
+
+    _dist(tmp_path, "lab_stage", "[nightbench_drivers]\nlab-stage = lab_stage:Stage\n")
+    monkeypatch.syspath_prepend(str(tmp_path))
+    assert main(["drivers", "--check"]) == 2
+    out = " ".join(capsys.readouterr().out.split())
+    assert ("package lab_stage declares lab-stage under the entry-point group "
+            "'nightbench_drivers', which nightbench does not read") in out
