@@ -2,32 +2,28 @@
 `ERR <code>` refusals, a fifth of the replies 200 ms late) driven two ways: by the station-file
 driver (tests/drivers/data/invented_station.yaml) and by a Python declaration
 (tests/drivers/invented_blackbody.py). Both through a scripted conversation, and both over a real
-socket on real time against the bench simulator speaking the Python declaration's dialect.
+socket on real time against the bench simulator speaking the Python declaration's dialect; and
+the station-file dialect dry-run on the simulated bench. Through the station on real time:
+test_invented_station.py.
 """
 
 from __future__ import annotations
 
 import math
-import random
-import threading
 import time
-from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
 import yaml
 
-from drivers.clock import RealClock
 from drivers.configurable import ConfigurableBlackbody
 from drivers.errors import InstrumentRefused
 from drivers.interfaces import Blackbody
 from drivers.protocol import command_table
 from drivers.testkit import Script, ScriptedTransport
 from drivers.transport import open_transport
-from simulators.bench import SimBench
-from simulators.line_server import LineServer, Response
-from simulators.servers import BlackbodyProtocol
+from tests.drivers.conftest import BAND_K, HOLD_S, TAU_S
 from tests.drivers.invented_blackbody import InventedBlackbody
 
 STATION = Path(__file__).parent / "data" / "invented_station.yaml"
@@ -105,40 +101,6 @@ def test_both_journeys_declare_the_same_table() -> None:
     assert yaml_driver.dialect.true_words == py.dialect.true_words == ("YES",)
 
 
-class LateReplies:
-    """A fifth of the replies 200 ms late (seeded), the rest at once: the issue's fake."""
-
-    def __init__(self, protocol: BlackbodyProtocol, seed: int = 7) -> None:
-        self.protocol, self.rng = protocol, random.Random(seed)
-        self.late = 0
-        self.lock = threading.Lock()
-
-    def __call__(self, line: str) -> Response:
-        with self.lock:
-            late = self.rng.random() < 0.2
-            self.late += late
-        if late:
-            time.sleep(0.2)  # the instrument's own latency, in the server thread
-        return self.protocol(line)
-
-
-# Fast physics so a real-time test takes seconds: first-order lag tau = 50 ms, stable within
-# 20 mK held for 0.2 s (simulators/blackbody.py).
-TAU_S, BAND_K, HOLD_S = 0.05, 0.02, 0.2
-
-
-@pytest.fixture
-def fake() -> Iterator[tuple[RealClock, SimBench, LineServer, LateReplies]]:
-    clock = RealClock()
-    bench = SimBench.from_mapping({"blackbody": {
-        "time_constant_s": TAU_S, "slew_k_per_s": 1000.0, "noise_mk": 0.0,
-        "stable_band_k": BAND_K, "stable_hold_s": HOLD_S, "reference_drift_k_per_h": 0.0},
-        "identity": {"blackbody": "Invented Lab,TB-7,0042,2.1"}}, clock)
-    late = LateReplies(BlackbodyProtocol(bench, driver=InventedBlackbody))
-    with LineServer(late, name="tb7", terminator=b"\r\n", line_end=b"\r\n") as server:
-        yield clock, bench, server, late
-
-
 @BUILDERS
 def test_two_temperatures_over_a_socket_on_real_time(fake, build) -> None:
     clock, bench, server, late = fake
@@ -166,74 +128,6 @@ def test_two_temperatures_over_a_socket_on_real_time(fake, build) -> None:
     assert [e for e in events if e["type"].startswith("transport.")] == []  # ...none retried
     sent = [e["command"] for e in events if e["type"] == "io"]
     assert "T.SET 30.00" in sent and "T.SET 35.00" in sent
-
-
-def register_python_driver(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> str:
-    """Register InventedBlackbody as `tb7-blackbody` the way a lab's package would (an entry
-    point in the `nightbench.drivers` group), without installing anything."""
-    info = tmp_path / "site" / "lab_tb7-1.0.dist-info"
-    info.mkdir(parents=True)
-    (info / "METADATA").write_text("Metadata-Version: 2.1\nName: lab_tb7\nVersion: 1.0\n")
-    (info / "entry_points.txt").write_text(
-        "[nightbench.drivers]\ntb7-blackbody = tests.drivers.invented_blackbody:InventedBlackbody\n")
-    monkeypatch.syspath_prepend(str(tmp_path / "site"))
-    return "tb7-blackbody"
-
-
-def mixed_station(tmp_path: Path, port: int, driver: str | None = None) -> Path:
-    """The built-in simulated station with its blackbody replaced by the real-socket TB-7:
-    described by the station file alone, or by naming the Python driver. A station that mixes
-    real and simulated instruments."""
-    from station.config import BUILTIN_DIR
-
-    doc = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
-    entry = yaml.safe_load(STATION.read_text(encoding="utf-8"))["instruments"]["blackbody"]
-    if driver is not None:  # a Python driver takes only the kind's settings
-        entry = {"driver": driver, **{k: entry[k] for k in ("timeout_s", "limits", "safe_c")}}
-    doc["instruments"]["blackbody"] = {**entry, "resource": f"socket://127.0.0.1:{port}"}
-    doc["simulation"]["camera_truth"] = str(BUILTIN_DIR / "demo_camera_truth.yaml")
-    path = tmp_path / "mixed_station.yaml"
-    path.write_text(yaml.safe_dump(doc, sort_keys=False), encoding="utf-8")
-    return path
-
-
-@pytest.mark.parametrize("journey", ["station-file", "python"])
-def test_check_bench_and_a_two_temperature_recipe_through_the_station(
-        fake, tmp_path: Path, capsys: pytest.CaptureFixture[str],
-        monkeypatch: pytest.MonkeyPatch, journey: str) -> None:
-    import json
-
-    from station.cli import main
-
-    clock, bench, server, late = fake
-    driver = register_python_driver(tmp_path, monkeypatch) if journey == "python" else None
-    station = mixed_station(tmp_path, server.port, driver)
-    recipe = tmp_path / "two_temperatures.yaml"
-    recipe.write_text("recipe: two-temperatures\ndescription: 30 C then 35 C\nsteps:\n"
-                      "  - blackbody: {mode: absolute, value: 30.0, tolerance: 0.05, hold: 0.3, "
-                      "timeout: 20}\n"
-                      "  - blackbody: {mode: absolute, value: 35.0, tolerance: 0.05, hold: 0.3, "
-                      "timeout: 20}\n", encoding="utf-8")
-    assert main(["check", str(recipe), "--station", str(station)]) == 0
-    out = capsys.readouterr().out
-    assert "this station mixes real (blackbody) and simulated (wheel, stage, camera)" in out
-    assert "blackbody: Invented Lab,TB-7" in out
-    if journey == "station-file":  # check asks every query bench asks; once is enough
-        assert main(["bench", "--station", str(station)]) == 0
-    runs = tmp_path / "runs"
-    assert main(["run", str(recipe), "--station", str(station), "--runs", str(runs),
-                 "--plain"]) == 0
-    (run,) = runs.iterdir()
-    events = [json.loads(x) for x in (run / "events.jsonl").read_text().splitlines()]
-    settled = [e for e in events if e["type"] == "blackbody.settled"]
-    assert [s["setpoint"] for s in settled] == [30.0, 35.0]
-    for s in settled:  # within the recipe's tolerance
-        assert abs(s["reading"] - s["setpoint"]) <= 0.05
-    sent = [e["command"] for e in events if e["type"] == "io" and e["instrument"] == "blackbody"]
-    assert "T.SET 30.00" in sent and "T.SET 35.00" in sent and "T.STABLE?" in sent
-    # real time: the run's clock is the wall clock (within a minute of now), not the
-    # simulated epoch of 2026-01-01
-    assert abs(events[-1]["t"] - time.time()) < 60.0
 
 
 def test_a_station_file_dialect_dry_runs_on_the_simulated_bench(tmp_path: Path) -> None:
