@@ -71,35 +71,13 @@ BLACKBODY_COMMANDS = command_table(ScpiBlackbody.COMMANDS, ScpiBlackbody.DIALECT
 WHEEL_COMMANDS = command_table(ScpiWheel.COMMANDS, ScpiWheel.DIALECT)
 STAGE_COMMANDS = command_table(ScpiStage.COMMANDS, ScpiStage.DIALECT)
 
-AXIS_STATES = ("READY", "MOVING", "STALLED", "HARDLIMIT")
-
 _ERR_RE = re.compile(r'^ERR\s+(\d+)\s*,\s*"(.*)"$')
 
 
-def error_reply(code: ErrorCode | int, message: str) -> str:
-    """Format an error reply line (without terminator)."""
-    return f'ERR {int(code)},"{message.replace(chr(34), chr(39))}"'
-
-
 def parse_error(reply: str) -> tuple[int, str] | None:
-    """`(code, message)` when `reply` is an error reply, else None."""
+    """`(code, message)` when `reply` is an error reply of our own dialect, else None (used by
+    the hand-written base drivers/scpi.py; declared drivers read their dialect's pattern)."""
     m = _ERR_RE.match(reply.strip())
     if not m:
         return None
     return int(m.group(1)), m.group(2)
-
-
-def split_command(line: str) -> tuple[str, list[str]]:
-    """Header (upper-cased) and arguments of a command line. `MOVE az 1.5` -> (`MOVE`, [az, 1.5])."""
-    parts = line.strip().split()
-    if not parts:
-        return "", []
-    args: list[str] = []
-    for part in parts[1:]:
-        args.extend(a for a in part.split(",") if a)
-    return parts[0].upper(), args
-
-
-def headers(table: tuple[Command, ...]) -> frozenset[str]:
-    """Every header of a command table (for validation and for the simulators' dispatch)."""
-    return frozenset(c.header for c in table)
