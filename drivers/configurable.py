@@ -109,7 +109,13 @@ def _capability(spec: Any, is_query: bool, path: tuple[str, ...],
     for extra in set(spec) - {"query", "reply", "words"}:
         problems.append(SettingsProblem(path + (str(extra),), "unknown key; a query has "
                                         "'query', 'reply' and optionally 'words'"))
-    return Query(spec.get("query"), spec.get("reply"), words=dict(spec.get("words") or {}))
+    words = spec.get("words") or {}
+    if not isinstance(words, Mapping):
+        problems.append(SettingsProblem(path + ("words",), "must map the controller's words "
+                                        "to ours, e.g. {READY: ready, MOVING: moving}"))
+        return None
+    return Query(spec.get("query"), spec.get("reply"), words={str(k): str(v)
+                                                               for k, v in words.items()})
 
 
 class ConfigurableDriver(DeclaredDriver):

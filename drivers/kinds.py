@@ -272,6 +272,9 @@ class DeclaredStage(DeclaredDriver, MotionStage):
             if isinstance(spec, AxisLimits):
                 self._limits[str(axis)] = spec
                 continue
+            if not isinstance(spec, Mapping):
+                problems.append(SettingsProblem(path, "needs {min, max, park, unit}"))
+                continue
             lo, hi = number(spec, "min", path, problems), number(spec, "max", path, problems)
             park = number(spec, "park", path, problems) if "park" in spec else 0.0
             if lo is None or hi is None or park is None:
