@@ -170,7 +170,7 @@ def last_clock_time(run: RunFolder, manifest: Manifest) -> float:
 def resume_clock(inputs: Inputs, start: float) -> Clock:
     """Simulated time for an all-simulated station (continuing from where the run stopped);
     real time as soon as one instrument is real (the clock follows the instruments)."""
-    from station.runner import instrument_origins
+    from station.engine.runner import instrument_origins
 
     if not instrument_origins(inputs.station)[1]:
         return SimClock(start=start + 1.0)

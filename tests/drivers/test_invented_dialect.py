@@ -135,8 +135,8 @@ def test_a_station_file_dialect_dry_runs_on_the_simulated_bench(tmp_path: Path) 
     dialect (CR+LF, T.SET, YES/NO), in simulated time."""
     import json
 
-    from station.cli import main
-    from station.config import BUILTIN_DIR
+    from station.cli.main import main
+    from station.inputs.config import BUILTIN_DIR
 
     doc = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
     entry = yaml.safe_load(STATION.read_text(encoding="utf-8"))["instruments"]["blackbody"]

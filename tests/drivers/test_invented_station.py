@@ -30,7 +30,7 @@ def mixed_station(tmp_path: Path, port: int, driver: str | None = None) -> Path:
     """The built-in simulated station with its blackbody replaced by the real-socket TB-7:
     described by the station file alone, or by naming the Python driver. A station that mixes
     real and simulated instruments."""
-    from station.config import BUILTIN_DIR
+    from station.inputs.config import BUILTIN_DIR
 
     doc = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
     entry = yaml.safe_load(STATION.read_text(encoding="utf-8"))["instruments"]["blackbody"]
@@ -49,7 +49,7 @@ def test_check_bench_and_a_two_temperature_recipe_through_the_station(
         monkeypatch: pytest.MonkeyPatch, journey: str) -> None:
     import json
 
-    from station.cli import main
+    from station.cli.main import main
 
     clock, bench, server, late = fake
     driver = register_python_driver(tmp_path, monkeypatch) if journey == "python" else None

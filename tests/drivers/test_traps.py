@@ -277,7 +277,7 @@ def test_any_real_instrument_means_real_time() -> None:
 def test_a_station_naming_a_broken_driver_shows_its_exception(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     from sequences.yamlsource import SourceError
-    from station.config import BUILTIN_DIR, load_station
+    from station.inputs.config import BUILTIN_DIR, load_station
 
     _dist(tmp_path / "site", "lab_broken", "[nightbench.drivers]\n"
                                            "lab-broken = no_such_module:Stage\n")
@@ -297,7 +297,7 @@ def test_a_station_naming_a_broken_driver_shows_its_exception(
 
 
 def test_drivers_name_shows_one_drivers_settings(capsys: pytest.CaptureFixture[str]) -> None:
-    from station.cli import main
+    from station.cli.main import main
 
     assert main(["drivers", "scpi-configurable-blackbody"]) == 0
     out = " ".join(capsys.readouterr().out.split())  # undo the console's line wrapping
@@ -310,7 +310,7 @@ def test_drivers_name_shows_one_drivers_settings(capsys: pytest.CaptureFixture[s
 
 def test_drivers_check_reports_a_misspelt_group(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
                                                 capsys: pytest.CaptureFixture[str]) -> None:
-    from station.cli import main
+    from station.cli.main import main
 
     _dist(tmp_path, "lab_stage", "[nightbench_drivers]\nlab-stage = lab_stage:Stage\n")
     monkeypatch.syspath_prepend(str(tmp_path))
