@@ -320,7 +320,7 @@ class DeclaredStage(DeclaredDriver, MotionStage):
                 asked = self.commands["state" if self.has("state") else "moving"]
                 raise InstrumentFault(self.name, f"axis {axis} {state} at "
                                       f"{self.position(axis):.3f}",
-                                      asked.command.format(axis=axis), state,
+                                      asked.command.format(axis=axis),
                                       hint=f"{self.commands['home'].command.format(axis=axis)}"
                                            " after checking the stage")
             moving = moving or state == "moving"

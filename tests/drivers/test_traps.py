@@ -318,3 +318,53 @@ def test_drivers_check_reports_a_misspelt_group(tmp_path: Path, monkeypatch: pyt
     out = " ".join(capsys.readouterr().out.split())
     assert ("package lab_stage declares lab-stage under the entry-point group "
             "'nightbench_drivers', which nightbench does not read") in out
+
+
+def test_check_refuses_a_station_whose_safing_command_has_a_typo(
+        fake, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """Through `nightbench check`, against the TB-7 fake on a real socket: the set command
+    `T.SETT` loads (a well-formed template) but the safing dry run fails before anything moves."""
+    from station.cli.main import main
+    from station.inputs.config import BUILTIN_DIR
+
+    clock, bench, server, late = fake
+    doc = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
+    entry = settings_of(station_text('set_temperature: "T.SET {value:.2f}"',
+                                     'set_temperature: "T.SETT {value:.2f}"'))
+    doc["instruments"]["blackbody"] = {"driver": "scpi-configurable-blackbody",
+                                       "resource": f"socket://127.0.0.1:{server.port}", **entry}
+    doc["simulation"]["camera_truth"] = str(BUILTIN_DIR / "demo_camera_truth.yaml")
+    station = tmp_path / "station.yaml"
+    station.write_text(yaml.safe_dump(doc, sort_keys=False), encoding="utf-8")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("recipe: one\ndescription: one setpoint\nsteps:\n"
+                      "  - blackbody: {mode: absolute, value: 30.0, hold: 1, timeout: 60}\n")
+    assert main(["check", str(recipe), "--station", str(station)]) == 4
+    out = " ".join(capsys.readouterr().out.split())
+    assert ("blackbody safing: the safing commands fail: blackbody: refused (error 100); "
+            "command 'T.SETT 22.00'; reply 'ERR 100'") in out
+    assert "check passed" not in out
+
+
+def test_a_declared_stage_state_maps_words_to_busy_and_faults() -> None:
+    settings = {"axes": {"x": {"min": -50, "max": 50, "unit": "mm"}}, "commands": {
+        "identify": {"query": "ID?", "reply": "(?P<value>.+)"},
+        "move": "GO {axis} {value:.3f}",
+        "position": {"query": "WHERE {axis}", "reply": "(?P<value>[-+0-9.]+)"},
+        "state": {"query": "ST {axis}", "reply": "(?P<value>[A-Z]+)",
+                  "words": {"IDLE": "ready", "RUN": "moving", "JAM": "jammed"}},
+        "home": "ZERO {axis}", "stop": "HALT"},
+        "replies": {"ok": "ACK", "error": "NAK (?P<code>\\d+)"}}
+    script = [("GO x 12.500", "ACK"), ("ST x", "RUN"), ("ST x", "IDLE"), ("ST x", "JAM"),
+              ("WHERE x", "7.25")]
+    from drivers.configurable import ConfigurableStage
+    from drivers.errors import InstrumentFault
+
+    with ScriptedTransport(script, instrument="stage") as link:
+        st = ConfigurableStage(link, name="stage", settings=settings)
+        st.move_to({"x": 12.5})
+        assert st.is_moving() is True and st.is_moving() is False
+        with pytest.raises(InstrumentFault) as err:
+            st.is_moving()
+    assert str(err.value) == ("stage: axis x jammed at 7.250; command 'ST x'. ZERO x after "
+                              "checking the stage")
