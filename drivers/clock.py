@@ -81,3 +81,34 @@ class PacedClock(SimClock):
         if seconds > 0:
             time.sleep(seconds / self.speed)
         super().sleep(seconds)
+
+
+def choose_clock(all_simulated: bool, realtime_speed: float | None) -> Clock:
+    """The clock a station runs on: it follows the instruments.
+
+    Any real instrument means real time (a real blackbody does not settle faster because the
+    sequencer skips its waits). Simulated time only when every instrument is simulated; there,
+    `realtime_speed` (the `--realtime` demonstration) paces it against the wall clock.
+
+    >>> choose_clock(False, None).simulated, choose_clock(True, None).simulated
+    (False, True)
+    """
+    if not all_simulated:
+        return RealClock()
+    if realtime_speed is not None:
+        return PacedClock(speed=realtime_speed)
+    return SimClock()
+
+
+def mixed_station_note(simulated: list[str], real: list[str]) -> str | None:
+    """What `check` and `run` print for a station mixing real and simulated instruments
+    (None when it does not mix): it runs on real time, and why.
+
+    >>> mixed_station_note(["wheel", "stage"], ["blackbody"])[:60]
+    'this station mixes real (blackbody) and simulated (wheel, st'
+    """
+    if not simulated or not real:
+        return None
+    return (f"this station mixes real ({', '.join(real)}) and simulated "
+            f"({', '.join(simulated)}) instruments: it runs on real time, so the simulated "
+            "ones move at their real speed and waits take wall-clock time")

@@ -6,6 +6,9 @@ operator reading the log at 8 am knows which box to look at and what it said.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+from typing import Any
+
 
 class InstrumentError(Exception):
     """An instrument did not do what was asked."""
@@ -42,6 +45,23 @@ class InstrumentReplyError(InstrumentError):
 
 class InstrumentRefused(InstrumentError):
     """The instrument answered with an error reply (e.g. a setpoint out of its range)."""
+
+
+class InstrumentFault(InstrumentError):
+    """The instrument reports a fault state of its own (e.g. an axis stalled or on a hard limit)."""
+
+
+class SettingsError(ValueError):
+    """Driver settings from the station file are missing or wrong; `path` is the dotted key
+    (e.g. `limits.min_c`), `detail` the problem without the instrument name and `problems`
+    every problem found (objects with `path` and `message`), so one load shows them all."""
+
+    def __init__(self, message: str, path: str = "", detail: str = "",
+                 problems: Sequence[Any] = ()) -> None:
+        super().__init__(message)
+        self.path = path
+        self.detail = detail or message
+        self.problems = list(problems)
 
 
 class LimitError(ValueError):

@@ -7,8 +7,9 @@ the axis unit (degrees for rotary axes, millimetres for linear ones), times in s
 
 from __future__ import annotations
 
+import math
 from abc import ABC, abstractmethod
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -33,11 +34,33 @@ class Instrument(ABC):
         """Live readings for the console and frame metadata. Never raises on a healthy link."""
         return {}
 
+    def harmless_queries(self) -> dict[str, Callable[[], Any]]:
+        """Every question that changes nothing (identity, readbacks, status), ready to call.
+        `nightbench check` asks them all and parses the replies, so `check` fails wherever
+        `bench` or a run would. Declared drivers list each query; this default asks the
+        identity and the snapshot."""
+        return {"identify": self.identify, "snapshot": self.snapshot}
+
 
 class Blackbody(Instrument):
     """An area blackbody source with a reference (ambient/target plate) sensor."""
 
     kind = "blackbody"
+
+    @abstractmethod
+    def setpoint_range(self, mode: BlackbodyMode) -> tuple[float, float]:
+        """The station's limits for a mode: (min, max) in C (absolute) or K (difference)."""
+
+    def setpoint_problem(self, mode: str, value: float) -> str | None:
+        """Why this setpoint is not allowed (None when it is): the one limit check, used by
+        the driver before sending and by recipe validation and preflight alike."""
+        if mode not in ("absolute", "difference"):
+            return f"mode is 'absolute' or 'difference', not {mode!r}"
+        lo, hi = self.setpoint_range(mode)  # type: ignore[arg-type]
+        unit, what = ("C", "") if mode == "absolute" else ("K", "difference ")
+        if not math.isfinite(value) or not lo <= value <= hi:
+            return f"{what}{value} {unit} outside the station limits {lo}..{hi} {unit}"
+        return None
 
     @abstractmethod
     def set_mode(self, mode: BlackbodyMode) -> None: ...
@@ -77,6 +100,11 @@ class Blackbody(Instrument):
     def go_safe(self) -> None:
         """Drive to the safe setpoint configured for this station (never raises silently)."""
 
+    def safing_problem(self) -> str | None:
+        """Exercise the safing path without changing anything, where the driver can; the
+        problem found, or None. Called by `check` and preflight before anything moves."""
+        return None
+
 
 class TargetWheel(Instrument):
     """A wheel of targets; slots are numbered from 1 and may carry names."""
@@ -88,6 +116,13 @@ class TargetWheel(Instrument):
 
     @abstractmethod
     def slot_names(self) -> dict[int, str]: ...
+
+    def slot_problem(self, slot: int) -> str | None:
+        """Why this slot cannot be selected (None when it can)."""
+        names = self.slot_names()
+        if slot not in names:
+            return f"no slot {slot} in the station file; slots are {sorted(names)}"
+        return None
 
     @abstractmethod
     def select_slot(self, slot: int) -> None:
@@ -140,6 +175,16 @@ class MotionStage(Instrument):
     @abstractmethod
     def limits(self, axis: str) -> AxisLimits:
         """Soft limits (the station's, which may be tighter than the controller's)."""
+
+    def position_problem(self, axis: str, value: float) -> str | None:
+        """Why this target is not allowed (None when it is): the one limit check, used by the
+        driver before moving and by recipe validation and preflight alike."""
+        if axis not in self.axes():
+            return f"no axis {axis!r}; axes are {', '.join(self.axes())}"
+        lim = self.limits(axis)
+        if not math.isfinite(value) or not lim.contains(value):
+            return f"{axis} {value} outside {lim.minimum}..{lim.maximum} {lim.unit}"
+        return None
 
     @abstractmethod
     def move_to(self, targets: dict[str, float]) -> None:

@@ -2,15 +2,21 @@
 
 Our own command set in the style of SCPI (an open standard: upper-case headers with `:` levels,
 `?` for queries). Queries return the value; settings return `OK` or `ERR <code>,"<message>"`.
-The tables below are shared by the drivers (what they send) and the simulators (what they
-answer), so the two cannot drift apart.
+The tables below are derived from the drivers' declarations (drivers/blackbody_scpi.py,
+wheel_scpi.py, stage_scpi.py), which the simulators answer, so the two cannot drift apart.
 """
 
 from __future__ import annotations
 
 import re
+from collections.abc import Mapping
 from dataclasses import dataclass
 from enum import IntEnum
+
+from drivers.blackbody_scpi import ScpiBlackbody
+from drivers.declare import BOOL, INTEGER, NUMBER, TEXT, Capability, Dialect, Setting, header
+from drivers.stage_scpi import ScpiStage
+from drivers.wheel_scpi import ScpiWheel
 
 OK = "OK"
 
@@ -40,71 +46,38 @@ class Command:
         return self.header.endswith("?")
 
 
-BLACKBODY_COMMANDS: tuple[Command, ...] = (
-    Command("*IDN?", "", "maker,model,serial,firmware", "identity"),
-    Command("SOUR:MODE", "ABS|DIFF", "OK", "absolute or difference-to-reference control"),
-    Command("SOUR:MODE?", "", "ABS|DIFF", "control mode"),
-    Command("SOUR:TEMP", "<C>", "OK", "absolute setpoint, degrees C (switches to ABS)"),
-    Command("SOUR:DIFF", "<K>", "OK", "difference setpoint, K (switches to DIFF)"),
-    Command("SOUR:SETP?", "", "<float>", "setpoint in the current mode's unit"),
-    Command("MEAS:TEMP?", "", "<float>", "source (emitter) temperature, C"),
-    Command("MEAS:REF?", "", "<float>", "reference (ambient) sensor temperature, C"),
-    Command("STAT:STAB?", "", "1|0", "controller stability flag"),
-    Command("SYST:ERR?", "", '<code>,"<message>"', "last error, 0 when none (reading clears it)"),
-)
+_SHOWN = {NUMBER: "<number>", INTEGER: "<int>", TEXT: "<text>"}
 
-WHEEL_COMMANDS: tuple[Command, ...] = (
-    Command("*IDN?", "", "maker,model,serial,firmware", "identity"),
-    Command("WHL:COUN?", "", "<int>", "number of slots"),
-    Command("WHL:POS", "<n>", "OK", "start moving to slot n (1-based)"),
-    Command("WHL:POS?", "", "<int>", "slot in the beam, 0 while travelling"),
-    Command("WHL:MOV?", "", "1|0", "travelling"),
-    Command("WHL:HOME", "", "OK", "find the index and go to slot 1"),
-    Command("SYST:ERR?", "", '<code>,"<message>"', "last error, 0 when none"),
-)
 
-STAGE_COMMANDS: tuple[Command, ...] = (
-    Command("*IDN?", "", "maker,model,serial,firmware", "identity"),
-    Command("AXIS:LIST?", "", "<name>,<name>...", "axis names"),
-    Command("AXIS:LIM?", "<ax>", "<min>,<max>", "controller soft limits of an axis"),
-    Command("AXIS:STAT?", "<ax>", "READY|MOVING|STALLED|HARDLIMIT", "axis state"),
-    Command("MOVE", "<ax> <pos>", "OK", "start an absolute move"),
-    Command("POS?", "<ax>", "<float>", "actual position (updates while moving)"),
-    Command("MOV?", "<ax>", "1|0", "axis moving"),
-    Command("HOME", "<ax>", "OK", "move to the index (0) and clear a fault state"),
-    Command("STOP", "", "OK", "stop every axis where it is"),
-    Command("SYST:ERR?", "", '<code>,"<message>"', "last error, 0 when none"),
-)
+def command_table(commands: Mapping[str, Capability], dialect: Dialect) -> tuple[Command, ...]:
+    """The manual's table of a declared driver: header, arguments, reply, meaning."""
+    rows = []
+    for cap in commands.values():
+        head = header(cap.command)
+        args = re.sub(r"\{(\w+)[^}]*\}", r"<\1>", cap.command[len(head):].strip())
+        if isinstance(cap, Setting):
+            reply = dialect.ok or "(none)"
+        elif cap.words:
+            reply = "|".join(cap.words)
+        elif cap.reply == BOOL:
+            reply = "|".join((*dialect.true_words, *dialect.false_words))
+        else:
+            reply = _SHOWN.get(cap.reply, cap.reply)
+        rows.append(Command(head, args, reply, cap.meaning))
+    return tuple(rows)
 
-AXIS_STATES = ("READY", "MOVING", "STALLED", "HARDLIMIT")
+
+BLACKBODY_COMMANDS = command_table(ScpiBlackbody.COMMANDS, ScpiBlackbody.DIALECT)
+WHEEL_COMMANDS = command_table(ScpiWheel.COMMANDS, ScpiWheel.DIALECT)
+STAGE_COMMANDS = command_table(ScpiStage.COMMANDS, ScpiStage.DIALECT)
 
 _ERR_RE = re.compile(r'^ERR\s+(\d+)\s*,\s*"(.*)"$')
 
 
-def error_reply(code: ErrorCode | int, message: str) -> str:
-    """Format an error reply line (without terminator)."""
-    return f'ERR {int(code)},"{message.replace(chr(34), chr(39))}"'
-
-
 def parse_error(reply: str) -> tuple[int, str] | None:
-    """`(code, message)` when `reply` is an error reply, else None."""
+    """`(code, message)` when `reply` is an error reply of our own dialect, else None (used by
+    the hand-written base drivers/scpi.py; declared drivers read their dialect's pattern)."""
     m = _ERR_RE.match(reply.strip())
     if not m:
         return None
     return int(m.group(1)), m.group(2)
-
-
-def split_command(line: str) -> tuple[str, list[str]]:
-    """Header (upper-cased) and arguments of a command line. `MOVE az 1.5` -> (`MOVE`, [az, 1.5])."""
-    parts = line.strip().split()
-    if not parts:
-        return "", []
-    args: list[str] = []
-    for part in parts[1:]:
-        args.extend(a for a in part.split(",") if a)
-    return parts[0].upper(), args
-
-
-def headers(table: tuple[Command, ...]) -> frozenset[str]:
-    """Every header of a command table (for validation and for the simulators' dispatch)."""
-    return frozenset(c.header for c in table)

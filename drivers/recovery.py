@@ -115,6 +115,8 @@ class RetryPolicy:
             except InstrumentError as exc:
                 kind = error_kind(exc)
                 attempt += 1
+                if not getattr(exc, "retryable", True):
+                    raise  # e.g. a well-formed reply the pattern cannot match: same answer again
                 elapsed = clock.now() - start
                 wait = self.backoff(attempt)
                 over_time = (self.give_up_after_s is not None
@@ -142,7 +144,25 @@ class RetryPolicy:
                             "command": command, "attempt": attempt, "error": str(rexc)})
 
 
+def describe(event: Mapping[str, Any]) -> str:
+    """One readable line for a transport event (the log never shows a raw dict)."""
+    kind = str(event.get("type", "event"))
+    who, cmd = event.get("instrument", "?"), event.get("command")
+    text = f"{kind} {who}"
+    if cmd is not None:
+        text += f": {cmd!r}"
+    if "attempt" in event:
+        text += f", attempt {event['attempt']}"
+    if "attempts" in event:
+        text += f", gave up after {event['attempts']} attempts"
+    if "error" in event:
+        text += f": {event['error']}"
+    if "backoff_s" in event:
+        text += f"; next try in {event['backoff_s']:g} s"
+    return text
+
+
 def _emit(events: EventSink | None, level: int, event: dict[str, Any]) -> None:
-    log.log(level, "%s", event)
+    log.log(level, "%s", describe(event))
     if events is not None:
         events(event)

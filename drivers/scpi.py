@@ -1,4 +1,8 @@
-"""A small base for drivers that speak our SCPI-style line protocol (drivers/protocol.py).
+"""A small base for hand-written drivers that speak our SCPI-style line protocol.
+
+New drivers declare their command table instead (drivers/declare.py, drivers/kinds.py); this
+base stays for plug-ins written against it. It assumes the project's own reply habits: `OK`
+for a setting, `ERR <code>,"<message>"` for a refusal, `1`/`0` for booleans.
 
 Deliberately boring: ask a query, parse a number, send a setting and expect `OK`. Retries,
 reconnects, timeouts and io logging live in the transport; this base only turns replies into
@@ -10,23 +14,14 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any, ClassVar
 
-from drivers.errors import InstrumentError, InstrumentRefused, InstrumentReplyError
+from drivers.errors import (  # noqa: F401 - SettingsError, InstrumentFault re-exported
+    InstrumentFault,
+    InstrumentRefused,
+    InstrumentReplyError,
+    SettingsError,
+)
 from drivers.protocol import OK, parse_error
 from drivers.transport import Transport
-
-
-class SettingsError(ValueError):
-    """Driver settings from the station file are missing or wrong; `path` is the dotted key
-    (e.g. `limits.min_c`) and `detail` the problem without the instrument name."""
-
-    def __init__(self, message: str, path: str = "", detail: str = "") -> None:
-        super().__init__(message)
-        self.path = path
-        self.detail = detail or message
-
-
-class InstrumentFault(InstrumentError):
-    """The instrument reports a fault state of its own (e.g. an axis stalled or on a hard limit)."""
 
 
 def _refusal_check(instrument: str, command: str):  # noqa: ANN202 - small parser factory

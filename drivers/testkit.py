@@ -224,7 +224,7 @@ def _refuses(call: Callable[[], Any]) -> bool:
 
 
 def _blackbody(r: _Runner, bb: Blackbody, opts: dict[str, float]) -> None:
-    lo, hi = getattr(bb, "min_c", 0.0), getattr(bb, "max_c", 100.0)
+    lo, hi = bb.setpoint_range("absolute")
     target = opts.get("temperature_c", min(max(30.0, lo), hi))
     tol = opts.get("tolerance_k", 0.05)
 

@@ -33,6 +33,7 @@ from drivers.errors import (
 from drivers.recovery import EventSink, RetryPolicy
 
 log = logging.getLogger("nightbench.transport")
+log.addHandler(logging.NullHandler())  # events go to the run's event log, not to stderr
 T = TypeVar("T")
 
 ACCEPTED_FORMS = (
@@ -147,6 +148,23 @@ class Transport(ABC):
                             instrument=self.instrument, command=command, clock=self.clock,
                             reconnect=self.reconnect, events=self._events)
 
+    def configure(self, *, read_termination: str | None = None,
+                  write_termination: str | None = None,
+                  min_timeout_s: float | None = None) -> None:
+        """Take a driver's declared line endings and minimum timeout; reopen the link when the
+        endings change (a VISA resource takes them when it opens)."""
+        with self._lock:
+            if min_timeout_s is not None and self.timeout_s < min_timeout_s:
+                self.timeout_s = float(min_timeout_s)
+            changed = False
+            for attr, value in (("read_termination", read_termination),
+                                ("write_termination", write_termination)):
+                if value is not None and getattr(self, attr) != value:
+                    setattr(self, attr, value)
+                    changed = True
+            if changed:
+                self.reconnect()
+
     def reconnect(self) -> None:
         """Close and reopen the link (after a drop, or a timeout that may hide one)."""
         with self._lock:
@@ -179,14 +197,23 @@ class Transport(ABC):
             reply = reply.strip("\r\n").strip()
         event = {"type": "io", "instrument": self.instrument, "command": command,
                  "reply": reply, "t": self.clock.now()}
-        log.debug("%s", event)
+        log.debug("%s: sent %r, got %r", self.instrument, command, reply)
         if self._events is not None:
             self._events(event)
         return reply
 
-    def _timeout(self, command: str) -> InstrumentTimeout:
-        return InstrumentTimeout(self.instrument, f"no reply within {self.timeout_s:g} s", command,
-                                 hint=f"check the instrument is on and {self.resource} is right")
+    def _timeout(self, command: str, received: bytes | None = None,
+                 partial_known: bool = True) -> InstrumentTimeout:
+        """A timeout naming what did arrive and the line endings in use: a wrong terminator
+        looks exactly like a silent instrument otherwise."""
+        seen = (f"received {received!r} so far, without the read terminator" if received
+                else "nothing received" if partial_known
+                else "no line ending in the read terminator; VISA does not show partial replies")
+        return InstrumentTimeout(
+            self.instrument, f"no reply within {self.timeout_s:g} s ({seen})", command,
+            hint=f"check the instrument is on, {self.resource} is right, and the line endings: "
+                 f"this link ends each command with {self.write_termination!r} and reads up to "
+                 f"{self.read_termination!r}")
 
     def _dropped(self, command: str | None, exc: BaseException) -> InstrumentConnectionError:
         return InstrumentConnectionError(
@@ -254,7 +281,7 @@ class VisaTransport(Transport):
                     self._close_link()
                     raise self._dropped(command, problem) from None
                 self._clear()
-                raise self._timeout(command) from None
+                raise self._timeout(command, None, partial_known=False) from None
             raise self._dropped(command, exc) from None
         except (OSError, EOFError) as exc:  # ConnectionRefusedError, BrokenPipe, reset
             self._close_link()
@@ -344,7 +371,7 @@ class SerialTransport(Transport):
             # b'' or a partial line: the read timed out. Drop what is buffered so a late reply
             # cannot answer the next command.
             self._drain()
-            raise self._timeout(command)
+            raise self._timeout(command, raw)
         try:
             return raw.decode("ascii")
         except UnicodeDecodeError as exc:

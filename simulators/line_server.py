@@ -1,7 +1,8 @@
 """A threaded TCP line server on 127.0.0.1: one reply line per command line.
 
 The server runs in its own daemon thread (never on the caller's event loop: a blocking pyvisa
-call in the same thread would deadlock). It accepts `\\n` and `\\r\\n` terminated lines. The
+call in the same thread would deadlock). It accepts `\\n` and `\\r\\n` terminated lines, or only
+lines ending in `line_end` when that is not `\\n` (a CR+LF instrument ignores a bare LF). The
 handler returns a `Response`, which may also ask for no reply (a reply timeout), raw bytes (a
 garbled or truncated reply) or a closed connection (a dropped link): the fault injector's tools.
 """
@@ -35,8 +36,9 @@ class _Server(socketserver.ThreadingTCPServer):
     allow_reuse_address = True
     block_on_close = False
 
-    def __init__(self, handler: Handler, name: str, terminator: bytes) -> None:
+    def __init__(self, handler: Handler, name: str, terminator: bytes, line_end: bytes) -> None:
         super().__init__(("127.0.0.1", 0), _LineHandler)
+        self.line_end = line_end
         self.line_handler = handler
         self.name = name
         self.terminator = terminator
@@ -69,6 +71,8 @@ class _LineHandler(socketserver.StreamRequestHandler):
                 return
             if not raw:
                 return
+            if self.server.line_end != b"\n" and not raw.endswith(self.server.line_end):
+                continue  # not this instrument's line ending: it keeps waiting, as a real one
             line = raw.decode("ascii", "replace").strip("\r\n").strip()
             if not line:
                 continue
@@ -95,8 +99,9 @@ class _LineHandler(socketserver.StreamRequestHandler):
 class LineServer:
     """`LineServer(handler, name)` listens on 127.0.0.1 at an ephemeral `port` until `close()`."""
 
-    def __init__(self, handler: Handler, name: str = "sim", terminator: bytes = b"\n") -> None:
-        self._server = _Server(handler, name, terminator)
+    def __init__(self, handler: Handler, name: str = "sim", terminator: bytes = b"\n",
+                 line_end: bytes = b"\n") -> None:
+        self._server = _Server(handler, name, terminator, line_end)
         self.name = name
         self.port: int = self._server.server_address[1]
         self._thread = threading.Thread(target=self._server.serve_forever,

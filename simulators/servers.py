@@ -1,30 +1,31 @@
-"""Protocol handlers: the command tables of drivers/protocol.py answered from the bench physics.
+"""Protocol handlers: a declared driver's command table answered from the bench physics.
 
-Each handler counts the commands it receives, asks the fault plan whether a fault fires, and
-answers exactly one line per command (unless a fault says otherwise). `start_bench_servers`
-puts one LineServer per instrument on 127.0.0.1.
+A simulator answers whatever a declaration (drivers/declare.py) says: the built-in drivers'
+tables by default, or any other dialect (`BlackbodyProtocol(bench, driver=MyBlackbody)`), so
+the driver and its stand-in share one source of truth. Handlers are keyed by capability name
+(`set_temperature`, `stable`...), never by command text. Each handler counts the commands it
+receives, asks the fault plan whether a fault fires, and answers exactly one line per command
+(unless a fault says otherwise). `start_bench_servers` puts one LineServer per instrument on
+127.0.0.1.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
-from typing import Literal
+import re
+from collections.abc import Callable, Mapping
+from typing import Any, Literal
 
-from drivers.protocol import (
-    BLACKBODY_COMMANDS,
-    OK,
-    STAGE_COMMANDS,
-    WHEEL_COMMANDS,
-    Command,
-    ErrorCode,
-    error_reply,
-    headers,
-    split_command,
-)
+from drivers.blackbody_scpi import ScpiBlackbody
+from drivers.declare import DeclaredDriver, Query, Setting, header, template_regex
+from drivers.protocol import ErrorCode
+from drivers.stage_scpi import ScpiStage
+from drivers.wheel_scpi import ScpiWheel
 from simulators.bench import SimBench
 from simulators.faults import FaultRule
 from simulators.line_server import LineServer, Response
+
+Fields = Mapping[str, str]
 
 
 class _Refused(Exception):
@@ -33,45 +34,58 @@ class _Refused(Exception):
         self.code = code
 
 
-def _number(args: list[str], i: int = 0) -> float:
+def _number(fields: Fields, name: str = "value") -> float:
     try:
-        value = float(args[i])
-    except (IndexError, ValueError):
+        value = float(fields[name])
+    except (KeyError, ValueError):
         raise _Refused(ErrorCode.BAD_ARGUMENT, "number expected") from None
     if not math.isfinite(value):
         raise _Refused(ErrorCode.BAD_ARGUMENT, "finite number expected")
     return value
 
 
-def _arg(args: list[str], i: int = 0) -> str:
-    if len(args) <= i:
-        raise _Refused(ErrorCode.BAD_ARGUMENT, "argument missing")
-    return args[i]
+def reply_template(pattern: str) -> str:
+    """A format template from a reply pattern with named groups, for a simulator to answer:
+    `(?P<code>-?\\d+),"(?P<message>.*)"` -> `{code},"{message}"` (simple patterns only)."""
+    text = re.sub(r"\(\?P<(\w+)>(?:[^()]|\([^()]*\))*\)", r"{\1}", pattern)
+    return re.sub(r"\\(.)", r"\1", text)
 
 
 class InstrumentProtocol:
-    """Common part: command counting, wire faults, SYST:ERR?, dispatch by header."""
+    """Common part: command counting, wire faults, the error query, dispatch by capability."""
 
-    table: tuple[Command, ...] = ()
+    driver: type[DeclaredDriver] = DeclaredDriver
     kind = ""
 
-    def __init__(self, bench: SimBench, name: str | None = None) -> None:
+    def __init__(self, bench: SimBench, name: str | None = None,
+                 driver: type[DeclaredDriver] | DeclaredDriver | None = None) -> None:
+        """`driver`: whose declaration to answer, a class or a built driver (a station-file
+        driver carries its declaration on the instance); the built-in one by default."""
         self.bench = bench
         self.name = name or self.kind
         self.count = 0
         self.last_error: tuple[int, str] = (0, "No error")
-        self._handlers: dict[str, Callable[[list[str]], str]] = self._build()
-        missing = headers(self.table) - set(self._handlers)
+        declared = driver or type(self).driver
+        self.dialect = getattr(declared, "dialect", None) or declared.DIALECT
+        self.commands = dict(getattr(declared, "commands", None) or declared.COMMANDS)
+        self._requests = [(key, re.compile(template_regex(cap.command), re.IGNORECASE))
+                          for key, cap in self.commands.items()]
+        self._headers = {header(cap.command).upper(): cap.command
+                         for cap in self.commands.values()}
+        self._handlers: dict[str, Callable[[Fields], Any]] = self._build()
+        missing = set(self.commands) - set(self._handlers)
         if missing:
-            raise RuntimeError(f"{self.kind} protocol handler lacks {sorted(missing)}")
+            raise RuntimeError(f"{self.kind} simulator cannot answer {sorted(missing)}")
 
-    def _build(self) -> dict[str, Callable[[list[str]], str]]:
-        return {"*IDN?": lambda a: self.bench.identity[self.kind], "SYST:ERR?": self._syst_err}
+    def _build(self) -> dict[str, Callable[[Fields], Any]]:
+        return {"identify": lambda f: self.bench.identity[self.kind], "error": self._error}
 
-    def _syst_err(self, args: list[str]) -> str:
+    def _error(self, fields: Fields) -> str:
         code, message = self.last_error
         self.last_error = (0, "No error")
-        return f'{code},"{message}"'
+        cap = self.commands["error"]
+        assert isinstance(cap, Query)
+        return reply_template(cap.reply).format(code=code, message=message)
 
     def physics_faults(self, t: float) -> None:
         """Apply physics faults that fire now (overridden per instrument)."""
@@ -90,19 +104,36 @@ class InstrumentProtocol:
                     self.restart()
                 return Response(None, close=rule.kind != "timeout")
             reply = self.dispatch(line)
-        return _corrupt(reply, rule)
+        return _corrupt(reply, rule) if reply is not None else Response(None)
 
-    def dispatch(self, line: str) -> str:
-        header, args = split_command(line)
-        handler = self._handlers.get(header)
-        if handler is None:
-            self.last_error = (int(ErrorCode.UNKNOWN_COMMAND), f"unknown command {header}")
-            return error_reply(ErrorCode.UNKNOWN_COMMAND, f"unknown command {header}")
+    def dispatch(self, line: str) -> str | None:
+        """The reply line to one command line, in the declared dialect."""
+        line = line.strip()
         try:
-            return handler(args)
+            for key, request in self._requests:
+                m = request.fullmatch(line)
+                if m is not None:
+                    return self._answer(key, self._handlers[key](m.groupdict()))
+            head = line.split()[0].upper() if line.split() else ""
+            if head in self._headers:
+                raise _Refused(ErrorCode.BAD_ARGUMENT,
+                               f"arguments do not match {self._headers[head]}")
+            raise _Refused(ErrorCode.UNKNOWN_COMMAND, f"unknown command {head}")
         except _Refused as exc:
             self.last_error = (int(exc.code), str(exc))
-            return error_reply(exc.code, str(exc))
+            return self.dialect.refusal(exc.code, str(exc))
+
+    def _answer(self, key: str, value: Any) -> str | None:
+        cap = self.commands[key]
+        if isinstance(cap, Setting):
+            return self.dialect.ok
+        if isinstance(value, bool):
+            return (self.dialect.true_words if value else self.dialect.false_words)[0]
+        if isinstance(value, float):
+            return f"{value:.4f}"
+        if cap.words and value not in cap.words:
+            return {ours: word for word, ours in cap.words.items()}[value]
+        return str(value)
 
 
 def _corrupt(reply: str, rule: FaultRule | None) -> Response:
@@ -117,42 +148,42 @@ def _corrupt(reply: str, rule: FaultRule | None) -> Response:
 
 
 class BlackbodyProtocol(InstrumentProtocol):
-    table = BLACKBODY_COMMANDS
+    driver = ScpiBlackbody
     kind = "blackbody"
 
-    def _build(self) -> dict[str, Callable[[list[str]], str]]:
+    def _build(self) -> dict[str, Callable[[Fields], Any]]:
         bb = self.bench.blackbody
         return {
             **super()._build(),
-            "SOUR:MODE": self._mode,
-            "SOUR:MODE?": lambda a: "ABS" if bb.mode == "absolute" else "DIFF",
-            "SOUR:TEMP": lambda a: self._set("absolute", _number(a)),
-            "SOUR:DIFF": lambda a: self._set("difference", _number(a)),
-            "SOUR:SETP?": lambda a: f"{bb.setpoint_value:.4f}",
-            "MEAS:TEMP?": lambda a: f"{bb.measured_c():.4f}",
-            "MEAS:REF?": lambda a: f"{bb.measured_reference_c():.4f}",
-            "STAT:STAB?": lambda a: "1" if bb.is_stable() else "0",
+            "set_mode": self._mode,
+            "mode": lambda f: bb.mode,
+            "set_temperature": lambda f: self._set("absolute", _number(f)),
+            "set_difference": lambda f: self._set("difference", _number(f)),
+            "setpoint": lambda f: float(bb.setpoint_value),
+            "temperature": lambda f: float(bb.measured_c()),
+            "reference_temperature": lambda f: float(bb.measured_reference_c()),
+            "stable": lambda f: bool(bb.is_stable()),
+            "go_safe": lambda f: bb.set("absolute", bb.start_c),  # standby at its start
         }
 
-    def _set(self, mode: Literal["absolute", "difference"], value: float) -> str:
+    def _set(self, mode: Literal["absolute", "difference"], value: float) -> None:
         why = self.bench.blackbody.check(mode, value)
         if why:
             raise _Refused(ErrorCode.OUT_OF_RANGE, why)
         self.bench.blackbody.set(mode, value)
-        return OK
 
-    def _mode(self, args: list[str]) -> str:
+    def _mode(self, fields: Fields) -> None:
         """Switching mode keeps the absolute setpoint (bumpless)."""
         bb = self.bench.blackbody
-        want = _arg(args).upper()
-        if want not in ("ABS", "DIFF"):
-            raise _Refused(ErrorCode.BAD_ARGUMENT, "mode is ABS or DIFF")
+        words = {w.upper(): ours for w, ours in self.commands["mode"].words.items()}  # type: ignore[union-attr]
+        want = words.get(fields["mode"].upper())
+        if want is None:
+            raise _Refused(ErrorCode.BAD_ARGUMENT, f"mode is {' or '.join(words)}")
         target = bb.setpoint_c()
-        if want == "ABS":
+        if want == "absolute":
             bb.set("absolute", target)
         else:
             bb.set("difference", target - bb.reference_c())
-        return OK
 
     def physics_faults(self, t: float) -> None:
         plan, bb = self.bench.faults, self.bench.blackbody
@@ -176,22 +207,22 @@ def _fault_time(rule: FaultRule, t0: float, now: float) -> float:
 
 
 class WheelProtocol(InstrumentProtocol):
-    table = WHEEL_COMMANDS
+    driver = ScpiWheel
     kind = "wheel"
 
-    def _build(self) -> dict[str, Callable[[list[str]], str]]:
+    def _build(self) -> dict[str, Callable[[Fields], Any]]:
         wh = self.bench.wheel
         return {
             **super()._build(),
-            "WHL:COUN?": lambda a: str(wh.slots),
-            "WHL:POS": self._move,
-            "WHL:POS?": lambda a: str(wh.position()),
-            "WHL:MOV?": lambda a: "1" if wh.is_moving() else "0",
-            "WHL:HOME": lambda a: (wh.home(), OK)[1],
+            "slot_count": lambda f: int(wh.slots),
+            "select_slot": self._move,
+            "current_slot": lambda f: int(wh.position()),
+            "moving": lambda f: bool(wh.is_moving()),
+            "home": lambda f: wh.home(),
         }
 
-    def _move(self, args: list[str]) -> str:
-        value = _number(args)
+    def _move(self, fields: Fields) -> None:
+        value = _number(fields, "slot")
         if not value.is_integer():
             raise _Refused(ErrorCode.BAD_ARGUMENT, "slot is a whole number")
         why = self.bench.wheel.check(int(value))
@@ -199,48 +230,48 @@ class WheelProtocol(InstrumentProtocol):
             code = ErrorCode.BUSY if "moving" in why else ErrorCode.OUT_OF_RANGE
             raise _Refused(code, why)
         self.bench.wheel.move(int(value))
-        return OK
 
     def restart(self) -> None:
         self.bench.wheel.restart()
 
 
 class StageProtocol(InstrumentProtocol):
-    table = STAGE_COMMANDS
+    driver = ScpiStage
     kind = "stage"
 
-    def __init__(self, bench: SimBench, name: str | None = None) -> None:
-        super().__init__(bench, name)
+    def __init__(self, bench: SimBench, name: str | None = None,
+                 driver: type[DeclaredDriver] | DeclaredDriver | None = None) -> None:
         self.pending: list[FaultRule] = []   # stall / hard_limit waiting for the next MOVE
+        super().__init__(bench, name, driver)
 
-    def _build(self) -> dict[str, Callable[[list[str]], str]]:
+    def _build(self) -> dict[str, Callable[[Fields], Any]]:
         st = self.bench.stage
         return {
             **super()._build(),
-            "AXIS:LIST?": lambda a: ",".join(st.axes()),
-            "AXIS:LIM?": lambda a: "{:g},{:g}".format(*self._limits(a)),
-            "AXIS:STAT?": lambda a: st.state(self._axis(a)),
-            "MOVE": self._move,
-            "POS?": lambda a: f"{st.position(self._axis(a)):.4f}",
-            "MOV?": lambda a: "1" if st.is_moving(self._axis(a)) else "0",
-            "HOME": lambda a: (st.home(self._axis(a)), OK)[1],
-            "STOP": lambda a: (st.stop(), OK)[1],
+            "axis_list": lambda f: ",".join(st.axes()),
+            "axis_limits": lambda f: "{:g},{:g}".format(*self._limits(f)),
+            "state": lambda f: st.state(self._axis(f)),
+            "move": self._move,
+            "position": lambda f: float(st.position(self._axis(f))),
+            "moving": lambda f: bool(st.is_moving(self._axis(f))),
+            "home": lambda f: st.home(self._axis(f)),
+            "stop": lambda f: st.stop(),
         }
 
-    def _axis(self, args: list[str]) -> str:
-        axis = _arg(args)
+    def _axis(self, fields: Fields) -> str:
+        axis = fields["axis"]
         if axis not in self.bench.stage.specs:
             raise _Refused(ErrorCode.BAD_ARGUMENT,
                            f"no axis {axis}; axes are {','.join(self.bench.stage.axes())}")
         return axis
 
-    def _limits(self, args: list[str]) -> tuple[float, float]:
-        spec = self.bench.stage.specs[self._axis(args)]
+    def _limits(self, fields: Fields) -> tuple[float, float]:
+        spec = self.bench.stage.specs[self._axis(fields)]
         return spec.minimum, spec.maximum
 
-    def _move(self, args: list[str]) -> str:
-        axis = self._axis(args)
-        target = _number(args, 1)
+    def _move(self, fields: Fields) -> None:
+        axis = self._axis(fields)
+        target = _number(fields)
         st = self.bench.stage
         why = st.check(axis, target)
         if why:
@@ -256,7 +287,6 @@ class StageProtocol(InstrumentProtocol):
                 st.move(axis, target, stall_fraction=float(rule.params.get("fraction", 0.5)))
             else:
                 st.move(axis, target, runaway=True)
-        return OK
 
     def physics_faults(self, t: float) -> None:
         for kind in ("stall", "hard_limit"):
@@ -272,17 +302,27 @@ PROTOCOLS: dict[str, type[InstrumentProtocol]] = {
     "blackbody": BlackbodyProtocol, "wheel": WheelProtocol, "stage": StageProtocol}
 
 
+def serve(protocol: InstrumentProtocol, name: str | None = None) -> LineServer:
+    """A LineServer answering `protocol` with its dialect's line endings."""
+    d = protocol.dialect
+    return LineServer(protocol, name=name or protocol.name,
+                      terminator=d.read_termination.encode(),
+                      line_end=d.write_termination.encode())
+
+
 class BenchServers:
     """One LineServer per simulated instrument; `ports` maps instrument kind -> TCP port."""
 
-    def __init__(self, bench: SimBench) -> None:
+    def __init__(self, bench: SimBench,
+                 drivers: Mapping[str, type[DeclaredDriver] | DeclaredDriver] | None = None
+                 ) -> None:
         self.bench = bench
         self.protocols: dict[str, InstrumentProtocol] = {}
         self.servers: dict[str, LineServer] = {}
         try:
             for kind, cls in PROTOCOLS.items():
-                self.protocols[kind] = cls(bench)
-                self.servers[kind] = LineServer(self.protocols[kind], name=kind)
+                self.protocols[kind] = cls(bench, driver=(drivers or {}).get(kind))
+                self.servers[kind] = serve(self.protocols[kind], name=kind)
         except Exception:
             self.close()
             raise
@@ -312,6 +352,9 @@ class BenchServers:
         self.close()
 
 
-def start_bench_servers(bench: SimBench) -> BenchServers:
-    """Start the blackbody, wheel and stage servers on 127.0.0.1 (ephemeral ports)."""
-    return BenchServers(bench)
+def start_bench_servers(bench: SimBench, drivers: Mapping[str, type[DeclaredDriver]
+                                                       | DeclaredDriver] | None = None
+                        ) -> BenchServers:
+    """Start the blackbody, wheel and stage servers on 127.0.0.1 (ephemeral ports). `drivers`
+    maps a kind to the declared driver whose dialect its simulator speaks (built-in default)."""
+    return BenchServers(bench, drivers)

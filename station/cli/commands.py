@@ -30,6 +30,7 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
     clock = make_clock(inputs.station, args.realtime)
+    _say_if_mixed(inputs.station, console)
     run = new_run_folder(inputs, args.runs, clock)
     manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, args.seed))
     manifest.write(run.path)
@@ -64,15 +65,20 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
             for i, s in enumerate(inputs.plan.steps)]
     print_table(console, f"plan of {inputs.plan.recipe} on {inputs.station.name}",
                 ["#", "step id", "kind", "parameters", "est. s"], rows)
+    _say_if_mixed(inputs.station, console)
     if not args.no_connect:
         try:
-            with open_bench(inputs.station, SimClock() if inputs.station.simulated
-                            else make_clock(inputs.station, None),
+            with open_bench(inputs.station, make_clock(inputs.station, None),
                             frame_rate_hz=inputs.uut.frame_rate_hz) as bench:
                 for role, inst in bench.instruments().items():
                     console.print(f"{role}: {inst.identify()}", highlight=False, markup=False)
+                problems = _harmless_problems(bench)
         except InstrumentError as exc:
             console.print(f"[red]instrument not answering:[/] {exc}", highlight=False)
+            return exitcodes.INSTRUMENT
+        for problem in problems:
+            console.print(f"[red]{problem}[/]", highlight=False)
+        if problems:
             return exitcodes.INSTRUMENT
     if inputs.warnings:
         console.print("[bold yellow]Warnings:[/]", highlight=False)
@@ -84,6 +90,32 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
     note = f" with {len(inputs.warnings)} warning(s)" if inputs.warnings else ""
     console.print(f"check passed{note}: nothing was moved", highlight=False)
     return exitcodes.OK
+
+
+def _say_if_mixed(station, console: Console) -> None:
+    """A station mixing real and simulated instruments runs on real time: say so."""
+    from drivers.clock import mixed_station_note
+    from station.engine.runner import instrument_origins
+
+    note = mixed_station_note(*instrument_origins(station))
+    if note:
+        console.print(f"note: {note}", highlight=False, markup=False)
+
+
+def _harmless_problems(bench) -> list[str]:
+    """Ask every harmless query of every instrument and the blackbody's safing dry run, as
+    `bench` and a run will; each failure as one line."""
+    problems = []
+    for role, inst in bench.instruments().items():
+        for label, ask in inst.harmless_queries().items():
+            try:
+                ask()
+            except InstrumentError as exc:
+                problems.append(f"{role}: {label}: {exc}")
+    safing = getattr(bench.blackbody, "safing_problem", lambda: None)()
+    if safing is not None and not safing.startswith("not exercised"):
+        problems.append(f"blackbody safing: {safing}")
+    return problems
 
 
 def _brief(params: dict) -> str:
@@ -127,11 +159,41 @@ def cmd_bench(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
-    from drivers.registry import list_drivers
-    from station.cli.console import print_table
+    from rich.table import Table
 
-    rows = [(d.name, d.kind, d.package, ", ".join(d.settings)) for d in list_drivers()]
-    print_table(console, "drivers", ["name", "kind", "package", "settings"], rows)
+    from drivers.registry import UnknownDriverError, driver_info, list_drivers, misspelt_groups
+
+    if getattr(args, "name", None):
+        try:
+            d = driver_info(args.name)
+        except UnknownDriverError as exc:
+            console.print(str(exc), highlight=False, markup=False)
+            return exitcodes.INVALID
+        console.print(f"{d.name}: {d.kind} driver from package {d.package} ({d.target})",
+                      highlight=False, markup=False)
+        if d.error:
+            console.print(d.error, highlight=False, markup=False)
+        for key, text in d.settings.items():
+            console.print(f"  {key}: {text}", highlight=False, markup=False)
+        return exitcodes.OK
+    infos = list_drivers()
+    table = Table(title="drivers")
+    table.add_column("name", no_wrap=True, min_width=max((len(d.name) for d in infos), default=4))
+    table.add_column("kind", no_wrap=True)
+    table.add_column("package", no_wrap=True,
+                     min_width=max((len(d.package) for d in infos), default=7))
+    table.add_column("settings")
+    for d in infos:
+        table.add_row(d.name, d.kind, d.package, d.error or ", ".join(d.settings))
+    console.print(table)
+    if getattr(args, "check", False):
+        found = misspelt_groups()
+        for group in found:
+            console.print(f"[red]{group}[/]", highlight=False)
+        broken = [d for d in infos if d.error]
+        if found or broken:
+            return exitcodes.INVALID
+        console.print("every installed driver loads; no misspelt entry-point group")
     return exitcodes.OK
 
 

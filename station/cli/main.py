@@ -4,7 +4,8 @@
     nightbench check RECIPE [...]          validate, expand, preflight-estimate; moves nothing
     nightbench recipes                     list built-in recipes
     nightbench bench [--station FILE]      connect to every instrument and show identity and state
-    nightbench drivers                     list drivers with kind, package and settings
+    nightbench drivers [NAME] [--check]    list drivers (or one driver's settings); --check
+                                           also reports misspelt entry-point groups
     nightbench analyze NAME RUN_FOLDER [--out DIR | --replace]   re-run a registered analysis
     nightbench analyze distortion --frame TIFF --geometry FILE [--out DIR]
     nightbench resume RUN_FOLDER [--force]
@@ -74,7 +75,10 @@ def build_parser() -> argparse.ArgumentParser:
     bench = sub.add_parser("bench", help="connect to every instrument and show its state")
     bench.add_argument("--station", type=Path, default=None)
 
-    sub.add_parser("drivers", help="list the drivers this installation knows")
+    drivers = sub.add_parser("drivers", help="list the drivers this installation knows")
+    drivers.add_argument("name", nargs="?", default=None, help="show one driver's settings")
+    drivers.add_argument("--check", action="store_true",
+                         help="also report broken drivers and misspelt entry-point groups")
 
     from station.analyses.builtin import builtin_registry
 

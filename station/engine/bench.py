@@ -97,6 +97,21 @@ def camera_truth(station: StationConfig) -> CameraTruth:
     return truth_from_mapping(mapping)
 
 
+def _declared(station: StationConfig) -> dict[str, Any]:
+    """Simulated instruments whose driver is declared (drivers/declare.py): the simulator
+    speaks that declaration's dialect, so a station-file dialect can be dry-run."""
+    from drivers.declare import DeclaredDriver
+    from drivers.registry import find_driver
+
+    out: dict[str, Any] = {}
+    for role, entry in station.instruments.items():
+        if role != "camera" and entry.resource.startswith("sim"):
+            cls = find_driver(entry.driver)
+            if isinstance(cls, type) and issubclass(cls, DeclaredDriver):
+                out[role] = cls(None, name=role, settings=entry.settings)
+    return out
+
+
 @contextmanager
 def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None = None,
                frame_rate_hz: float = 30.0, seed: int = 1,
@@ -117,7 +132,7 @@ def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None
                                         seed=seed)
             if fault_plan is not None:
                 sim.faults = fault_plan
-            servers = stack.enter_context(start_bench_servers(sim))
+            servers = stack.enter_context(start_bench_servers(sim, _declared(station)))
             ports = dict(servers.ports)
         built: dict[str, Instrument] = {}
         for role, entry in station.instruments.items():

@@ -172,8 +172,11 @@ def last_clock_time(run: RunFolder, manifest: Manifest) -> float:
 
 
 def resume_clock(inputs: Inputs, start: float) -> Clock:
-    """Simulated time for a simulated station (continuing from where the run stopped)."""
-    if inputs.station.simulated:
+    """Simulated time for an all-simulated station (continuing from where the run stopped);
+    real time as soon as one instrument is real (the clock follows the instruments)."""
+    from station.engine.runner import instrument_origins
+
+    if not instrument_origins(inputs.station)[1]:
         return SimClock(start=start + 1.0)
     return RealClock()
 

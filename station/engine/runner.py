@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 
-from drivers.clock import Clock, PacedClock, RealClock, SimClock
+from drivers.clock import Clock, choose_clock
 from drivers.errors import InstrumentError
 from sequences.estimate import Estimate, estimate
 from sequences.library import find_recipe
@@ -92,13 +92,17 @@ def _place(problem: Problem) -> tuple[str, int, int]:
     return (problem.where.file, problem.where.line, problem.where.column)
 
 
+def instrument_origins(station: StationConfig) -> tuple[list[str], list[str]]:
+    """(simulated roles, real roles) of a station, from the instruments' resources."""
+    sim = [r for r, e in station.instruments.items()
+           if station.simulated and e.resource.startswith("sim")]
+    return sim, [r for r in station.instruments if r not in sim]
+
+
 def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
-    """Simulated time for a simulated station unless a real-time demonstration is asked for."""
-    if not station.simulated:
-        return RealClock()
-    if realtime_speed is not None:
-        return PacedClock(speed=realtime_speed)
-    return SimClock()
+    """The clock follows the instruments: any real one means real time (choose_clock)."""
+    sim, real = instrument_origins(station)
+    return choose_clock(not real, realtime_speed)
 
 
 def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Emit, console: Console,

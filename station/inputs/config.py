@@ -198,6 +198,11 @@ def _check_driver(check: _Checker, entry: MarkedDict, role: str, known: Mapping[
         check.add(entry.ref_of("driver"), f"{role}: unknown driver '{name}'",
                   hint + "known drivers: " + ", ".join(sorted(known))
                   + " (run 'nightbench drivers' for their settings)")
+    elif known[name] == "broken":
+        from drivers.registry import driver_info
+
+        check.add(entry.ref_of("driver"), f"{role}: {driver_info(name).error}",
+                  "fix or reinstall the package that provides it ('nightbench drivers --check')")
     elif known[name] not in (role, "any"):
         check.add(entry.ref_of("driver"),
                   f"{role}: driver '{name}' is a {known[name]} driver, not a {role} driver",

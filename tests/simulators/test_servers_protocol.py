@@ -77,3 +77,34 @@ def test_from_mapping_reads_station_style_axes_and_rejects_unknown_keys():
     assert bench.stage_angles() == {"x": 0.0}
     with pytest.raises(ValueError, match="unknown key"):
         SimBench.from_mapping({"blackbod": {}}, SimClock())
+
+
+def test_the_simulator_answers_any_declared_dialect():
+    """The same physics behind an invented dialect (tests/drivers/invented_blackbody.py):
+    requests matched from the declaration's templates, replies in its words and refusals."""
+    from simulators.servers import BlackbodyProtocol
+    from tests.drivers.invented_blackbody import InventedBlackbody
+
+    clock = SimClock()
+    bench = SimBench.from_mapping({"blackbody": {"noise_mk": 0.0}}, clock)
+    tb7 = BlackbodyProtocol(bench, driver=InventedBlackbody)
+    assert tb7("T.SET 30").text == "OK"
+    assert tb7("T.SET?").text == "30.0000"
+    assert tb7("T.MODE?").text == "ABS"
+    assert tb7("T.STABLE?").text == "NO"
+    clock.sleep(3600.0)                    # an hour at tau = 60 s: settled
+    assert tb7("T.STABLE?").text == "YES"
+    assert tb7("T.MODE REL").text == "OK" and tb7("T.MODE?").text == "REL"
+    assert tb7("T.SET warm").text == "ERR 101"      # bare codes: this dialect has no message
+    assert tb7("T.ERR?").text == "101"
+    assert tb7("*IDN?").text == "ERR 100"           # the built-in dialect's words are unknown
+    assert tb7("SOUR:TEMP 30").text == "ERR 100"
+
+
+def test_the_command_tables_come_from_the_driver_declarations():
+    from drivers.blackbody_scpi import ScpiBlackbody
+
+    assert [c.header for c in BLACKBODY_COMMANDS] == [
+        c.command.split()[0] for c in ScpiBlackbody.COMMANDS.values()]
+    stab = next(c for c in BLACKBODY_COMMANDS if c.header == "STAT:STAB?")
+    assert stab.reply == "1|0"
