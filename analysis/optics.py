@@ -23,7 +23,7 @@ The system MTF is their product (cascade of linear shift-invariant stages).
 >>> round(float(pixel_aperture_mtf(0.5)), 4)
 0.6366
 >>> round(float(diffraction_mtf_mono(0.5 / (10e-3 * 2.0), 10.0, 2.0)), 4)
-0.3910
+0.391
 """
 
 from __future__ import annotations

@@ -141,7 +141,7 @@ def pixel_integrated_edge(width: int, height: int, point: tuple[float, float],
 
 def edge_spread_table(optics_mtf: Callable[[np.ndarray], np.ndarray], normal: tuple[float, float],
                       cutoff_cyc_per_px: float, reach_px: float = 40.0,
-                      step_px: float = 0.01) -> tuple[np.ndarray, np.ndarray]:
+                      step_px: float = 0.02) -> tuple[np.ndarray, np.ndarray]:
     """Pixel-integrated edge-spread function along the edge normal, tabulated on [0, reach].
 
     ``E(d) = 1/2 + (1/pi) int_0^fc T(f) sin(2 pi f d) / f df`` (a step's image through an even
