@@ -87,31 +87,51 @@ def noise_3d(stack: np.ndarray, sitf_counts_per_k: float | None = None, *,
     Bad pixels should be replaced or the stack cropped first: the decomposition needs a full
     rectangular cube (one hot pixel would read as fixed-pattern noise).
     """
-    u = np.asarray(stack, dtype=np.float64)
-    if u.ndim != 3 or min(u.shape) < 2:
+    src = np.asarray(stack)
+    if src.ndim != 3 or min(src.shape) < 2:
         raise ValueError(f"3-D noise needs a stack (frames, rows, cols) with at least 2 of each, "
-                         f"got shape {u.shape}")
-    if not np.all(np.isfinite(u)):
-        raise ValueError("3-D noise: the stack holds NaN or inf; replace bad pixels first")
-    n_t, n_v, n_h = u.shape
-    s = u.mean()
-    m_t = u.mean(axis=(1, 2)) - s                       # (T,)
-    m_v = u.mean(axis=(0, 2)) - s                       # (V,)
-    m_h = u.mean(axis=(0, 1)) - s                       # (H,)
-    m_tv = u.mean(axis=2) - s - m_t[:, None] - m_v[None, :]
-    m_th = u.mean(axis=1) - s - m_t[:, None] - m_h[None, :]
-    m_vh = u.mean(axis=0) - s - m_v[:, None] - m_h[None, :]
-    resid = (u - s - m_t[:, None, None] - m_v[None, :, None] - m_h[None, None, :]
-             - m_tv[:, :, None] - m_th[:, None, :] - m_vh[None, :, :])
-    comps = {"t": m_t, "v": m_v, "h": m_h, "tv": m_tv, "th": m_th, "vh": m_vh, "tvh": resid}
-    raw = {k: float(np.sqrt(np.mean(c * c))) for k, c in comps.items()}
-    # Mean squares: sum of squares over the full cube / degrees of freedom.
+                         f"got shape {src.shape}")
+    n_t, n_v, n_h = src.shape
+    # One pass in chunks of frames (memory stays a few frames, whatever the stack's length):
+    # the directional means and the total sum of squares about a provisional level (the first
+    # frame's mean, against cancellation). The components are orthogonal, so the finest one's
+    # sum of squares is the total minus the others'.
+    ref = float(np.mean(src[0], dtype=np.float64))
+    sum_t = np.zeros(n_t)
+    sum_tv = np.zeros((n_t, n_v))
+    sum_th = np.zeros((n_t, n_h))
+    sum_vh = np.zeros((n_v, n_h))
+    ss_total = 0.0
+    chunk = max(1, int(4_000_000 // (n_v * n_h)))
+    for i in range(0, n_t, chunk):
+        c = src[i:i + chunk].astype(np.float64) - ref
+        if not np.all(np.isfinite(c)):
+            raise ValueError("3-D noise: the stack holds NaN or inf; replace bad pixels first")
+        sum_tv[i:i + chunk] = c.sum(axis=2)
+        sum_th[i:i + chunk] = c.sum(axis=1)
+        sum_t[i:i + chunk] = sum_tv[i:i + chunk].sum(axis=1)
+        sum_vh += c.sum(axis=0)
+        ss_total += float(np.einsum("ijk,ijk->", c, c))
+    n = n_t * n_v * n_h
+    s_rel = sum_t.sum() / n
+    s = ref + s_rel
+    m_t = sum_t / (n_v * n_h) - s_rel
+    m_v = sum_vh.sum(axis=1) / (n_t * n_h) - s_rel
+    m_h = sum_vh.sum(axis=0) / (n_t * n_v) - s_rel
+    m_tv = sum_tv / n_h - s_rel - m_t[:, None] - m_v[None, :]
+    m_th = sum_th / n_v - s_rel - m_t[:, None] - m_h[None, :]
+    m_vh = sum_vh / n_t - s_rel - m_v[:, None] - m_h[None, :]
+    comps = {"t": m_t, "v": m_v, "h": m_h, "tv": m_tv, "th": m_th, "vh": m_vh}
     size = {"t": n_v * n_h, "v": n_t * n_h, "h": n_t * n_v, "tv": n_h, "th": n_v, "vh": n_t,
             "tvh": 1}
+    ss = {k: size[k] * float(np.sum(c * c)) for k, c in comps.items()}
+    ss["tvh"] = max(ss_total - n * s_rel * s_rel - sum(ss.values()), 0.0)
+    raw = {k: math.sqrt(ss[k] / n) for k in COMPONENTS}
+    # Mean squares: sum of squares over the full cube / degrees of freedom.
     dof = {"t": n_t - 1, "v": n_v - 1, "h": n_h - 1, "tv": (n_t - 1) * (n_v - 1),
            "th": (n_t - 1) * (n_h - 1), "vh": (n_v - 1) * (n_h - 1),
            "tvh": (n_t - 1) * (n_v - 1) * (n_h - 1)}
-    ms = {k: size[k] * float(np.sum(comps[k] ** 2)) / dof[k] for k in COMPONENTS}
+    ms = {k: ss[k] / dof[k] for k in COMPONENTS}
     # E[MS] = sum of coefficient x variance component (balanced random-effects model);
     # invert for each variance component as a linear combination of mean squares.
     coef = {
@@ -140,3 +160,30 @@ def noise_3d(stack: np.ndarray, sitf_counts_per_k: float | None = None, *,
                          sigma_raw={k: raw[k] for k in COMPONENTS}, sigma=sigma,
                          sigma_uncertainty=unc, sitf_counts_per_k=sitf_counts_per_k,
                          conditions=dict(conditions or {}))
+
+
+def replace_bad_pixels(stack: np.ndarray, bad_pixel_mask: np.ndarray) -> np.ndarray:
+    """A float copy of `stack` (frames, rows, cols) with each bad pixel replaced, frame by frame,
+    by the mean of its good 8-neighbours (common practice before a 3-D noise decomposition, whose
+    cube must be full); a bad pixel with no good neighbour gets the frame's good mean.
+    """
+    from scipy.ndimage import convolve
+
+    s = np.asarray(stack, dtype=np.float64).copy()
+    bad = np.asarray(bad_pixel_mask, dtype=bool)
+    if s.ndim != 3 or bad.shape != s.shape[1:]:
+        raise ValueError(f"bad-pixel mask {bad.shape} does not fit the stack {s.shape}")
+    if not bad.any():
+        return s
+    good = (~bad).astype(np.float64)
+    kernel = np.ones((3, 3))
+    kernel[1, 1] = 0.0
+    weight = convolve(good, kernel, mode="constant")
+    rows, cols = np.nonzero(bad)
+    for frame in s:
+        total = convolve(frame * good, kernel, mode="constant")
+        fill = np.where(weight[rows, cols] > 0,
+                        total[rows, cols] / np.maximum(weight[rows, cols], 1.0),
+                        frame[~bad].mean())
+        frame[rows, cols] = fill
+    return s

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 import yaml
 
-from analysis.noise3d import COMPONENTS, noise_3d
+from analysis.noise3d import COMPONENTS, noise_3d, replace_bad_pixels
 from analysis.targets import OpenAperture
 from simulators.camera_render import CameraRenderer, SceneState
 from simulators.camera_truth import truth_from_mapping
@@ -116,3 +116,19 @@ def test_bad_input_is_refused_plainly() -> None:
     cube[1, 1, 1] = np.nan
     with pytest.raises(ValueError, match="NaN"):
         noise_3d(cube)
+
+
+def test_bad_pixels_replaced_by_their_neighbours() -> None:
+    # A hot pixel (full scale) would add (16383 - 1000)^2 / (V H) to the fixed-pattern variance;
+    # replaced by its neighbours' mean the cube's components come back as without it.
+    rng = np.random.default_rng(9)
+    cube = 1000.0 + rng.normal(0, 3.0, (T, V, H)) + rng.normal(0, 2.0, (1, V, H))
+    clean = noise_3d(cube)
+    spoilt = cube.copy()
+    spoilt[:, 10, 12] = 16383.0
+    mask = np.zeros((V, H), dtype=bool)
+    mask[10, 12] = True
+    assert noise_3d(spoilt).sigma["vh"] > 10 * clean.sigma["vh"]
+    fixed = noise_3d(replace_bad_pixels(spoilt, mask))
+    for k in ("vh", "tvh"):
+        assert fixed.sigma[k] == pytest.approx(clean.sigma[k], rel=0.01)
