@@ -385,3 +385,18 @@ def _crossing(f: np.ndarray, mtf: np.ndarray, level: float) -> float:
     i = below[0]
     f0, f1, m0, m1 = f[i - 1], f[i], mtf[i - 1], mtf[i]
     return float(f0 + (m0 - level) * (f1 - f0) / (m0 - m1))
+
+
+def judge_min_mtf_at_nyquist(results: list[SfrResult], limit: float,
+                             conditions: dict[str, Any] | None = None) -> Verdict:
+    """`min_mtf_at_nyquist` judged on the worst edge measured (horizontal, vertical, through
+    the field): the spec holds only if every direction and position meets it."""
+    if not results:
+        raise ValueError("MTF: no edge measured; nothing to judge")
+    worst = min(results, key=lambda r: r.mtf_at_nyquist)
+    cond = {"edges_measured": len(results),
+            "worst_edge": {"mtf_direction": worst.mtf_direction,
+                           "roi": worst.roi.to_dict(), **worst.conditions},
+            **(conditions or {})}
+    return SPEC_KEYS["min_mtf_at_nyquist"].judge(worst.mtf_at_nyquist,
+                                                 worst.mtf_at_nyquist_sigma, limit, cond)

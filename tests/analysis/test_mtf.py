@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 import yaml
 
-from analysis.mtf import find_edge_roi, slanted_edge_mtf
+from analysis.mtf import find_edge_roi, judge_min_mtf_at_nyquist, slanted_edge_mtf
 from analysis.optics import gaussian_mtf, pixel_aperture_mtf
 from analysis.targets import OpenAperture, SlantedEdge
 from analysis.uniformity import two_point_correction
@@ -112,6 +112,14 @@ def test_demo_camera_frames_after_two_point_correction() -> None:
     assert np.max(np.abs(res.mtf[sel] - truth)) < TOL
     v = res.verdict(0.15)
     assert v.status == "FAIL" and v.value == pytest.approx(0.092, abs=0.01)
+    assert res.mtf_direction == "horizontal" and v.conditions["mtf_direction"] == "horizontal"
+    # the vertical MTF from a near-horizontal edge; the verdict takes the worse of the two
+    scene_v = SceneState(40.0, 20.0, SlantedEdge(95.0))
+    res_v = slanted_edge_mtf(two_point_correction(mean(scene_v), cold, hot))
+    assert res_v.mtf_direction == "vertical"
+    both = judge_min_mtf_at_nyquist([res, res_v], 0.15)
+    assert both.value == min(res.mtf_at_nyquist, res_v.mtf_at_nyquist)
+    assert both.conditions["edges_measured"] == 2
     # frequency axes: 1 px = 17 um = 17/25 mrad, so Nyquist is 29.41 cyc/mm, 0.7353 cyc/mrad
     i = int(np.argmin(np.abs(f - 0.5)))
     assert res.freq_cyc_per_mm[i] == pytest.approx(f[i] / 0.017, rel=1e-12)

@@ -169,6 +169,29 @@ def test_capture_key_makes_frames_independent_of_history() -> None:
     assert next(iter(g2.grab(1))).counter == 5       # counters go on regardless
 
 
+def test_without_a_capture_key_frames_follow_the_counter() -> None:
+    # Default behaviour kept: frame n of the grabber is the renderer's frame n (counter seed).
+    t = CameraTruth(geometry=SMALL)
+    scene = SceneState(30.0, 20.0, OpenAperture())
+    g = SimFrameGrabber(CameraRenderer(t, seed=5), lambda: scene, SimClock(), 30.0)
+    frames = list(g.grab(3))
+    ref = CameraRenderer(t, seed=5)
+    for f in frames:
+        np.testing.assert_array_equal(f.data, ref.render(scene, f.counter))
+        assert "capture_key" not in f.meta
+
+
+def test_mounting_in_the_truth_file_is_checked() -> None:
+    d = yaml.safe_load(DEMO.read_text())
+    d["mounting"] = {"az_mrad": 2.5, "el_mrad": -1.0, "roll_mrad": 4.0}
+    assert truth_from_mapping(d).mounting == MountingError(2.5, -1.0, 4.0)
+    d["mounting"] = {"az_mrad": "left", "tilt": 1}
+    with pytest.raises(ValueError) as err:
+        truth_from_mapping(d)
+    assert "mounting.az_mrad: expected a number" in str(err.value)
+    assert "mounting.tilt: unknown key" in str(err.value)
+
+
 def test_table_noise_has_the_configured_variance() -> None:
     # Inverse-CDF sampling: variance sigma_t^2 (+1/12 count^2 for rounding, Sheppard) within
     # 4 standard errors of a sample variance over 64 x 48 x 20 values (chi-square).
