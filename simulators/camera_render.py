@@ -32,7 +32,7 @@ Image formation (all in counts, arrays indexed ``[row, col]``, positions in ``(x
   gives the same frames however the run got there (a resume included).
 * Speed: maps that depend on geometry only (source fraction, gain x fraction) are cached per
   target and pose; a temperature enters as two scalar radiance factors; noise comes from raw
-  generator bits (PCG64) through a 65,536-entry inverse normal CDF table (inversion method:
+  generator output (PCG64 `random_raw`, 16 bits per pixel) through a 65,536-entry inverse normal CDF table (inversion method:
   Devroye, *Non-Uniform Random Variate Generation*, 1986, ch. 2), scaled to unit variance (tails
   end at +/-4.3 sigma). ADC: round, clip to ``[0, 2^bits - 1]``. Dead pixels read 0 counts, hot
   pixels full scale.
@@ -430,23 +430,23 @@ class CameraRenderer:
         self._mean_into(scene, mean)
         return mean - np.float32(0.5)
 
-    def noise_generator(self, frame_index: int, capture_key: str | None = None
-                        ) -> np.random.Generator:
-        """The generator of one frame's temporal noise: seeded by (run seed, frame index), or by
-        (run seed, capture key, frame index in the capture) when a key is given."""
+    def noise_bits(self, frame_index: int, capture_key: str | None = None) -> np.ndarray:
+        """One frame's 16-bit uniform draws (one per pixel) from a PCG64 generator seeded by
+        (run seed, frame index), or by (run seed, capture key, frame index in the capture)."""
         if capture_key is None:
             entropy = [self.seed, 1, int(frame_index)]
         else:
             entropy = [self.seed, 2, *_key_words(capture_key), int(frame_index)]
-        return np.random.Generator(np.random.PCG64(np.random.SeedSequence(entropy)))
+        n = self.shape[0] * self.shape[1]
+        raw = np.random.PCG64(np.random.SeedSequence(entropy)).random_raw((n + 3) // 4)
+        return raw.view(np.uint16)[:n]
 
     def render(self, scene: SceneState, frame_index: int,
                capture_key: str | None = None) -> np.ndarray:
         """One frame (uint16, [row, col]): mean + temporal noise, ADC rounding and clipping,
         dead and hot pixels. The same (seed, capture key, frame_index, scene) always gives the
         same frame."""
-        rng = self.noise_generator(frame_index, capture_key)
-        idx = np.frombuffer(rng.bytes(2 * self.shape[0] * self.shape[1]), dtype=np.uint16)
+        idx = self.noise_bits(frame_index, capture_key)
         buf = np.take(self._noise_table, idx).reshape(self.shape)
         flat = buf.reshape(-1)
         if len(self.bad_pixels.noisy):
