@@ -138,3 +138,19 @@ def test_roi_is_found_on_the_edge_and_errors_are_plain() -> None:
     with pytest.raises(ValueError, match="no straight edge"):
         slanted_edge_mtf(np.full((100, 100), 500.0) + np.random.default_rng(1).normal(
             0, 1, (100, 100)))
+
+
+def test_edge_moved_through_the_field_by_the_stage() -> None:
+    # Through-field MTF: the stage turns the UUT so the edge's image moves off centre; the ROI
+    # follows it and the MTF is still the system MTF (the simulated PSF does not vary over the
+    # field).
+    t = _demo(320, 256)
+    r = CameraRenderer(t)
+    scene = SceneState(40.0, 20.0, SlantedEdge(5.0), az_deg=3.0, el_deg=-2.0)
+    (px, py), _ = r.edge_geometry(scene, scene.target)
+    assert abs(px - 160) > 60                       # well off the centre column
+    res = slanted_edge_mtf(r.render_clean(scene))
+    assert res.roi.x0 < px < res.roi.x0 + res.roi.width
+    f = res.freq_cyc_per_px
+    sel = f <= 0.5
+    assert np.max(np.abs(res.mtf[sel] - t.system_mtf(f[sel], _normal_angle(r, scene)))) < TOL
