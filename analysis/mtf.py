@@ -18,7 +18,9 @@ Steps (ISO 12233:2014, annex D, on a linear camera, so no OECF linearisation):
 
 Additions for real frames: dead and hot pixels are left out (a mask, plus residuals beyond
 `outlier_sigma` robust sigmas of the ESF, MAD x 1.4826: common practice), and the edge line is
-fitted with outlier rejection. The MTF's 1-sigma noise is propagated from the ESF's scatter.
+fitted with outlier rejection. The MTF's 1-sigma noise is propagated from the ESF's scatter
+(the pixels' robust spread about the ESF, divided among the bins) through the derivative and the
+windowed DFT.
 
 Frequencies: cycles per pixel along the edge normal; cycles per mm with the pixel pitch; cycles
 per mrad with the pitch and focal length (one pixel subtends pitch / focal length = IFOV).
@@ -330,8 +332,6 @@ def slanted_edge_mtf(image: np.ndarray, roi: EdgeRoi | None = None, *,
     lsf = np.zeros_like(esf)
     lsf[1:-1] = 0.5 * (esf[2:] - esf[:-2])
     var_bin = scatter ** 2 / np.maximum(counts, 1)
-    var_lsf = np.zeros_like(esf)
-    var_lsf[1:-1] = 0.25 * (var_bin[2:] + var_bin[:-2])
     n = len(lsf)
     peak = float(np.sum(np.arange(n) * np.abs(lsf)) / np.sum(np.abs(lsf)))
     win = _hamming(n, peak, max(peak, n - 1 - peak))
@@ -341,7 +341,9 @@ def slanted_edge_mtf(image: np.ndarray, roi: EdgeRoi | None = None, *,
     if dc == 0:
         raise ValueError("MTF: the edge has no contrast in the region")
     mtf = np.abs(spec) / dc
-    sigma = np.sqrt(np.sum(win ** 2 * var_lsf)) / dc * np.ones_like(mtf)
+    # Noise of the MTF: white bin noise through the central difference has the spectrum
+    # var x sin^2(2 pi f d); the magnitude feels the half in phase with the signal.
+    sigma = np.sqrt(0.5 * np.sum(win ** 2 * var_bin) * np.sin(2 * math.pi * f * step) ** 2) / dc
     corr = np.sinc(2.0 * f * step) * np.sinc(f * step)
     sel = f <= max_freq_cyc_per_px + 1e-12
     f, mtf, sigma, corr = f[sel], mtf[sel], sigma[sel], corr[sel]

@@ -154,3 +154,23 @@ def test_edge_moved_through_the_field_by_the_stage() -> None:
     f = res.freq_cyc_per_px
     sel = f <= 0.5
     assert np.max(np.abs(res.mtf[sel] - t.system_mtf(f[sel], _normal_angle(r, scene)))) < TOL
+
+
+def test_reported_mtf_noise_matches_the_spread_over_seeds() -> None:
+    # Temporal noise only (no fixed pattern, no bad pixels): the reported 1-sigma of the MTF at
+    # 0.2 cycles/px and at Nyquist agrees with the spread of 30 noisy frames within 30 % (the
+    # std of 30 values is itself uncertain by 13 %; GUM-style check of an uncertainty).
+    t = dataclasses.replace(_demo(), gain_fpn_rel=0.0, offset_fpn_counts=0.0, dead_fraction=0.0,
+                            hot_fraction=0.0, noisy_fraction=0.0, unresponsive_fraction=0.0)
+    r = CameraRenderer(t, seed=1)
+    scene = SceneState(40.0, 20.0, SlantedEdge(5.0))
+    roi = slanted_edge_mtf(r.render_clean(scene)).roi
+    at_02, at_nyq, s_02, s_nyq = [], [], [], []
+    for i in range(30):
+        res = slanted_edge_mtf(r.render(scene, i), roi=roi, method_sigma=0.0)
+        at_02.append(res.mtf_at(0.2))
+        at_nyq.append(res.mtf_at_nyquist)
+        s_02.append(float(np.interp(0.2, res.freq_cyc_per_px, res.mtf_sigma)))
+        s_nyq.append(res.mtf_at_nyquist_sigma)
+    assert np.std(at_02, ddof=1) == pytest.approx(np.mean(s_02), rel=0.30)
+    assert np.std(at_nyq, ddof=1) == pytest.approx(np.mean(s_nyq), rel=0.30)
