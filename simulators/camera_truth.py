@@ -85,7 +85,11 @@ class CameraTruth:
             problems.append("responsivity_counts_per_radiance: must be > 0")
         if not self.netd_k >= 0:
             problems.append("netd_k: must be >= 0")
-        if not self.f_number > 0:
+        lo, hi = self.band_um
+        if not 0 < lo < hi < math.inf:
+            problems.append(f"band_um: {list(self.band_um)} must be a finite band lo < hi with "
+                            "lo > 0 (the optics' diffraction depends on it)")
+        elif not self.f_number > 0:
             problems.append("f_number: must be > 0")
         elif self.blur_sigma_px > 0 and self.blur_sigma_px < self.diffraction_sigma_px:
             problems.append(f"blur_sigma_px: {self.blur_sigma_px} px is below the diffraction "
