@@ -300,6 +300,10 @@ def slanted_edge_mtf(image: np.ndarray, roi: EdgeRoi | None = None, *,
     rows, cols = cut.shape
     a, b, polarity = _edge_line(cut, bad)
     angle = math.atan(b)
+    if abs(math.degrees(angle)) < 1.0 or rows * abs(b) < 2.0:
+        raise ValueError(f"MTF: the edge is slanted only {math.degrees(angle):.2f} deg over "
+                         f"{rows} lines; the slanted-edge method needs the edge to cross at "
+                         "least 2 pixels along the region (ISO 12233 uses about 5 deg)")
     cos_a = math.cos(angle)
     yy, xx = np.mgrid[:rows, :cols]
     dist = ((xx - (a + b * yy)) * cos_a * polarity).ravel()   # along the normal, to bright

@@ -135,6 +135,9 @@ def test_roi_is_found_on_the_edge_and_errors_are_plain() -> None:
     roi = find_edge_roi(img)
     (px, py), _ = r.edge_geometry(SceneState(40.0, 20.0, SlantedEdge(5.0)), SlantedEdge(5.0))
     assert roi.x0 < px < roi.x0 + roi.width and roi.orientation == "vertical"
+    straight = 100 + 1000 * pixel_integrated_edge(120, 140, (60.3, 70.2), (1.0, 0.0), 0.7)
+    with pytest.raises(ValueError, match="slanted only"):
+        slanted_edge_mtf(straight)
     with pytest.raises(ValueError, match="no straight edge"):
         slanted_edge_mtf(np.full((100, 100), 500.0) + np.random.default_rng(1).normal(
             0, 1, (100, 100)))
