@@ -163,6 +163,7 @@ class CameraTruth:
             },
             "blur_sigma_px": self.blur_sigma_px, "f_number": self.f_number,
             "aberration_sigma_px": self.aberration_sigma_px,
+            "system_mtf_at_nyquist": float(self.system_mtf(0.5)),
             "mounting": {"az_mrad": self.mounting.az_mrad, "el_mrad": self.mounting.el_mrad,
                          "roll_mrad": self.mounting.roll_mrad},
             "responsivity_counts_per_radiance": self.responsivity_counts_per_radiance,
