@@ -56,8 +56,9 @@ class SimFrameGrabber(FrameGrabber):
 
     def begin_capture(self, key: str) -> None:
         """Name the capture that follows: its frames' noise is seeded by (run seed, `key`,
-        frame index in the capture, from 0). Call it again (same key) to re-capture the same
-        frames; `end_capture` returns to counter-seeded frames."""
+        frame index in the capture, from 0, counting frames delivered whole). Call it again
+        (same key) to re-capture the same frames; `end_capture` returns to counter-seeded
+        frames."""
         if not isinstance(key, str) or not key:
             raise ValueError(f"{self.name}: capture key must be a non-empty string, got {key!r}")
         self._capture_key = key
@@ -97,8 +98,11 @@ class SimFrameGrabber(FrameGrabber):
             self._counter += 1
             index, key = self._counter, self._capture_key
             if key is not None:
+                # only a frame delivered whole uses up an index of the capture: after a drop or
+                # a short frame the station grabs again and gets that same frame
                 index = self._capture_index
-                self._capture_index += 1
+                if fault is None or fault == "repeat":
+                    self._capture_index += 1
             if fault == "drop":
                 self.clock.sleep(period)
                 continue

@@ -169,6 +169,28 @@ def test_capture_key_makes_frames_independent_of_history() -> None:
     assert next(iter(g2.grab(1))).counter == 5       # counters go on regardless
 
 
+def test_dropped_and_short_frames_do_not_shift_a_capture() -> None:
+    # The station grabs again after a dropped or a short frame; the frames it keeps are the
+    # same as in a capture without faults (only whole frames use up an index).
+    from simulators.faults import FaultPlan
+
+    t = CameraTruth(geometry=SMALL)
+    scene = SceneState(30.0, 20.0, OpenAperture())
+    clean = SimFrameGrabber(CameraRenderer(t, seed=2), lambda: scene, SimClock(), 30.0)
+    clean.begin_capture("flat")
+    ref = [f.data for f in clean.grab(4)]
+    plan = FaultPlan(seed=1)
+    plan.add("grabber", "drop", at_command=2)
+    plan.add("grabber", "short", at_command=4)
+    faulty = SimFrameGrabber(CameraRenderer(t, seed=2), lambda: scene, SimClock(), 30.0,
+                             faults=plan)
+    faulty.begin_capture("flat")
+    kept = [f.data for f in faulty.grab(6) if f.data.shape == (48, 64)]
+    assert len(kept) == 4
+    for a, b in zip(kept, ref):
+        np.testing.assert_array_equal(a, b)
+
+
 def test_without_a_capture_key_frames_follow_the_counter() -> None:
     # Default behaviour kept: frame n of the grabber is the renderer's frame n (counter seed).
     t = CameraTruth(geometry=SMALL)
