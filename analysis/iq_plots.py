@@ -60,6 +60,40 @@ def plot_mtf(results: Sequence[SfrResult], path: str | Path, *,
     return _save(fig, path)
 
 
+def plot_mtf_through_field(results: Sequence[SfrResult], shape: tuple[int, int],
+                           path: str | Path, *, spec_min_at_nyquist: float | None = None
+                           ) -> Path:
+    """MTF at Nyquist at each edge position on the detector (ROI centres), one marker per
+    edge (square: horizontal MTF, triangle: vertical), coloured by value; below-spec circled."""
+    plt = _plt()
+    rows, cols = shape
+    fig, ax = plt.subplots(figsize=(7, 7 * rows / cols + 0.8))
+    values = [r.mtf_at_nyquist for r in results]
+    vmin, vmax = (min(values), max(values)) if values else (0.0, 1.0)
+    for r in results:
+        x = r.roi.x0 + r.roi.width / 2.0
+        y = r.roi.y0 + r.roi.height / 2.0
+        sc = ax.scatter([x], [y], c=[r.mtf_at_nyquist], vmin=vmin, vmax=vmax + 1e-9,
+                        cmap="viridis", marker="s" if r.mtf_direction == "horizontal" else "^",
+                        s=80)
+        ax.annotate(f"{r.mtf_at_nyquist:.3f}", (x, y), textcoords="offset points",
+                    xytext=(6, 6), fontsize=8)
+        if spec_min_at_nyquist is not None and r.mtf_at_nyquist < spec_min_at_nyquist:
+            ax.scatter([x], [y], s=260, facecolors="none", edgecolors="r")
+    if results:
+        fig.colorbar(sc, ax=ax, label="MTF at Nyquist")
+    ax.set_xlim(-0.5, cols - 0.5)
+    ax.set_ylim(rows - 0.5, -0.5)
+    ax.set_aspect("equal")
+    ax.set_xlabel("column (x)")
+    ax.set_ylabel("row (y)")
+    title = "MTF at Nyquist through the field"
+    if spec_min_at_nyquist is not None:
+        title += f" (spec: at least {spec_min_at_nyquist:g}, below circled)"
+    ax.set_title(title)
+    return _save(fig, path)
+
+
 def plot_bad_pixels(bad: BadPixelMap, path: str | Path) -> Path:
     """The detector with each bad pixel marked by class (markers, so single pixels show)."""
     plt = _plt()

@@ -45,6 +45,8 @@ def test_plots_are_written(tmp_path) -> None:
     netd = measure_netd(temps, stacks, (8, 12), at_c=30.0, bad_pixel_mask=bad.mask)
     n3 = noise_3d(stacks[1][:, 5:, 5:], netd.sitf_counts_per_k)
     paths = [iq_plots.plot_mtf([sfr], tmp_path / "mtf.png", spec_min_at_nyquist=0.15),
+             iq_plots.plot_mtf_through_field([sfr], edge.shape, tmp_path / "mtf_field.png",
+                                             spec_min_at_nyquist=0.15),
              iq_plots.plot_bad_pixels(bad, tmp_path / "bad_pixels.png"),
              iq_plots.plot_sitf(netd, tmp_path / "sitf.png"),
              iq_plots.plot_netd_map(netd, tmp_path / "netd_map.png"),
