@@ -5,6 +5,10 @@ range; NETD is the temporal noise divided by the SiTF. Temporal noise is the squ
 mean per-pixel temporal variance: variances are averaged, not standard deviations (the usual
 thermal-imager test practice; see e.g. Opt. Eng. 29(7), 1990). Report f-number, integration time
 and background temperature with the result (common practice).
+
+These are the plain textbook reductions. For a NETD to sign (SiTF against the absolute source
+temperature following Planck's curvature, evaluated at the spec temperature, bad pixels masked,
+with an uncertainty budget) use `analysis.netd.measure_netd`.
 """
 
 from __future__ import annotations

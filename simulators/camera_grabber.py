@@ -4,6 +4,12 @@ Each grabbed frame reads the current scene from `scene_source` (the simulated be
 blackbody, wheel, stage), renders it, stamps it with the clock's time and a counter, and moves the
 clock on by one frame period, so a dry run takes the simulated time a real grab would.
 
+Noise is reproducible by what is captured: the station may call `begin_capture(key)` before each
+capture (key: the run's step id and capture name, say); the frames of that capture are then
+seeded by (run seed, key, frame index in the capture), so a resumed run re-captures the very same
+frames whatever happened before. Without the call, frames are seeded by the grabber's counter as
+before (reproducible for an uninterrupted run only).
+
 An optional fault plan makes it misbehave the way real grabbers do, per frame: `drop` (the frame
 never arrives: its counter is skipped), `repeat` (the previous frame is delivered again with the
 same counter) and `short` (a frame with only part of its rows). The station detects each from the
@@ -45,6 +51,23 @@ class SimFrameGrabber(FrameGrabber):
         self.faults = faults            # simulators.faults.FaultPlan or None
         self.fault_name = fault_name    # the instrument name its rules use
         self._last: Frame | None = None
+        self._capture_key: str | None = None
+        self._capture_index = 0
+
+    def begin_capture(self, key: str) -> None:
+        """Name the capture that follows: its frames' noise is seeded by (run seed, `key`,
+        frame index in the capture, from 0, counting frames delivered whole). Call it again
+        (same key) to re-capture the same frames; `end_capture` returns to counter-seeded
+        frames."""
+        if not isinstance(key, str) or not key:
+            raise ValueError(f"{self.name}: capture key must be a non-empty string, got {key!r}")
+        self._capture_key = key
+        self._capture_index = 0
+
+    def end_capture(self) -> None:
+        """Back to frames seeded by the grabber's counter."""
+        self._capture_key = None
+        self._capture_index = 0
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -73,14 +96,24 @@ class SimFrameGrabber(FrameGrabber):
                 continue
             scene = self.scene_source()
             self._counter += 1
+            index, key = self._counter, self._capture_key
+            if key is not None:
+                # only a frame delivered whole uses up an index of the capture: after a drop or
+                # a short frame the station grabs again and gets that same frame
+                index = self._capture_index
+                if fault is None or fault == "repeat":
+                    self._capture_index += 1
             if fault == "drop":
                 self.clock.sleep(period)
                 continue
-            data = self.renderer.render(scene, self._counter)
+            data = self.renderer.render(scene, index, key)
             meta: dict[str, Any] = {
                 "source_c": scene.source_c, "plate_c": scene.plate_c,
                 "target": None if scene.target is None else scene.target.kind,
                 "az_deg": scene.az_deg, "el_deg": scene.el_deg}
+            if key is not None:
+                meta["capture_key"] = key
+                meta["capture_index"] = index
             if self.attach_truth:  # tests only: a real grabber cannot know this
                 meta["truth_spots_xy_px"] = self.renderer.expected_spots(scene)[0].tolist()
             last = self._last = Frame(data=data, counter=self._counter,

@@ -16,26 +16,43 @@ Image formation (all in counts, arrays indexed ``[row, col]``, positions in ``(x
   ``Omega_pinhole = pi (d/2)^2 / F^2`` and ``Omega_pixel = 1 / (fx fy)``: an extended source
   filling a pixel gives ``R * dL`` in that pixel.
 * Slanted edge: a straight edge through the image of the plate centre (the local image of the
-  plate's edge; distortion curvature over the edge is neglected), blurred by the Gaussian and
-  integrated exactly over each pixel square (closed-form double integral of the normal CDF).
-* Fixed pattern and bad pixels from `CameraTruth`, drawn once per renderer; temporal noise drawn
-  per frame from a generator seeded by ``(seed, frame_index)``; ADC: round, clip to
-  ``[0, 2^bits - 1]``. Dead pixels read 0 counts, hot pixels full scale.
+  plate's edge; distortion curvature over the edge is neglected), imaged through the camera's
+  exact transfer function (`CameraTruth.system_mtf`: diffraction x Gaussian aberration blur) and
+  integrated over each pixel square: the edge-spread function along the normal is
+  ``1/2 + (1/pi) int_0^fc T(f) sin(2 pi f d) / f df`` with ``T`` the optics' MTF times the pixel
+  square's transfer function along the normal, ``sinc(f cos t) sinc(f sin t)`` (the square's
+  width distribution along the normal is a trapezoid). An edge measured on these frames must give
+  back `system_mtf` along its normal.
+* Mounting error (`CameraTruth.mounting`): the UUT's axes are turned from the mount's by
+  ``R_y(az) R_x(el) R_z(roll)`` after the gimbal; zero leaves the old model untouched.
+* Fixed pattern (gain, offset) and bad pixels from `CameraTruth`, drawn once from the truth's own
+  seed, so a truth file always has the same bad pixels whatever the run's seed. Temporal noise is
+  drawn per frame from a generator seeded by ``(run seed, frame index)``, or by ``(run seed,
+  capture key, frame index in the capture)`` when the grabber names the capture, so a capture
+  gives the same frames however the run got there (a resume included).
+* Speed: maps that depend on geometry only (source fraction, gain x fraction) are cached per
+  target and pose; a temperature enters as two scalar radiance factors; noise comes from raw
+  generator output (PCG64 `random_raw`, 16 bits per pixel) through a 65,536-entry inverse normal CDF table (inversion method:
+  Devroye, *Non-Uniform Random Variate Generation*, 1986, ch. 2), scaled to unit variance (tails
+  end at +/-4.3 sigma). ADC: round, clip to ``[0, 2^bits - 1]``. Dead pixels read 0 counts, hot
+  pixels full scale.
 """
 
 from __future__ import annotations
 
+import hashlib
 import math
 from collections import OrderedDict
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import erf, ndtr
+from scipy.special import erf, ndtr, ndtri
 
-from analysis.geometry import collimator_directions, project, project_target, to_camera_frame
-from analysis.radiometry import band_radiance, celsius_to_kelvin
+from analysis.geometry import collimator_directions, gimbal_rotation, project, to_camera_frame
+from analysis.radiometry import band_radiance, band_radiance_derivative, celsius_to_kelvin
 from analysis.targets import OpenAperture, PinholeGrid, SinglePinhole, SlantedEdge, Target
-from simulators.camera_truth import CameraTruth
+from simulators.camera_truth import CameraTruth, MountingError
 
 _SQRT2 = math.sqrt(2.0)
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
@@ -63,6 +80,11 @@ class BadPixels:
     dead: np.ndarray
     hot: np.ndarray
     noisy: np.ndarray
+    unresponsive: np.ndarray
+
+    def as_dict(self) -> dict[str, np.ndarray]:
+        return {"dead": self.dead, "hot": self.hot, "noisy": self.noisy,
+                "unresponsive": self.unresponsive}
 
 
 def _pixel_integrated_gaussian(centres: np.ndarray, sigma: np.ndarray, start: np.ndarray,
@@ -117,33 +139,145 @@ def pixel_integrated_edge(width: int, height: int, point: tuple[float, float],
     return out
 
 
-class CameraRenderer:
-    """Frames of one simulated camera. Fixed pattern drawn once from `seed`; clean images cached
-    per scene (a few scenes), so streaming only adds noise."""
+def edge_spread_table(optics_mtf: Callable[[np.ndarray], np.ndarray], normal: tuple[float, float],
+                      cutoff_cyc_per_px: float, reach_px: float = 40.0,
+                      step_px: float = 0.02) -> tuple[np.ndarray, np.ndarray]:
+    """Pixel-integrated edge-spread function along the edge normal, tabulated on [0, reach].
 
-    def __init__(self, truth: CameraTruth, seed: int | None = None, cache_size: int = 4) -> None:
+    ``E(d) = 1/2 + (1/pi) int_0^fc T(f) sin(2 pi f d) / f df`` (a step's image through an even
+    transfer function T with T(0) = 1), ``T = optics_mtf(f) sinc(f |nx|) sinc(f |ny|)``; E(-d) =
+    1 - E(d). Trapezoidal rule on f steps of 1/(25 reach): 25 samples per period of the fastest
+    oscillation. Returns (d, E(d)) for d >= 0.
+    """
+    a, b = abs(float(normal[0])), abs(float(normal[1]))
+    n_f = int(math.ceil(cutoff_cyc_per_px * reach_px * 25.0)) + 1
+    f = np.linspace(0.0, cutoff_cyc_per_px, n_f)
+    t = optics_mtf(f) * np.sinc(f * a) * np.sinc(f * b)
+    w = np.full(n_f, f[1] - f[0])
+    w[0] = w[-1] = 0.5 * (f[1] - f[0])
+    d = np.arange(0.0, reach_px + step_px, step_px)
+    # sin(2 pi f d) / f -> 2 pi d at f = 0
+    kernel = np.empty((len(d), n_f))
+    kernel[:, 1:] = np.sin(2.0 * math.pi * d[:, None] * f[None, 1:]) / f[None, 1:]
+    kernel[:, 0] = 2.0 * math.pi * d
+    e = 0.5 + (kernel @ (t * w)) / math.pi
+    return d, e
+
+
+def psf_edge(width: int, height: int, point: tuple[float, float], normal: tuple[float, float],
+             table: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    """Fraction of each pixel on the bright side of an edge imaged through a tabulated ESF."""
+    a, b = float(normal[0]), float(normal[1])
+    c = a * point[0] + b * point[1]
+    dist = (a * np.arange(width, dtype=float)[None, :]
+            + b * np.arange(height, dtype=float)[:, None] - c)
+    d_tab, e_tab = table
+    ad = np.abs(dist)
+    val = np.interp(ad, d_tab, e_tab)
+    # beyond the table the diffraction tail falls as 1/d (the MTF's linear cusp at f = 0)
+    far = ad > d_tab[-1]
+    val[far] = 1.0 - (1.0 - e_tab[-1]) * d_tab[-1] / ad[far]
+    return np.where(dist >= 0, val, 1.0 - val)
+
+
+def mount_rotation(mounting: MountingError) -> np.ndarray:
+    """UUT axes in the mount's frame: ``R_y(az) R_x(el) R_z(roll)`` (gimbal conventions)."""
+    r = mounting.roll_mrad * 1e-3
+    c, s = math.cos(r), math.sin(r)
+    rz = np.array([[c, -s, 0.0], [s, c, 0.0], [0.0, 0.0, 1.0]])
+    return gimbal_rotation(math.degrees(mounting.az_mrad * 1e-3),
+                           math.degrees(mounting.el_mrad * 1e-3)) @ rz
+
+
+def plate_to_pixels(truth: CameraTruth, points_mm: np.ndarray, collimator_focal_mm: float,
+                    az_deg: float = 0.0, el_deg: float = 0.0) -> np.ndarray:
+    """Target plate points (N, 2) mm -> true pixel positions (x, y): collimator, gimbal, the
+    UUT's mounting error, then the UUT's own geometry."""
+    d = to_camera_frame(collimator_directions(points_mm, collimator_focal_mm), az_deg, el_deg)
+    if not truth.mounting.is_zero:
+        d = d @ mount_rotation(truth.mounting)  # row-wise R^T d
+    return project(truth.geometry, d)
+
+
+class RadianceTable:
+    """In-band radiance as a function of temperature (C), fast for one scalar at a time.
+
+    Cubic Hermite interpolation on a 0.25 K grid of exact values and slopes (Widger & Woodall
+    band integral and its derivative): interpolation error ``h^4 max|d4L/dT4| / 384``, below
+    1e-9 relative here; outside the grid the exact series is used.
+    """
+
+    def __init__(self, band_um: tuple[float, float], lo_c: float = -80.0, hi_c: float = 600.0,
+                 step_k: float = 0.25) -> None:
+        self.band = band_um
+        self.lo, self.step = lo_c, step_k
+        t = np.arange(lo_c, hi_c + step_k / 2, step_k)
+        self.hi = float(t[-1])
+        tk = t + 273.15
+        self._l = np.asarray(band_radiance(tk, band_um), dtype=float).tolist()
+        self._d = (np.asarray(band_radiance_derivative(tk, band_um), dtype=float)
+                   * step_k).tolist()
+
+    def __call__(self, t_c: float) -> float:
+        if not self.lo <= t_c < self.hi:
+            return float(band_radiance(celsius_to_kelvin(t_c), self.band))
+        u = (t_c - self.lo) / self.step
+        i = int(u)
+        s = u - i
+        s2, s3 = s * s, s * s * s
+        return ((2 * s3 - 3 * s2 + 1) * self._l[i] + (s3 - 2 * s2 + s) * self._d[i]
+                + (-2 * s3 + 3 * s2) * self._l[i + 1] + (s3 - s2) * self._d[i + 1])
+
+
+def _normal_table() -> np.ndarray:
+    """Inverse normal CDF at the 65,536 mid-quantiles, scaled to exactly unit variance."""
+    lut = ndtri((np.arange(65536) + 0.5) / 65536.0)
+    return lut / lut.std()
+
+
+def _key_words(key: str) -> list[int]:
+    """A capture key as four 32-bit words (BLAKE2b): stable across processes and Python runs."""
+    digest = hashlib.blake2b(key.encode("utf-8"), digest_size=16).digest()
+    return [int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4)]
+
+
+class CameraRenderer:
+    """Frames of one simulated camera.
+
+    Fixed pattern and bad pixels come from the truth's seed; `seed` (the run's) only seeds the
+    temporal noise. Geometry-only maps are cached per target and pose, so temperatures may change
+    every frame at full speed.
+    """
+
+    def __init__(self, truth: CameraTruth, seed: int | None = None, cache_size: int = 8) -> None:
         self.truth = truth
         self.seed = truth.seed if seed is None else int(seed)
         g = truth.geometry
         self.shape = (g.height, g.width)
         npix = g.height * g.width
-        rng = np.random.default_rng(np.random.SeedSequence([self.seed, 0]))
+        rng = np.random.default_rng(np.random.SeedSequence([int(truth.seed), 0]))
         self.gain_map = (1.0 + truth.gain_fpn_rel * rng.standard_normal(self.shape))
         self.offset_map = truth.offset_fpn_counts * rng.standard_normal(self.shape)
         order = rng.permutation(npix)
-        n_dead = int(round(truth.dead_fraction * npix))
-        n_hot = int(round(truth.hot_fraction * npix))
-        n_noisy = int(round(truth.noisy_fraction * npix))
-        self.bad_pixels = BadPixels(dead=np.sort(order[:n_dead]),
-                                    hot=np.sort(order[n_dead:n_dead + n_hot]),
-                                    noisy=np.sort(order[n_dead + n_hot:n_dead + n_hot + n_noisy]))
+        counts = [int(round(f * npix)) for f in (truth.dead_fraction, truth.hot_fraction,
+                                                  truth.noisy_fraction,
+                                                  truth.unresponsive_fraction)]
+        edges = np.cumsum([0] + counts)
+        dead, hot, noisy, unresp = (np.sort(order[edges[i]:edges[i + 1]]) for i in range(4))
+        self.bad_pixels = BadPixels(dead=dead, hot=hot, noisy=noisy, unresponsive=unresp)
+        self.gain_map.reshape(-1)[unresp] *= truth.unresponsive_gain
         sigma = np.full(npix, truth.temporal_noise_counts, dtype=np.float32)
-        sigma[self.bad_pixels.noisy] *= truth.noisy_factor
+        sigma[noisy] *= truth.noisy_factor
         self.sigma_map = sigma.reshape(self.shape)
-        self._uniform_sigma = n_noisy == 0
-        self._cache: OrderedDict[SceneState, np.ndarray] = OrderedDict()
-        self._patterns: OrderedDict[tuple, np.ndarray] = OrderedDict()
+        self._gain32 = self.gain_map.astype(np.float32)
+        # + 0.5: the ADC's rounding folded in (truncation of x + 0.5 after clipping at 0)
+        self._base32 = (truth.offset_counts + self.offset_map + 0.5).astype(np.float32)
+        self._scratch = np.empty(self.shape, dtype=np.float32)
+        self._radiance = RadianceTable(truth.band_um)
+        self._noise_table = (_normal_table() * truth.temporal_noise_counts).astype(np.float32)
+        self._patterns: OrderedDict[tuple, tuple[np.ndarray, np.ndarray | None]] = OrderedDict()
         self._cache_size = max(1, cache_size)
+        self._edge_tables: dict[tuple[float, float], tuple[np.ndarray, np.ndarray]] = {}
 
     # --- truth -------------------------------------------------------------------------------
     def expected_spots(self, scene: SceneState) -> tuple[np.ndarray, list[tuple[int, int]]]:
@@ -154,8 +288,8 @@ class CameraRenderer:
         t = scene.target
         if not isinstance(t, (PinholeGrid, SinglePinhole)):
             return np.zeros((0, 2)), []
-        px = project_target(self.truth.geometry, t.points_mm(), scene.collimator_focal_mm,
-                            scene.az_deg, scene.el_deg)
+        px = plate_to_pixels(self.truth, t.points_mm(), scene.collimator_focal_mm,
+                             scene.az_deg, scene.el_deg)
         return px, t.labels()
 
     def radiances(self, scene: SceneState) -> tuple[float, float]:
@@ -179,6 +313,11 @@ class CameraRenderer:
 
     def source_fraction(self, scene: SceneState) -> np.ndarray:
         """Fraction of each pixel's signal that comes from the source (0 plate .. 1 source)."""
+        return self._maps(scene)[0]
+
+    def _maps(self, scene: SceneState) -> tuple[np.ndarray, np.ndarray | None]:
+        """(source fraction, gain x fraction as float32 or None for a uniform fraction of 1),
+        cached per target and pose."""
         target = scene.target
         key = (target, scene.az_deg, scene.el_deg, scene.collimator_focal_mm)
         cached = self._patterns.get(key)
@@ -194,10 +333,15 @@ class CameraRenderer:
             if isinstance(target, (PinholeGrid, SinglePinhole)):
                 self._add_pinholes(pattern, scene, target, 1.0)
         pattern.setflags(write=False)
-        self._patterns[key] = pattern
+        gain_pattern = None
+        if not isinstance(target, OpenAperture):
+            gain_pattern = (self.gain_map * pattern).astype(np.float32)
+            gain_pattern.setflags(write=False)
+        entry = (pattern, gain_pattern)
+        self._patterns[key] = entry
         if len(self._patterns) > self._cache_size:
             self._patterns.popitem(last=False)
-        return pattern
+        return entry
 
     def _add_pinholes(self, img: np.ndarray, scene: SceneState,
                       target: PinholeGrid | SinglePinhole, delta_counts: float) -> None:
@@ -234,58 +378,85 @@ class CameraRenderer:
         flat = (rows[inside] * w + cols[inside])
         img += np.bincount(flat, weights=weights[inside], minlength=h * w).reshape(h, w)
 
-    def _edge_fraction(self, scene: SceneState, target: SlantedEdge) -> np.ndarray:
-        g = self.truth.geometry
+    def edge_geometry(self, scene: SceneState, target: SlantedEdge
+                      ) -> tuple[tuple[float, float], tuple[float, float]]:
+        """Image of the edge: a point on it (x, y) px and its unit normal toward the source."""
         a = math.radians(target.angle_deg)
         along = np.array([math.sin(a), math.cos(a)])
         normal = np.array([math.cos(a), -math.sin(a)])
         pts = np.array([[0.0, 0.0], 2.0 * along, -2.0 * along, 2.0 * normal])
-        px = project_target(g, pts, scene.collimator_focal_mm, scene.az_deg, scene.el_deg)
+        px = plate_to_pixels(self.truth, pts, scene.collimator_focal_mm, scene.az_deg,
+                             scene.el_deg)
         direction = px[1] - px[2]
         direction /= np.linalg.norm(direction)
         n_img = np.array([-direction[1], direction[0]])
         if float(n_img @ (px[3] - px[0])) < 0:
             n_img = -n_img
-        return pixel_integrated_edge(g.width, g.height, (float(px[0, 0]), float(px[0, 1])),
-                                     (float(n_img[0]), float(n_img[1])), self.truth.blur_sigma_px)
+        return (float(px[0, 0]), float(px[0, 1])), (float(n_img[0]), float(n_img[1]))
+
+    def _edge_fraction(self, scene: SceneState, target: SlantedEdge) -> np.ndarray:
+        g = self.truth.geometry
+        point, normal = self.edge_geometry(scene, target)
+        key = (round(abs(normal[0]), 9), round(abs(normal[1]), 9))
+        table = self._edge_tables.get(key)
+        if table is None:
+            mtf = self.truth.system_mtf
+            table = self._edge_tables[key] = edge_spread_table(
+                mtf.optics, normal, mtf.cutoff_cyc_per_px)
+        return psf_edge(g.width, g.height, point, normal, table)
+
+    def _factors(self, scene: SceneState) -> tuple[float, float]:
+        """Scalar radiance factors (counts): plate level and source-minus-plate contrast."""
+        l_src, l_plate = self._radiance(scene.source_c), self._radiance(scene.plate_c)
+        r = self.truth.responsivity_counts_per_radiance
+        return r * l_plate, r * (l_src - l_plate)
+
+    def _mean_into(self, scene: SceneState, buf: np.ndarray) -> None:
+        """Add the expected signal through FPN (offset + gain x clean) to `buf` (float32)."""
+        pattern, gain_pattern = self._maps(scene)
+        plate, contrast = self._factors(scene)
+        tmp = self._scratch
+        buf += self._base32
+        if gain_pattern is None:                      # open aperture: the source everywhere
+            buf += np.multiply(self._gain32, np.float32(plate + contrast), out=tmp)
+        else:
+            buf += np.multiply(self._gain32, np.float32(plate), out=tmp)
+            if contrast:
+                buf += np.multiply(gain_pattern, np.float32(contrast), out=tmp)
 
     def render_mean(self, scene: SceneState) -> np.ndarray:
-        """Expected value of each pixel before the ADC: clean signal through FPN.
+        """Expected value of each pixel before the ADC: clean signal through FPN (float32)."""
+        mean = np.zeros(self.shape, dtype=np.float32)
+        self._mean_into(scene, mean)
+        return mean - np.float32(0.5)
 
-        float32, cached per scene (the last few scenes).
-        """
-        cached = self._cache.get(scene)
-        if cached is not None:
-            self._cache.move_to_end(scene)
-            return cached
-        tr = self.truth
-        clean = self.render_clean(scene)
-        mean = tr.offset_counts + self.offset_map + self.gain_map * (clean - tr.offset_counts)
-        mean = mean.astype(np.float32)
-        mean.setflags(write=False)
-        self._cache[scene] = mean
-        if len(self._cache) > self._cache_size:
-            self._cache.popitem(last=False)
-        return mean
-
-    def render(self, scene: SceneState, frame_index: int) -> np.ndarray:
-        """One frame (uint16, [row, col]): mean + temporal noise, ADC rounding and clipping,
-        dead and hot pixels. The same (seed, frame_index, scene) always gives the same frame."""
-        mean = self.render_mean(scene)
-        rng = np.random.Generator(np.random.PCG64(
-            np.random.SeedSequence([self.seed, 1, int(frame_index)])))
-        buf = rng.standard_normal(self.shape, dtype=np.float32)
-        if self._uniform_sigma:
-            buf *= self.truth.temporal_noise_counts
+    def noise_bits(self, frame_index: int, capture_key: str | None = None) -> np.ndarray:
+        """One frame's 16-bit uniform draws (one per pixel) from a PCG64 generator seeded by
+        (run seed, frame index), or by (run seed, capture key, frame index in the capture)."""
+        if capture_key is None:
+            entropy = [self.seed, 1, int(frame_index)]
         else:
-            buf *= self.sigma_map
-        buf += mean
-        np.rint(buf, out=buf)
-        np.clip(buf, 0.0, float(self.truth.full_scale), out=buf)
+            entropy = [self.seed, 2, *_key_words(capture_key), int(frame_index)]
+        n = self.shape[0] * self.shape[1]
+        raw = np.random.PCG64(np.random.SeedSequence(entropy)).random_raw((n + 3) // 4)
+        return raw.view(np.uint16)[:n]
+
+    def render(self, scene: SceneState, frame_index: int,
+               capture_key: str | None = None) -> np.ndarray:
+        """One frame (uint16, [row, col]): mean + temporal noise, ADC rounding and clipping,
+        dead and hot pixels. The same (seed, capture key, frame_index, scene) always gives the
+        same frame."""
+        idx = self.noise_bits(frame_index, capture_key)
+        buf = np.take(self._noise_table, idx).reshape(self.shape)
+        flat = buf.reshape(-1)
+        if len(self.bad_pixels.noisy):
+            flat[self.bad_pixels.noisy] *= np.float32(self.truth.noisy_factor)
+        self._mean_into(scene, buf)                   # includes + 0.5: rounding by truncation
+        np.clip(buf, 0.0, float(self.truth.full_scale) + 0.25, out=buf)
         frame = buf.astype(np.uint16)
-        flat = frame.reshape(-1)
-        flat[self.bad_pixels.dead] = 0
-        flat[self.bad_pixels.hot] = self.truth.full_scale
+        out = frame.reshape(-1)
+        out[self.bad_pixels.dead] = 0
+        out[self.bad_pixels.hot] = self.truth.full_scale
         return frame
 
     def truth_for_scene(self, scene: SceneState) -> dict[str, object]:
@@ -300,15 +471,17 @@ class CameraRenderer:
             "radiance_source": l_src, "radiance_plate": l_plate,
             "spots_xy_px": spots.tolist(), "spot_labels_row_col": [list(x) for x in labels],
             "camera": self.truth.to_json_dict(),
-            "bad_pixels_xy": {k: np.column_stack(np.unravel_index(v, self.shape)[::-1]).tolist()
-                              for k, v in (("dead", self.bad_pixels.dead),
-                                           ("hot", self.bad_pixels.hot),
-                                           ("noisy", self.bad_pixels.noisy))},
+            "bad_pixels_xy": self.bad_pixels_xy(),
         }
+
+    def bad_pixels_xy(self) -> dict[str, list[list[int]]]:
+        """Planted bad pixels by kind, as (x, y) = (column, row) lists."""
+        return {k: np.column_stack(np.unravel_index(v, self.shape)[::-1]).tolist()
+                for k, v in self.bad_pixels.as_dict().items()}
 
 
 def boresight_pixel(truth: CameraTruth, az_deg: float = 0.0, el_deg: float = 0.0,
                     collimator_focal_mm: float = 1000.0) -> np.ndarray:
-    """Where the collimator axis lands (x, y) px: the bench's boresight reference."""
-    d = collimator_directions(np.zeros((1, 2)), collimator_focal_mm)
-    return project(truth.geometry, to_camera_frame(d, az_deg, el_deg))[0]
+    """Where the collimator axis lands (x, y) px: the bench's boresight reference (mounting
+    error included)."""
+    return plate_to_pixels(truth, np.zeros((1, 2)), collimator_focal_mm, az_deg, el_deg)[0]

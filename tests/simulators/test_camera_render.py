@@ -140,14 +140,18 @@ def test_edge_pixel_integration_matches_supersampling(angle: float) -> None:
 
 def test_slanted_edge_through_renderer_is_inverted_and_tilted() -> None:
     # Collimator relay inverts (geometry docstring): the open side x > 0 of the plate appears on
-    # the small-x side of the image; far from the edge the levels are the plate and source levels.
+    # the small-x side of the image; far from the edge the levels approach the plate and source
+    # levels. The diffraction edge's tail falls as 1/d (the circular aperture's MTF has a linear
+    # cusp 1 - (4/pi) lambda N f at f = 0, Goodman 6.3.2, whose transform falls as 1/x^2):
+    # within 0.05 / d of the contrast at d pixels from the edge.
     r = CameraRenderer(_truth())
     scene = SceneState(40.0, 20.0, SlantedEdge(5.0))
     img = r.render_clean(scene)
     l_src = band_radiance(313.15, (8.0, 12.0))
     l_plate = band_radiance(293.15, (8.0, 12.0))
-    assert img[40, 2] == pytest.approx(2000.0 + 200.0 * l_src, rel=1e-9)
-    assert img[40, 93] == pytest.approx(2000.0 + 200.0 * l_plate, rel=1e-9)
+    src, plate = 2000.0 + 200.0 * l_src, 2000.0 + 200.0 * l_plate
+    assert 0 < src - img[40, 2] < (src - plate) * 0.05 / 40.0
+    assert 0 < img[40, 93] - plate < (src - plate) * 0.05 / 40.0
     # Edge tilt: 50 % crossing moves by tan(5 deg) px per row (undistorted camera).
     half = 2000.0 + 100.0 * (l_src + l_plate)
     def crossing(row: int) -> float:
