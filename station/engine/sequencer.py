@@ -165,7 +165,8 @@ class Sequencer:
         else:
             self.status.request_fault(cause=cause)
         self.console.log("warning", f"safing the bench: {cause}")
-        problems = make_safe(self.ctx.bench, self.ctx.emit)
+        problems = make_safe(self.ctx.bench, self.ctx.emit,
+                             on_poll=self.ctx.requests.deliver_notices)
         for p in problems:
             self.console.log("error", p)
         full_cause = cause if not problems else cause + "; SAFING INCOMPLETE: " + "; ".join(problems)
