@@ -12,9 +12,9 @@ from drivers.errors import InstrumentError
 from station.cli import exitcodes
 from station.engine.abort import OperatorRequests, abort_on_signals
 from station.record.manifest import Manifest
-from station.formatting import format_duration
-from station.engine.runner import (execute, load_inputs, make_clock, new_run_folder,
-                            plan_summary)
+from station.formatting import format_duration, reading_lines
+from station.engine.runner import (console_plan, execute, load_inputs, make_clock,
+                                   new_run_folder, plan_summary)
 
 
 def _console_for(console: Console, plain: bool, clock=None):
@@ -34,7 +34,7 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
     with abort_on_signals(OperatorRequests()):
         with _console_for(console, args.plain, clock) as live:
-            live.start(len(inputs.plan.steps), inputs.estimate.total_s)
+            live.start(len(inputs.plan.steps), inputs.estimate.total_s, **console_plan(inputs))
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
         run.close()
         manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
@@ -97,7 +97,8 @@ def cmd_bench(args: argparse.Namespace, console: Console) -> int:
         with open_bench(station, clock) as bench:
             for role, inst in bench.instruments().items():
                 try:
-                    rows.append((role, inst.identify(), _brief(inst.snapshot())))
+                    rows.append((role, inst.identify(), instrument_text(
+                        role, inst.snapshot(), station)))
                 except InstrumentError as exc:
                     rows.append((role, "NOT ANSWERING", str(exc)))
                     failed.append(role)
@@ -109,6 +110,12 @@ def cmd_bench(args: argparse.Namespace, console: Console) -> int:
         console.print(f"[red]not answering: {', '.join(failed)}[/]")
         return exitcodes.INSTRUMENT
     return exitcodes.OK
+
+
+def instrument_text(role: str, snapshot: dict, station) -> str:
+    """One instrument's state in the shared reading format (units, no Python syntax)."""
+    units = {a: lim.unit for a, lim in station.axes.items()}
+    return reading_lines({role: snapshot}, axis_units=units)[0][1]
 
 
 def cmd_drivers(args: argparse.Namespace, console: Console) -> int:

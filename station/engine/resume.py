@@ -30,7 +30,7 @@ from station.record.events import read_events
 from station.record.journal import JournalError
 from station.record.manifest import RUNNING, Manifest, ManifestError, load_manifest
 from station.record.runfolder import RunFolder, RunFolderError
-from station.engine.runner import Inputs, execute, load_inputs
+from station.engine.runner import Inputs, console_plan, execute, load_inputs
 
 ROLES = ("station", "uut", "recipe")
 BUILT_IN = "(built in)"
@@ -228,7 +228,7 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
         for change in changes:
             live.log("warning", f"--force: {change.role} file {change.source}: {change.problem}")
         live.log("info", f"resuming: {note}")
-        live.start(len(inputs.plan.steps), remaining_s)
+        live.start(len(inputs.plan.steps), remaining_s, **console_plan(inputs, completed))
         outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
                           fault_plan=fault_plan, manifest=manifest,
                           expected_identities=None if force else first_identities(run))

@@ -111,6 +111,16 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
                 f"{inputs.estimate.frames} frames, estimated {format_duration(inputs.estimate.total_s)}")
 
 
+def console_plan(inputs: Inputs, done_ids: Mapping[str, Any] | None = None) -> dict[str, Any]:
+    """What the console's `start` needs: per-step estimates (plan order), the 1-based numbers of
+    steps already done, and the stage axes' units."""
+    per_step = dict(inputs.estimate.per_step)
+    done = done_ids or {}
+    return {"per_step_s": [float(per_step.get(s.id, 0.0)) for s in inputs.plan.steps],
+            "done": [i for i, s in enumerate(inputs.plan.steps, start=1) if s.id in done],
+            "axis_units": {a: lim.unit for a, lim in inputs.station.axes.items()}}
+
+
 def plan_summary(inputs: Inputs, seed: int) -> dict[str, Any]:
     """What the manifest records about the plan (resume reads it back)."""
     return {"recipe": inputs.plan.recipe, "station": inputs.station.name,

@@ -19,6 +19,7 @@ from station.engine.machine import RunStatus, build_machine
 from station.engine.safing import make_safe
 from station.engine.steps import STEP_HANDLERS, StepContext, StepHandler
 from station.engine.waiting import StepFailed
+from station.formatting import format_params
 
 RESTORE_KINDS = ("blackbody", "target", "move")
 READINGS_REFRESH_S = 1.0  # real seconds between console readings while a step waits
@@ -38,9 +39,7 @@ class RunOutcome:
 
 
 def describe(step: Any) -> str:
-    params = ", ".join(f"{k}={v}" for k, v in step.params.items()
-                       if k not in ("captures_resolved",))
-    return f"{step.kind} {params}"[:120]
+    return f"{step.kind} {format_params(step.params, skip=('captures_resolved',))}"[:120]
 
 
 class Sequencer:
@@ -114,7 +113,7 @@ class Sequencer:
             self._pause_point()
             self.ctx.requests.check()
             self.current_step = step
-            self.console.step(index, step.id, describe(step))
+            self.console.step(index + 1, step.id, describe(step))
             self.ctx.emit("step.start", step=step.id, kind=step.kind, index=index, total=total)
             result = self.handlers[step.kind](step, self.ctx)
             self.journal.record(step.id, step.kind, result)
