@@ -19,7 +19,8 @@ from __future__ import annotations
 import dataclasses
 import os
 import socket
-from collections.abc import Mapping
+import time
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -176,7 +177,8 @@ def resume_clock(inputs: Inputs, start: float) -> Clock:
 
 def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None,
                console: Any, clock: Clock | None = None,
-               fault_plan: Any = None) -> tuple[str, str, Path]:
+               fault_plan: Any = None,
+               wall: Callable[[], float] = time.time) -> tuple[str, str, Path]:
     """Continue the run in `path` at its first step not in the journal.
 
     Returns (end state, cause, run folder). Raises ResumeRefused (a ValueError) when the folder,
@@ -220,7 +222,9 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
     note = (f"{len(completed)} of {len(inputs.plan.steps)} steps done; "
             f"{len(aside)} unfinished capture(s) set aside"
             + ("; forced past: " + ", ".join(c.role for c in changes) if changes else ""))
-    manifest.resumed(run_path, clock, note=note)
+    manifest.resumed(run_path, clock, note=note, wall=wall)
+    if hasattr(console, "clock"):
+        console.clock = clock  # the screen shows the run's (simulated) time, labelled so
     remaining_s = sum(s for step_id, s in inputs.estimate.per_step if step_id not in completed)
     with console as live:
         for warning in journal.warnings:
@@ -233,7 +237,7 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
                           fault_plan=fault_plan, manifest=manifest,
                           expected_identities=None if force else first_identities(run))
     run.close()
-    manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock)
+    manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock, wall=wall)
     return outcome.state, outcome.cause, run_path
 
 

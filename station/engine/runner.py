@@ -6,7 +6,8 @@ This is the glue the command line calls. Everything it needs is passed in explic
 from __future__ import annotations
 
 import datetime as dt
-from collections.abc import Mapping
+import time
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -174,10 +175,13 @@ def io_sink(events: Any) -> Any:
     return sink
 
 
-def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> Any:
+def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock,
+                   wall: Callable[[], float] = time.time) -> Any:
+    """A new run folder named by the wall clock's start time (never the simulated clock's: a dry
+    run is filed under the moment it was made); `wall` is injectable for tests."""
     from station.record.runfolder import RunFolder
 
-    utc = dt.datetime.fromtimestamp(clock.now(), tz=dt.timezone.utc)
+    utc = dt.datetime.fromtimestamp(wall(), tz=dt.timezone.utc)
     run = RunFolder.create(Path(runs_root).resolve(), uut_serial=inputs.uut.serial,
                            recipe_name=inputs.plan.recipe, utc=utc, clock=clock)
     run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path, recipe=inputs.recipe_path)
