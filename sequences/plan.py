@@ -246,8 +246,24 @@ class _Expander:
 
     def do_blackbody(self, node: StepNode, env: dict[str, Any], step_id: str,
                      context: dict[str, Any]) -> None:
-        params = self.options(node, env)
+        ok, values = substitute(node.body, env, node.body_ref, self.problems)
+        if not ok:
+            return
+        refs = self.refs_of(node)
+        params = coerce_options(STEP_SPECS["blackbody"], values, refs, self.problems)
         if params is None:
+            # another option is wrong: still check the setpoint against the station, so every
+            # mistake of the step is reported in one pass
+            quiet: list[Problem] = []
+            spec = STEP_SPECS["blackbody"].options
+            mode_ok, mode = (coerce_value(spec["mode"], values["mode"], refs("mode"),
+                                          "blackbody", quiet) if "mode" in values
+                             else (False, None))
+            value_ok, value = (coerce_value(spec["value"], values["value"], refs("value"),
+                                            "blackbody", quiet) if "value" in values
+                               else (False, None))
+            if mode_ok and value_ok:
+                self.station("blackbody", {"mode": mode, "value": value}, refs)
             return
         self.station("blackbody", params, self.refs_of(node))
         self.add(f"{step_id}.blackbody", "blackbody", params, node, context)
@@ -263,8 +279,10 @@ class _Expander:
             good, number = coerce_value(Option(str(axis), "number"), value, refs(axis),
                                         "move", self.problems)
             ok = ok and good
-            position[str(axis)] = number
-        if not ok:
+            if good:
+                position[str(axis)] = number
+        if not ok:  # the other axes are still checked against the station (all in one pass)
+            self.station("move", {"position": position}, refs)
             return
         params = {"position": position}
         self.station("move", params, refs)

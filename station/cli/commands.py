@@ -1,20 +1,22 @@
-"""What each `nightbench` sub-command does (argument parsing lives in station/cli/main.py)."""
+"""What each `nightbench` sub-command does (argument parsing lives in station/cli/main.py).
+
+Heavy imports (the runner, drivers, simulators, scipy, matplotlib, numpy) are made inside the
+commands that need them, so `nightbench recipes` and `--help` start at once.
+"""
 
 from __future__ import annotations
 
 import argparse
+import sys
 from pathlib import Path
 
-from rich.console import Console
+from typing import TYPE_CHECKING
 
-from drivers.clock import SimClock
-from drivers.errors import InstrumentError
 from station.cli import exitcodes
-from station.engine.abort import OperatorRequests, abort_on_signals
-from station.record.manifest import Manifest
 from station.formatting import format_duration, reading_lines
-from station.engine.runner import (console_plan, execute, load_inputs, make_clock,
-                                   new_run_folder, plan_summary)
+
+if TYPE_CHECKING:
+    from rich.console import Console
 
 
 def _console_for(console: Console, plain: bool, clock=None):
@@ -25,11 +27,21 @@ def _console_for(console: Console, plain: bool, clock=None):
 
 
 def cmd_run(args: argparse.Namespace, console: Console) -> int:
+    from station.cli import run_guard
+    from station.engine.abort import OperatorRequests, abort_on_signals
+    from station.engine.runner import (console_plan, execute, load_inputs, make_clock,
+                                       new_run_folder, plan_summary)
+    from station.record.manifest import Manifest
+
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
+    confirmation = _confirm_real_station(args, console, inputs)
+    if isinstance(confirmation, int):
+        return confirmation
     clock = make_clock(inputs.station, args.realtime)
     run = new_run_folder(inputs, args.runs, clock)
     manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, args.seed))
+    manifest.start_confirmation = confirmation
     manifest.write(run.path)
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
     with abort_on_signals(OperatorRequests()):
@@ -39,21 +51,51 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
         run.close()
         manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
+    if outcome.state != "complete":
+        for line in run_guard.safing_lines(run_guard.read_run_events(run.path), inputs.station):
+            console.print(f"  {line}", highlight=False, markup=False)
     console.print(f"run folder: {run.path}", highlight=False, markup=False)
-    return exitcodes.BY_STATE.get(outcome.state, exitcodes.FAULTED)
+    return run_guard.run_exit_code(outcome.state, outcome.cause)
+
+
+def _confirm_real_station(args: argparse.Namespace, console: Console, inputs) -> str | int:
+    """On a real station: refuse without --uut, show the cautions, ask (or take --yes).
+    Returns how the start was confirmed, or the exit code of a refusal."""
+    from station.cli import run_guard
+
+    if inputs.station.simulated:
+        return "not needed: simulated station"
+    if args.uut is None:
+        console.print("[bold red]refused:[/] a real station needs the UUT file of the camera "
+                      "on the bench (--uut FILE); the demo camera file is for the simulated "
+                      "bench only", highlight=False)
+        return exitcodes.INVALID
+    for line in run_guard.caution_lines(inputs):
+        console.print(line, highlight=False, markup=False)
+
+    def say(text: str) -> None:
+        console.print(text, highlight=False, markup=False)
+
+    confirmation = run_guard.confirm_start(say, assume_yes=args.yes, stdin=sys.stdin)
+    return exitcodes.INVALID if confirmation is None else confirmation
 
 
 def cmd_check(args: argparse.Namespace, console: Console) -> int:
+    from drivers.clock import SimClock
+    from drivers.errors import InstrumentError
+    from station.cli.plan_view import folded_text, full_text
     from station.engine.bench import open_bench
-    from station.cli.console import print_table
+    from station.engine.runner import load_inputs, make_clock
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
     per_step = dict(inputs.estimate.per_step)
-    rows = [(i, s.id, s.kind, _brief(s.params), f"{per_step.get(s.id, 0.0):.1f}")
-            for i, s in enumerate(inputs.plan.steps)]
-    print_table(console, f"plan of {inputs.plan.recipe} on {inputs.station.name}",
-                ["#", "step id", "kind", "parameters", "est. s"], rows)
+    steps = inputs.plan.steps
+    view = full_text if args.full else folded_text
+    console.print(f"plan of {inputs.plan.recipe} on {inputs.station.name}: {len(steps)} steps"
+                  + ("" if args.full else " (loops folded; --full lists every step)"),
+                  highlight=False, markup=False, soft_wrap=True)
+    console.print(view(steps, per_step), highlight=False, markup=False, soft_wrap=True)
     if not args.no_connect:
         try:
             with open_bench(inputs.station, SimClock() if inputs.station.simulated
@@ -71,22 +113,20 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
     return exitcodes.OK
 
 
-def _brief(params: dict) -> str:
-    text = ", ".join(f"{k}={v}" for k, v in params.items())
-    return text if len(text) < 70 else text[:67] + "..."
-
-
 def cmd_recipes(args: argparse.Namespace, console: Console) -> int:
     from sequences.library import list_builtin
-    from station.cli.console import print_table
+    from station.formatting import columns_text
 
-    print_table(console, "built-in recipes", ["name", "description"], list_builtin())
+    print("built-in recipes (nightbench check NAME shows the plan)")
+    print(columns_text(["name", "description"], list_builtin()), flush=True)
     return exitcodes.OK
 
 
 def cmd_bench(args: argparse.Namespace, console: Console) -> int:
+    from drivers.errors import InstrumentError
     from station.engine.bench import open_bench
-    from station.cli.console import print_table
+    from station.engine.runner import make_clock
+    from station.cli.tables import print_table
     from station.inputs.config import load_station
 
     station = load_station(args.station)
@@ -120,7 +160,7 @@ def instrument_text(role: str, snapshot: dict, station) -> str:
 
 def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
     from drivers.registry import list_drivers
-    from station.cli.console import print_table
+    from station.cli.tables import print_table
 
     rows = [(d.name, d.kind, d.package, ", ".join(d.settings)) for d in list_drivers()]
     print_table(console, "drivers", ["name", "kind", "package", "settings"], rows)

@@ -38,10 +38,19 @@ from rich.table import Table
 from rich.text import Text
 
 from drivers.clock import Clock, RealClock
+from station.cli.tables import print_table  # noqa: F401  (kept here for callers)
 from station.engine.progress import Progress, ProgressTracker
 from station.formatting import (format_clock_time, format_duration, format_value, reading_lines,
                                 readings_text)
-from station.record.events import utc_iso
+
+
+def utc_iso(seconds: float) -> str:
+    """The event log's timestamp form (imported on use: the record package loads numpy, which
+    `nightbench recipes` must not wait for)."""
+    from station.record.events import utc_iso as _utc_iso
+
+    return _utc_iso(seconds)
+
 
 LEVEL_STYLES = {"DEBUG": "dim", "INFO": "", "WARNING": "yellow", "ERROR": "bold red",
                 "CRITICAL": "bold red"}
@@ -284,14 +293,3 @@ class RunConsole:
         line = f"{when} {level:<7} {text}"
         self.console.print(line, markup=False, highlight=False, emoji=False, soft_wrap=True,
                            style=None)
-
-
-def print_table(console: Console, title: str, columns: list[str] | tuple[str, ...],
-                rows: list[Any] | tuple[Any, ...]) -> None:
-    """A titled table of plain cells (every cell shown with str())."""
-    table = Table(title=title)
-    for c in columns:
-        table.add_column(c)
-    for r in rows:
-        table.add_row(*[str(x) for x in r])
-    console.print(table)
