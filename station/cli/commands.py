@@ -23,7 +23,19 @@ def _console_for(console: Console, plain: bool, clock=None):
     """The live display (plain lines when not a terminal); times in the run's clock."""
     from station.cli.console import RunConsole
 
-    return RunConsole(console, plain=True if plain else None, clock=clock)
+    real = console.resolve() if hasattr(type(console), "resolve") else console
+    return RunConsole(real, plain=True if plain else None, clock=clock)
+
+
+def _transport_log_to_event_log_only() -> None:
+    """During a run every retry and reconnect is an event in events.jsonl (and failures reach
+    the console through the run's own messages); without a handler Python's last-resort handler
+    would print them to stderr as raw dicts."""
+    import logging
+
+    logger = logging.getLogger("nightbench.transport")
+    if not logger.handlers:
+        logger.addHandler(logging.NullHandler())
 
 
 def cmd_run(args: argparse.Namespace, console: Console) -> int:
@@ -39,6 +51,7 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     if isinstance(confirmation, int):
         return confirmation
     clock = make_clock(inputs.station, args.realtime)
+    _transport_log_to_event_log_only()
     run = new_run_folder(inputs, args.runs, clock)
     manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, args.seed))
     manifest.start_confirmation = confirmation
@@ -50,11 +63,12 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
         run.close()
         manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
-    console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
+    console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False,
+                  soft_wrap=True)
     if outcome.state != "complete":
         for line in run_guard.safing_lines(run_guard.read_run_events(run.path), inputs.station):
-            console.print(f"  {line}", highlight=False, markup=False)
-    console.print(f"run folder: {run.path}", highlight=False, markup=False)
+            console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+    console.print(f"run folder: {run.path}", highlight=False, markup=False, soft_wrap=True)
     return run_guard.run_exit_code(outcome.state, outcome.cause)
 
 
@@ -63,18 +77,17 @@ def _confirm_real_station(args: argparse.Namespace, console: Console, inputs) ->
     Returns how the start was confirmed, or the exit code of a refusal."""
     from station.cli import run_guard
 
+    def say(text: str) -> None:
+        console.print(text, highlight=False, markup=False, soft_wrap=True)
+
     if inputs.station.simulated:
         return "not needed: simulated station"
     if args.uut is None:
-        console.print("[bold red]refused:[/] a real station needs the UUT file of the camera "
-                      "on the bench (--uut FILE); the demo camera file is for the simulated "
-                      "bench only", highlight=False)
+        say("refused: a real station needs the UUT file of the camera on the bench "
+            "(--uut FILE); the demo camera file is for the simulated bench only")
         return exitcodes.INVALID
     for line in run_guard.caution_lines(inputs):
-        console.print(line, highlight=False, markup=False)
-
-    def say(text: str) -> None:
-        console.print(text, highlight=False, markup=False)
+        say(line)
 
     confirmation = run_guard.confirm_start(say, assume_yes=args.yes, stdin=sys.stdin)
     return exitcodes.INVALID if confirmation is None else confirmation
@@ -192,6 +205,7 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
 def cmd_resume(args: argparse.Namespace, console: Console) -> int:
     from station.engine.resume import resume_run
 
+    _transport_log_to_event_log_only()
     state, cause, path = resume_run(args.run_folder, force=args.force, seed=args.seed,
                                     console=_console_for(console, args.plain))
     console.print(f"run {state}: {cause}", highlight=False, markup=False)

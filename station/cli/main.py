@@ -110,12 +110,16 @@ class _LazyConsole:
     def __init__(self) -> None:
         self._console: Any = None
 
-    def __getattr__(self, name: str) -> Any:
+    def resolve(self) -> Any:
+        """The rich Console itself (for rich objects that use it as a context manager)."""
         if self._console is None:
             from rich.console import Console
 
             self._console = Console(stderr=False)
-        return getattr(self._console, name)
+        return self._console
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self.resolve(), name)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
