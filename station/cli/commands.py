@@ -203,14 +203,30 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_resume(args: argparse.Namespace, console: Console) -> int:
+    from station.cli import run_guard
     from station.engine.resume import resume_run
 
     _transport_log_to_event_log_only()
     state, cause, path = resume_run(args.run_folder, force=args.force, seed=args.seed,
                                     console=_console_for(console, args.plain))
-    console.print(f"run {state}: {cause}", highlight=False, markup=False)
-    console.print(f"run folder: {path}", highlight=False, markup=False)
-    return exitcodes.BY_STATE.get(state, exitcodes.FAULTED)
+    console.print(f"run {state}: {cause}", highlight=False, markup=False, soft_wrap=True)
+    if state not in ("complete",):
+        simulated = _was_simulated(path)
+        for line in run_guard.safing_lines(run_guard.read_run_events(path),
+                                           simulated=simulated):
+            console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+    console.print(f"run folder: {path}", highlight=False, markup=False, soft_wrap=True)
+    return run_guard.run_exit_code(state, cause)
+
+
+def _was_simulated(run_path: Path) -> bool:
+    """Whether the run's manifest says it ran on a simulated station (unknown: assume not)."""
+    from station.record.manifest import ManifestError, load_manifest
+
+    try:
+        return bool(load_manifest(run_path).plan.get("simulated", False))
+    except ManifestError:
+        return False
 
 
 def cmd_verify(args: argparse.Namespace, console: Console) -> int:

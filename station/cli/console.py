@@ -268,14 +268,15 @@ class RunConsole:
                 table.add_row(Text(label, style="bold"), Text(text))
             room = max(self.console.height - SCREEN_FIXED_ROWS - max(len(rows), 1) - 1, 3)
             recent = list(self._lines)[-room:]  # the newest lines that fit: the panel scrolls
-            lines = Text("\n".join(f"{self._stamp(s)} {lvl:<7} {msg}" for s, lvl, msg in recent)
+            lines = Text("\n".join(f"{s[11:19]} {lvl:<7} {msg}" for s, lvl, msg in recent)
                          or "-", overflow="ellipsis", no_wrap=True)
+        recent_title = "recent (simulated time)" if self.clock.simulated else "recent"
         return Group(header, bar, Panel(table, title="instruments", expand=True),
-                     Panel(lines, title="recent", expand=True))
+                     Panel(lines, title=recent_title, expand=True))
 
     def _stamp(self, utc_text: str) -> str:
         """hh:mm:ss of a log line; simulated time says so."""
-        return utc_text[11:19] + (" sim" if self.clock.simulated else "")
+        return utc_text[11:19] + (" simulated" if self.clock.simulated else "")
 
     def _sim_label(self) -> str:
         return " (simulated time)" if self.clock.simulated else ""

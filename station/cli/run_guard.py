@@ -111,13 +111,17 @@ def _user() -> str:
         return "an unknown user"
 
 
-def safing_lines(events: Sequence[Mapping[str, Any]], station: Any) -> list[str]:
-    """What the last safing did, from the event log, and the hot-source reminder."""
+def safing_lines(events: Sequence[Mapping[str, Any]], station: Any = None, *,
+                 simulated: bool | None = None) -> list[str]:
+    """What the last safing did, from the event log, and the hot-source reminder (not for a
+    simulated station). `station` gives the axes' units; without it positions have none."""
     last: dict[str, Mapping[str, Any]] = {}
     for event in events:
         if str(event.get("type", "")).startswith("safing."):
             last[str(event["type"])] = event
-    units = {a: lim.unit for a, lim in station.axes.items()}
+    units = {a: lim.unit for a, lim in station.axes.items()} if station is not None else {}
+    if simulated is None:
+        simulated = bool(station is not None and station.simulated)
     lines = []
     bb = last.get("safing.blackbody")
     if bb is None:
@@ -139,7 +143,7 @@ def safing_lines(events: Sequence[Mapping[str, Any]], station: Any) -> list[str]
             f"{a} {float(v):+.3f} {units.get(a, '')}".rstrip() for a, v in positions.items()))
     else:
         lines.append(f"stage: NOT PARKED ({stage.get('error')}): park it by hand")
-    if not station.simulated:
+    if not simulated:
         lines.append("The source may still be hot: let it cool before touching it or the "
                      "target wheel.")
     return lines
