@@ -54,6 +54,7 @@ def utc_iso(seconds: float) -> str:
 
 LEVEL_STYLES = {"DEBUG": "dim", "INFO": "", "WARNING": "yellow", "ERROR": "bold red",
                 "CRITICAL": "bold red"}
+STOPPED_STATES = frozenset({"safing", "aborted", "faulted"})
 SCREEN_FIXED_ROWS = 6
 """Rows of the live display besides the readings and the recent lines (header, progress line,
 the two panels' borders)."""
@@ -222,15 +223,18 @@ class RunConsole:
 
     def progress_text(self, short: bool = False) -> str:
         """`25%, elapsed 0:01:10, about 0:03:30 left, ends about 14:32` in the run's clocks;
-        when finished `100%, total 0:04:40`. Simulated times say so."""
+        finished: `100%, total 0:04:40`; stopped: `40% done, stopped after 0:02:00`. Times of a
+        simulated run end with `(simulated)`."""
         p = self.progress()
-        sim = self.clock.simulated
-        label = " simulated" if sim else ""
+        label = " (simulated)" if self.clock.simulated else ""
         if p.finished:
             return f"100%, total {format_duration(p.elapsed_s)}{label}"
+        if self._state in STOPPED_STATES:
+            return (f"{p.fraction * 100:.0f}% done, stopped after "
+                    f"{format_duration(p.elapsed_s)}{label}")
         text = (f"{p.fraction * 100:.0f}%, " + ("" if short else
-                f"elapsed {format_duration(p.elapsed_s)}{label}, ")
-                + f"about {format_duration(p.left_s)}{label} left")
+                f"elapsed {format_duration(p.elapsed_s)}, ")
+                + f"about {format_duration(p.left_s)} left{label}")
         end = self.expected_end(p)
         if end is not None:
             text += f", ends about {end}"
@@ -251,7 +255,7 @@ class RunConsole:
         """The live display as a rich renderable (also usable for a snapshot)."""
         p = self.progress()
         with self._lock:
-            header = Text()
+            header = Text(no_wrap=True, overflow="ellipsis")
             header.append(f"{self._state.upper()}", style="bold")
             if self._cause:
                 header.append(f" ({self._cause})")

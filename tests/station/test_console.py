@@ -56,7 +56,7 @@ def test_not_a_terminal_gives_plain_timestamped_lines_without_escape_codes() -> 
     # it overran. Ratio (600 + 180) / (360 + 180) = 1.444 (prior W = max(60 s, 5 % of 3600 s)
     # = 180 s): raw left 1.444 x 9 x 360 = 4680 s, shown at most one step (360 s) above 3240 s.
     assert lines[3].startswith("2026-01-01T00:10:00.000Z") and "step 3/10" in lines[3]
-    assert "about 1:00:00 simulated left]" in lines[3]
+    assert "about 1:00:00 left (simulated)]" in lines[3]
     assert "WARNING blackbody drifted 12 mK" in lines[4]
     assert lines[5].endswith("STATE   held: blackbody left its tolerance")
     assert max(len(line) for line in lines) > 80  # long lines are not wrapped into two
@@ -99,7 +99,7 @@ def test_terminal_shows_step_progress_and_instrument_panel() -> None:
     # steps ran exactly as estimated: 625 s of 1000 done, 375 s left, shown as 0:06:15
     p = ui.progress()
     assert (p.step, p.fraction, p.elapsed_s, p.left_s) == (3, 0.625, 625.0, 375.0)
-    assert "62%" in text and "about 0:06:15 simulated left" in text
+    assert "62%" in text and "about 0:06:15 left (simulated)" in text
     assert ESC in console.file.getvalue()  # a terminal does get the live display's codes
 
 
@@ -133,7 +133,7 @@ def test_final_screen_shows_100_percent_and_the_total() -> None:
     ui.state("complete", "all steps done")
     p = ui.progress()
     assert (p.step, p.fraction, p.left_s, p.elapsed_s) == (2, 1.0, 0.0, 140.0)
-    assert buf.getvalue().splitlines()[-1].endswith("100%, total 0:02:20 simulated")
+    assert buf.getvalue().splitlines()[-1].endswith("100%, total 0:02:20 (simulated)")
 
 
 def test_real_clock_shows_the_expected_end_as_local_time() -> None:
@@ -169,3 +169,16 @@ def test_event_log_and_logging_feed_the_same_console(tmp_path) -> None:  # type:
     assert len(lines) == 2
     assert lines[0].endswith("STATE   paused: operator pressed pause")
     assert lines[1].endswith("ERROR   nightbench.test_console: stage stalled on axis el")
+
+
+def test_a_stopped_run_says_how_far_it_got_not_a_time_left() -> None:
+    clock = SimClock()
+    ui = RunConsole(plain_console()[0], clock=clock)
+    ui.start(plan_len=4, estimate_s=400, per_step_s=[100.0] * 4)
+    ui.step(1, "a")
+    clock.sleep(100)
+    ui.step(2, "b")
+    clock.sleep(50)
+    ui.state("aborted", "operator signal SIGINT")
+    # 150 s of a 400 s plan that ran as estimated: 37.5 %, shown rounded to 38 %
+    assert ui.progress_text() == "38% done, stopped after 0:02:30 (simulated)"

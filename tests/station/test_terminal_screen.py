@@ -38,9 +38,9 @@ steps:
   - note: done
 """
 ANSI = re.compile(rb"\x1b\[[0-9;?]*[A-Za-z]|\x1b[()][A-Za-z0-9]|\r")
-PROGRESS = re.compile(r"(\d+)%, elapsed (\d+):(\d\d):(\d\d) simulated, about (\d+):(\d\d):(\d\d) "
-                      r"simulated left")
-TOTAL = re.compile(r"100%, total (\d+):(\d\d):(\d\d) simulated")
+PROGRESS = re.compile(r"(\d+)%, elapsed (\d+):(\d\d):(\d\d), about (\d+):(\d\d):(\d\d) left "
+                      r"\(simulated\)")
+TOTAL = re.compile(r"100%, total (\d+):(\d\d):(\d\d) \(simulated\)")
 
 
 def seconds(h: str, m: str, s: str) -> int:
