@@ -101,8 +101,9 @@ def test_folders_are_named_by_the_wall_clock_and_a_resume_keeps_its_folder(
     second_out, second = dry_run(recipe, station, runs, WALL_T0 + 60.0, io.StringIO())
     monkeypatch.undo()
     assert second_out.state == "aborted"
-    assert first.name == "20310506T221530Z_OW-0042_two-clocks"
-    assert second.name == "20310506T221630Z_OW-0042_two-clocks"  # one minute later
+    serial = load_inputs(recipe, station_path=station, uut_path=None, overrides={}).uut.serial
+    assert first.name == f"20310506T221530Z_{serial}_two-clocks"
+    assert second.name == f"20310506T221630Z_{serial}_two-clocks"  # one minute later
 
     manifest = json.loads((first / "manifest.json").read_text())
     assert manifest["wall_start_utc"] == "2031-05-06T22:15:30.000Z"
