@@ -1,6 +1,6 @@
 """The live screen as an operator sees it: a real `nightbench run` in a pseudo-terminal.
 
-A paced simulated run (`--realtime 150`: 5 simulated minutes in about 2 s) is read through a
+A paced simulated run (`--realtime 200`: 5 simulated minutes in 1.5 s) is read through a
 pseudo-terminal (pexpect), so rich draws its live display exactly as on a bench terminal. Every
 frame's progress line is read from the byte stream in order; the final screen is rebuilt with a
 VT100 emulator (pyte) and printed, a text screenshot (`pytest -rP` shows it).
@@ -13,7 +13,6 @@ plan's total within one step's estimate, the time left reaches zero, and the fin
 from __future__ import annotations
 
 import re
-import socket
 import sys
 from pathlib import Path
 
@@ -23,7 +22,7 @@ pexpect = pytest.importorskip("pexpect")
 pyte = pytest.importorskip("pyte")
 
 COLUMNS, ROWS = 110, 30
-SPEED = 150.0
+SPEED = 200.0
 WAIT_S = 60.0
 RECIPE = f"""\
 recipe: paced-screen
@@ -93,12 +92,6 @@ def test_paced_run_counts_down_to_zero_and_ends_at_100_percent(tmp_path: Path) -
     assert abs(seconds(*total.groups()) - plan_total) <= 2
     assert "COMPLETE" in screen and "step 7/7" in screen
     assert "{" not in screen  # no Python syntax on screen
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def test_real_station_asks_before_anything_moves(tmp_path: Path, lab_station: Path) -> None:
