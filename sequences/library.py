@@ -32,14 +32,14 @@ def list_builtin() -> list[tuple[str, str]]:
     A description written as a plain one-line scalar is read without parsing the YAML (so
     `nightbench recipes` answers at once); any other form goes through the YAML loader.
     """
-    from sequences.yamlsource import MarkedDict, SourceError, load_yaml
-
     out: list[tuple[str, str]] = []
     for name, path in _builtin_paths().items():
         quick = _PLAIN_DESCRIPTION.search(path.read_text(encoding="utf-8"))
         if quick is not None:
             out.append((name, quick.group(1).strip()))
             continue
+        from sequences.yamlsource import MarkedDict, SourceError, load_yaml
+
         try:
             doc = load_yaml(path)
         except SourceError:

@@ -130,8 +130,13 @@ def cmd_recipes(args: argparse.Namespace, console: Console) -> int:
     from sequences.library import list_builtin
     from station.formatting import columns_text
 
-    print("built-in recipes (nightbench check NAME shows the plan)")
-    print(columns_text(["name", "description"], list_builtin()), flush=True)
+    try:
+        print("built-in recipes (nightbench check NAME shows the plan)")
+        print(columns_text(["name", "description"], list_builtin()), flush=True)
+    except BrokenPipeError:  # `nightbench recipes | head -1`: the reader has what it wanted
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
     return exitcodes.OK
 
 

@@ -104,6 +104,17 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _NotRaised(Exception):
+    """Stands for SourceError while the YAML layer was never loaded (so it cannot be raised)."""
+
+
+def _source_error() -> type[Exception]:
+    """sequences.yamlsource.SourceError if that module was loaded (commands that read no YAML,
+    such as `recipes`, do not pay for importing it)."""
+    module = sys.modules.get("sequences.yamlsource")
+    return module.SourceError if module is not None else _NotRaised
+
+
 class _LazyConsole:
     """A rich Console made on first use: listings printed as plain text never load rich."""
 
@@ -125,7 +136,6 @@ class _LazyConsole:
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     # imported after parsing, so `--help` and `--version` answer at once
-    from sequences.yamlsource import SourceError
     from station.cli import commands
 
     console = _LazyConsole()
@@ -140,7 +150,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         if hasattr(args, "overrides"):
             args.overrides = _parse_overrides(args.overrides)
         return handlers[args.command](args, console)
-    except SourceError as exc:
+    except _source_error() as exc:  # evaluated only when something was raised
         console.print("[bold red]Input problems:[/]", highlight=False)
         for problem in exc.problems:
             console.print(f"  {problem}", highlight=False, markup=False)
