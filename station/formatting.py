@@ -199,4 +199,5 @@ def format_params(params: Mapping[str, Any], skip: Sequence[str] = ()) -> str:
     >>> format_params({"position": {"az": -11.0, "el": 2.125}, "captures": ["grid"]})
     'position az -11, el 2.125; captures grid'
     """
-    return "; ".join(f"{k} {_short(v)}" for k, v in params.items() if k not in skip)
+    return "; ".join(f"{k} {_short(v)}" for k, v in params.items()
+                     if k not in skip and v not in ({}, [], ()))
