@@ -140,9 +140,18 @@ def _points_csv_text(result: DistortionResult) -> str:
     return buf.getvalue()
 
 
+def _follow_umask(fd: int) -> None:
+    """mkstemp creates files 0600; give them the mode any other new file gets (0666 less the
+    umask) so colleagues can read the results as they can read the frames."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    os.fchmod(fd, 0o666 & ~mask)
+
+
 def _atomic_write(path: Path, text: str) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    _follow_umask(fd)
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             fh.write(text)
@@ -191,6 +200,7 @@ def write_undistortion_map(result: DistortionResult, folder: str | os.PathLike[s
     path = Path(folder) / "undistortion_map.tif"
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".undistortion_map.", suffix=".tmp")
+    _follow_umask(fd)
     os.close(fd)
     try:
         tifffile.imwrite(tmp, np.stack([map_x, map_y]).astype(np.float32),

@@ -6,10 +6,8 @@ that exists wins, otherwise the word is looked up among the built-ins in ``seque
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
-
-from sequences.steps import suggest
-from sequences.yamlsource import MarkedDict, SourceError, load_yaml
 
 __all__ = ["BUILTIN_DIR", "RecipeNotFoundError", "list_builtin", "find_recipe"]
 
@@ -24,10 +22,24 @@ def _builtin_paths() -> dict[str, Path]:
     return {p.stem: p for p in sorted(BUILTIN_DIR.glob("*.yaml"))}
 
 
+_PLAIN_DESCRIPTION = re.compile(r"^description:[ \t]+([^'\"|>&*!%@`#{\[\s][^#\n]*?)[ \t]*$",
+                                re.MULTILINE)
+
+
 def list_builtin() -> list[tuple[str, str]]:
-    """(name, description) of every built-in recipe, sorted by name."""
+    """(name, description) of every built-in recipe, sorted by name.
+
+    A description written as a plain one-line scalar is read without parsing the YAML (so
+    `nightbench recipes` answers at once); any other form goes through the YAML loader.
+    """
     out: list[tuple[str, str]] = []
     for name, path in _builtin_paths().items():
+        quick = _PLAIN_DESCRIPTION.search(path.read_text(encoding="utf-8"))
+        if quick is not None:
+            out.append((name, quick.group(1).strip()))
+            continue
+        from sequences.yamlsource import MarkedDict, SourceError, load_yaml
+
         try:
             doc = load_yaml(path)
         except SourceError:
@@ -48,6 +60,8 @@ def find_recipe(name_or_path: str | Path) -> Path:
     key = path.name[:-5] if path.name.endswith(".yaml") else path.name
     if str(name_or_path) in (key, f"{key}.yaml") and key in builtins:
         return builtins[key]
+    from sequences.steps import suggest
+
     listed = ", ".join(builtins) or "none"
     hint = suggest(key, builtins, "built-in recipes")
     extra = f" {hint}" if hint.startswith("did") else ""

@@ -251,6 +251,28 @@ class _Expander:
             return None
         return coerce_options(STEP_SPECS[node.kind], values, self.refs_of(node), self.problems)
 
+    def do_blackbody(self, node: StepNode, env: dict[str, Any], step_id: str,
+                     context: dict[str, LoopValue]) -> None:
+        if self.do_typed(node, env, step_id, context) is not None or self.facts is None:
+            return
+        # another option is wrong: still check the setpoint against the station, so every
+        # mistake of the step is reported in one pass
+        ok, values = substitute(node.body, env, node.body_ref, [])
+        if not ok or not isinstance(values, dict):
+            return
+        quiet: list[Problem] = []
+        spec = STEP_SPECS["blackbody"].options
+        refs = self.refs_of(node)
+        mode_ok, mode = (coerce_value(spec["mode"], values["mode"], refs("mode"), "blackbody",
+                                      quiet) if "mode" in values else (False, None))
+        value_ok, value = (coerce_value(spec["value"], values["value"], refs("value"),
+                                        "blackbody", quiet) if "value" in values
+                           else (False, None))
+        if mode_ok and value_ok:
+            refusal = self.facts.limits.setpoint_problem(mode, value)
+            if refusal is not None:
+                self.problems.append(Problem(refs("value"), refusal.message, refusal.hint))
+
     def do_move(self, node: StepNode, env: dict[str, Any], step_id: str,
                 context: dict[str, LoopValue]) -> None:
         ok, values = substitute(node.body, env, node.body_ref, self.problems)
@@ -262,8 +284,12 @@ class _Expander:
             good, number = coerce_value(Option(str(axis), "number"), value, refs(axis),
                                         "move", self.problems)
             ok = ok and good
-            position[str(axis)] = number
-        if not ok:
+            if good:
+                position[str(axis)] = number
+        if not ok:  # the other axes are still checked against the station (all in one pass)
+            if self.facts is not None:
+                self.problems.extend(axis_problems({a: (v, v) for a, v in position.items()},
+                                                   refs, self.facts))
             return
         self.add(MoveStep(f"{step_id}.move", node.where, dict(context), position=position), node)
         self.pose.update(position)

@@ -1,70 +1,132 @@
-"""What each `nightbench` sub-command does (argument parsing lives in station/cli/main.py)."""
+"""What each `nightbench` sub-command does (argument parsing lives in station/cli/main.py).
+
+Heavy imports (the runner, drivers, simulators, scipy, matplotlib, numpy) are made inside the
+commands that need them, so `nightbench recipes` and `--help` start at once.
+"""
 
 from __future__ import annotations
 
 import argparse
+import sys
 from collections.abc import Mapping
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-from rich.console import Console
-
-from drivers.clock import Clock, SimClock
-from station.cli.console import RunConsole
-from drivers.errors import InstrumentError
-from analysis.verdicts import FAIL, Verdict
 from station.cli import exitcodes
-from station.cli.results_table import print_results
-from station.engine.abort import OperatorRequests, abort_on_signals
-from station.record.manifest import Manifest
-from station.formatting import format_duration
-from station.engine.runner import (execute, load_inputs, make_clock, new_run_folder,
-                            plan_summary)
+from station.formatting import format_duration, reading_lines
+
+if TYPE_CHECKING:
+    from rich.console import Console
+
+    from analysis.verdicts import Verdict
+    from drivers.clock import Clock
+    from station.cli.console import RunConsole
+    from station.engine.bench import Bench
+    from station.inputs.config import StationConfig
 
 
 def _console_for(console: Console, plain: bool, clock: Clock | None = None) -> RunConsole:
     """The live display (plain lines when not a terminal); times in the run's clock."""
-    return RunConsole(console, plain=True if plain else None, clock=clock)
+    from station.cli.console import RunConsole
+
+    real = console.resolve() if hasattr(type(console), "resolve") else console
+    return RunConsole(real, plain=True if plain else None, clock=clock)
+
+
+def _transport_log_to_event_log_only() -> None:
+    """During a run every retry and reconnect is an event in events.jsonl (and failures reach
+    the console through the run's own messages); without a handler Python's last-resort handler
+    would print them to stderr as raw dicts."""
+    import logging
+
+    logger = logging.getLogger("nightbench.transport")
+    if not logger.handlers:
+        logger.addHandler(logging.NullHandler())
 
 
 def cmd_run(args: argparse.Namespace, console: Console) -> int:
+    from station.cli import run_guard
+    from station.engine.abort import OperatorRequests, abort_on_signals
+    from station.engine.runner import (console_plan, execute, load_inputs, make_clock,
+                                       new_run_folder, plan_summary)
+    from station.record.manifest import Manifest
+
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
+    confirmation = _confirm_real_station(args, console, inputs)
+    if isinstance(confirmation, int):
+        return confirmation
     clock = make_clock(inputs.station, args.realtime)
     _say_if_mixed(inputs.station, console)
+    _transport_log_to_event_log_only()
     run = new_run_folder(inputs, args.runs, clock)
     manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, args.seed))
+    manifest.start_confirmation = confirmation
     manifest.write(run.path)
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
     with abort_on_signals(OperatorRequests()):
         with _console_for(console, args.plain, clock) as live:
-            live.start(len(inputs.plan.steps), inputs.estimate.total_s)
+            live.start(len(inputs.plan.steps), inputs.estimate.total_s, **console_plan(inputs))
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
         run.close()
         manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
-    console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
-    console.print(f"run folder: {run.path}", highlight=False, markup=False)
-    return _finish(console, outcome.state, outcome.verdicts)
+    console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False,
+                  soft_wrap=True)
+    if outcome.state != "complete":
+        for line in run_guard.safing_lines(run_guard.read_run_events(run.path), inputs.station):
+            console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+    console.print(f"run folder: {run.path}", highlight=False, markup=False, soft_wrap=True)
+    return _finish(console, outcome.state, outcome.cause, outcome.verdicts)
 
 
-def _finish(console: Console, state: str, verdicts: tuple[Verdict, ...]) -> int:
+def _finish(console: Console, state: str, cause: str, verdicts: tuple[Verdict, ...]) -> int:
     """The results table of a completed run, and its exit code (failed unit: its own code)."""
+    from analysis.verdicts import FAIL
+    from station.cli import run_guard
+    from station.cli.results_table import print_results
+
     if state != "complete":
-        return exitcodes.BY_STATE.get(state, exitcodes.FAULTED)
+        return run_guard.run_exit_code(state, cause)
     print_results(console, verdicts, "what the run found")
     return exitcodes.UUT_FAILED if any(v.status == FAIL for v in verdicts) else exitcodes.OK
 
 
+def _confirm_real_station(args: argparse.Namespace, console: Console, inputs) -> str | int:
+    """On a real station: refuse without --uut, show the cautions, ask (or take --yes).
+    Returns how the start was confirmed, or the exit code of a refusal."""
+    from station.cli import run_guard
+
+    def say(text: str) -> None:
+        console.print(text, highlight=False, markup=False, soft_wrap=True)
+
+    if inputs.station.simulated:
+        return "not needed: simulated station"
+    if args.uut is None:
+        say("refused: a real station needs the UUT file of the camera on the bench "
+            "(--uut FILE); the demo camera file is for the simulated bench only")
+        return exitcodes.INVALID
+    for line in run_guard.caution_lines(inputs):
+        say(line)
+
+    confirmation = run_guard.confirm_start(say, assume_yes=args.yes, stdin=sys.stdin)
+    return exitcodes.INVALID if confirmation is None else confirmation
+
+
 def cmd_check(args: argparse.Namespace, console: Console) -> int:
+    from drivers.errors import InstrumentError
+    from station.cli.plan_view import folded_text, full_text
     from station.engine.bench import open_bench
-    from station.cli.console import print_table
+    from station.engine.runner import load_inputs, make_clock
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
     per_step = dict(inputs.estimate.per_step)
-    rows = [(i, s.id, s.kind, _brief(s.parameters()), f"{per_step.get(s.id, 0.0):.1f}")
-            for i, s in enumerate(inputs.plan.steps)]
-    print_table(console, f"plan of {inputs.plan.recipe} on {inputs.station.name}",
-                ["#", "step id", "kind", "parameters", "est. s"], rows)
+    steps = inputs.plan.steps
+    view = full_text if args.full else folded_text
+    console.print(f"plan of {inputs.plan.recipe} on {inputs.station.name}: {len(steps)} steps"
+                  + ("" if args.full else " (loops folded; --full lists every step)"),
+                  highlight=False, markup=False, soft_wrap=True)
+    console.print(view(steps, per_step), highlight=False, markup=False, soft_wrap=True)
     _say_if_mixed(inputs.station, console)
     if not args.no_connect:
         try:
@@ -83,7 +145,7 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
     if inputs.warnings:
         console.print("[bold yellow]Warnings:[/]", highlight=False)
         for warning in inputs.warnings:
-            console.print(f"  {warning}", highlight=False, markup=False)
+            console.print(f"  {warning}", highlight=False, markup=False, soft_wrap=True)
     console.print(f"{len(inputs.plan.steps)} steps, {inputs.estimate.frames} frames, "
                   f"{inputs.estimate.bytes / 1e6:.1f} MB; estimated real duration "
                   f"{format_duration(inputs.estimate.total_s)}", highlight=False)
@@ -92,19 +154,21 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
     return exitcodes.OK
 
 
-def _say_if_mixed(station, console: Console) -> None:
+def _say_if_mixed(station: StationConfig, console: Console) -> None:
     """A station mixing real and simulated instruments runs on real time: say so."""
     from drivers.clock import mixed_station_note
     from station.engine.runner import instrument_origins
 
     note = mixed_station_note(*instrument_origins(station))
     if note:
-        console.print(f"note: {note}", highlight=False, markup=False)
+        console.print(f"note: {note}", highlight=False, markup=False, soft_wrap=True)
 
 
-def _harmless_problems(bench) -> list[str]:
+def _harmless_problems(bench: Bench) -> list[str]:
     """Ask every harmless query of every instrument and the blackbody's safing dry run, as
     `bench` and a run will; each failure as one line."""
+    from drivers.errors import InstrumentError
+
     problems = []
     for role, inst in bench.instruments().items():
         for label, ask in inst.harmless_queries().items():
@@ -118,22 +182,25 @@ def _harmless_problems(bench) -> list[str]:
     return problems
 
 
-def _brief(params: dict) -> str:
-    text = ", ".join(f"{k}={v}" for k, v in params.items())
-    return text if len(text) < 70 else text[:67] + "..."
-
-
 def cmd_recipes(args: argparse.Namespace, console: Console) -> int:
     from sequences.library import list_builtin
-    from station.cli.console import print_table
+    from station.formatting import columns_text
 
-    print_table(console, "built-in recipes", ["name", "description"], list_builtin())
+    try:
+        print("built-in recipes (nightbench check NAME shows the plan)")
+        print(columns_text(["name", "description"], list_builtin()), flush=True)
+    except BrokenPipeError:  # `nightbench recipes | head -1`: the reader has what it wanted
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
     return exitcodes.OK
 
 
 def cmd_bench(args: argparse.Namespace, console: Console) -> int:
+    from drivers.errors import InstrumentError
+    from station.cli.tables import print_table
     from station.engine.bench import open_bench
-    from station.cli.console import print_table
+    from station.engine.runner import make_clock
     from station.inputs.config import load_station
 
     station = load_station(args.station)
@@ -144,7 +211,8 @@ def cmd_bench(args: argparse.Namespace, console: Console) -> int:
         with open_bench(station, clock) as bench:
             for role, inst in bench.instruments().items():
                 try:
-                    rows.append((role, inst.identify(), _brief(inst.snapshot())))
+                    rows.append((role, inst.identify(), instrument_text(
+                        role, inst.snapshot(), station)))
                 except InstrumentError as exc:
                     rows.append((role, "NOT ANSWERING", str(exc)))
                     failed.append(role)
@@ -156,6 +224,12 @@ def cmd_bench(args: argparse.Namespace, console: Console) -> int:
         console.print(f"[red]not answering: {', '.join(failed)}[/]")
         return exitcodes.INSTRUMENT
     return exitcodes.OK
+
+
+def instrument_text(role: str, snapshot: dict, station: StationConfig) -> str:
+    """One instrument's state in the shared reading format (units, no Python syntax)."""
+    units = {a: lim.unit for a, lim in station.axes.items()}
+    return reading_lines({role: snapshot}, axis_units=units)[0][1]
 
 
 def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
@@ -198,7 +272,9 @@ def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
+    from analysis.verdicts import FAIL
     from station.analyses.reanalyze import analyze_frame_file, analyze_run_folder
+    from station.cli.results_table import print_results
 
     if args.frame is not None:
         if args.analysis != "distortion":
@@ -235,19 +311,36 @@ def _print_summary(console: Console, summary: Mapping[str, object]) -> None:
 
 
 def cmd_resume(args: argparse.Namespace, console: Console) -> int:
+    from station.cli import run_guard
     from station.engine.resume import resume_run
 
+    _transport_log_to_event_log_only()
     state, cause, path = resume_run(args.run_folder, force=args.force, seed=args.seed,
                                     console=_console_for(console, args.plain))
-    console.print(f"run {state}: {cause}", highlight=False, markup=False)
-    console.print(f"run folder: {path}", highlight=False, markup=False)
+    console.print(f"run {state}: {cause}", highlight=False, markup=False, soft_wrap=True)
+    if state not in ("complete",):
+        simulated = _was_simulated(path)
+        for line in run_guard.safing_lines(run_guard.read_run_events(path),
+                                           simulated=simulated):
+            console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+    console.print(f"run folder: {path}", highlight=False, markup=False, soft_wrap=True)
     verdicts: tuple[Verdict, ...] = ()
     if state == "complete":
         from station.record.runfolder import RunFolder
         from station.record.verdicts_file import verdicts_from_journal
 
         verdicts = tuple(verdicts_from_journal(RunFolder.open(path).journal.completed()))
-    return _finish(console, state, verdicts)
+    return _finish(console, state, cause, verdicts)
+
+
+def _was_simulated(run_path: Path) -> bool:
+    """Whether the run's manifest says it ran on a simulated station (unknown: assume not)."""
+    from station.record.manifest import ManifestError, load_manifest
+
+    try:
+        return bool(load_manifest(run_path).plan.get("simulated", False))
+    except ManifestError:
+        return False
 
 
 def cmd_verify(args: argparse.Namespace, console: Console) -> int:

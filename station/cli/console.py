@@ -6,17 +6,18 @@ unreadable log. So when the console is not an interactive terminal, every update
 timestamped line with no escape codes (rich prints a live display's last frame glued to the next
 line when output is not a terminal: we never start one there).
 
-Readings keys shown with a label (others are shown as they come)::
-
-    blackbody_C, reference_C, difference_K, stability_mK, stable, wheel_slot, target,
-    stage (dict axis -> position), frame_rate_hz
+Numbers are formatted by station.formatting (the same text in `bench`, the logs and the report);
+time left comes from station.engine.progress (the plan's per-step estimates corrected by the pace
+of the run, never jumping by more than the current step's estimate). Steps are numbered 1..N.
+Times of a simulated run are labelled "simulated"; the expected end is local clock time.
 
 Example::
 
     with RunConsole(clock=clock) as ui:
-        ui.start(plan_len=42, estimate_s=8 * 3600)
+        ui.start(plan_len=42, estimate_s=8 * 3600, per_step_s=estimates)
         ui.step(1, "sweep[1].set_blackbody", "blackbody to +5 K")
-        ui.readings({"blackbody_C": 27.0, "reference_C": 22.0})
+        ui.readings({"blackbody": {"mode": "difference", "temperature_c": 27.0,
+                                   "reference_c": 22.0}})
         ui.log("info", "stable after 184 s")
 """
 
@@ -24,8 +25,9 @@ from __future__ import annotations
 
 import logging
 import threading
+import time
 from collections import deque
-from collections.abc import Sequence, Mapping
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import Any
 
 from rich.console import Console, Group
@@ -36,77 +38,92 @@ from rich.table import Table
 from rich.text import Text
 
 from drivers.clock import Clock, RealClock
-from station.formatting import format_duration, format_value
-from station.record.events import utc_iso
+from station.cli.tables import print_table  # noqa: F401  (kept here for callers)
+from station.engine.progress import Progress, ProgressTracker
+from station.formatting import (format_clock_time, format_duration, format_value, reading_lines,
+                                readings_text)
 
-READING_LABELS: dict[str, tuple[str, str]] = {
-    "blackbody_C": ("blackbody", "C"),
-    "reference_C": ("reference", "C"),
-    "difference_K": ("difference", "K"),
-    "stability_mK": ("stability", "mK"),
-    "stable": ("stable", ""),
-    "wheel_slot": ("wheel slot", ""),
-    "target": ("target", ""),
-    "stage": ("stage", ""),
-    "frame_rate_hz": ("frame rate", "Hz"),
-}
+
+def utc_iso(seconds: float) -> str:
+    """The event log's timestamp form (imported on use: the record package loads numpy, which
+    `nightbench recipes` must not wait for)."""
+    from station.record.events import utc_iso as _utc_iso
+
+    return _utc_iso(seconds)
+
+
 LEVEL_STYLES = {"DEBUG": "dim", "INFO": "", "WARNING": "yellow", "ERROR": "bold red",
                 "CRITICAL": "bold red"}
+STOPPED_STATES = frozenset({"safing", "aborted", "faulted"})
+SCREEN_FIXED_ROWS = 6
+"""Rows of the live display besides the readings and the recent lines (header, progress line,
+the two panels' borders)."""
 
 
 class RunConsole:
     """Live display on a terminal, plain timestamped lines elsewhere; one shared rich Console."""
 
     def __init__(self, console: Console | None = None, plain: bool | None = None, *,
-                 clock: Clock | None = None, log_lines: int = 8, readings_every_s: float = 60.0,
-                 refresh_per_second: float = 4.0) -> None:
+                 clock: Clock | None = None, log_lines: int = 200, readings_every_s: float = 60.0,
+                 refresh_per_second: float = 4.0,
+                 wall: Callable[[], float] = time.time) -> None:
         self.console = console or Console()
         self.plain = (not self.console.is_interactive) if plain is None else plain
         self.clock: Clock = clock or RealClock()
+        self.wall = wall
         self.readings_every_s = readings_every_s
         self.refresh_per_second = refresh_per_second
         self._lock = threading.RLock()
         self._lines: deque[tuple[str, str, str]] = deque(maxlen=log_lines)
         self._readings: dict[str, Any] = {}
+        self._axis_units: dict[str, str] = {}
         self._last_readings_print: float | None = None
+        self._tracker: ProgressTracker | None = None
         self._plan_len = 0
-        self._estimate_s = 0.0
-        self._start_t: float | None = None
         self._index = 0
         self._step_id = ""
         self._description = ""
-        self._done_s: float | None = None
         self._state = "idle"
         self._cause: str | None = None
         self._live: Live | None = None
 
     # -- the API the sequencer calls -----------------------------------------------------------
-    def start(self, plan_len: int, estimate_s: float) -> None:
-        """Begin a run of `plan_len` steps estimated to take `estimate_s` seconds of clock time."""
+    def start(self, plan_len: int, estimate_s: float, *,
+              per_step_s: Sequence[float] | None = None, done: Iterable[int] = (),
+              axis_units: Mapping[str, str] | None = None) -> None:
+        """Begin a run of `plan_len` steps. `per_step_s`: the plan's estimate of each step (clock
+        seconds; without it `estimate_s` is shared evenly); `done`: 1-based steps already done
+        (a resumed run); `axis_units`: the stage axes' units for the readings."""
+        estimates = list(per_step_s) if per_step_s is not None else (
+            [float(estimate_s) / plan_len] * plan_len if plan_len else [])
         with self._lock:
-            self._plan_len, self._estimate_s = int(plan_len), float(estimate_s)
-            self._start_t = self.clock.now()
+            self._plan_len = int(plan_len)
+            self._tracker = ProgressTracker(estimates, done=done)
+            self._tracker.begin(self.clock.now())
+            self._axis_units = dict(axis_units or {})
         if self.plain:
-            self._print("INFO", f"run of {plan_len} steps, estimated {format_duration(estimate_s)}"
-                        f"{' (simulated clock)' if self.clock.simulated else ''}")
+            self._print("INFO", f"run of {plan_len} steps, estimated "
+                        f"{format_duration(sum(estimates))}{self._sim_label()}")
         elif self._live is None:
             self._live = Live(console=self.console, get_renderable=self.render,
                               refresh_per_second=self.refresh_per_second, transient=False,
                               redirect_stdout=False, redirect_stderr=False)
             self._live.start()
 
-    def step(self, index: int, step_id: str, description: str = "", *,
-             estimate_done_s: float | None = None) -> None:
-        """Step `index` (1-based) of the plan is starting. `estimate_done_s`: the plan's estimate
-        of the time taken by the steps before it (better progress than counting steps)."""
+    def step(self, index: int, step_id: str, description: str = "", **_: Any) -> None:
+        """Step `index` (1-based) of the plan is starting; the one before it has finished."""
+        now = self.clock.now()
         with self._lock:
+            tracker = self._tracker
+            if tracker is not None:
+                if self._index:
+                    tracker.step_finished(self._index, now)
+                tracker.step_started(int(index), now)
             self._index, self._step_id, self._description = int(index), step_id, description
-            self._done_s = estimate_done_s
         if self.plain:
-            frac, _, left = self.progress()
             self._print("INFO", f"step {index}/{self._plan_len} {step_id}"
                         f"{': ' + description if description else ''} "
-                        f"[{frac * 100:.0f}%, about {format_duration(left)} left]")
+                        f"[{self.progress_text(short=True)}]")
         self._refresh()
 
     def readings(self, values: Mapping[str, object]) -> None:
@@ -120,12 +137,10 @@ class RunConsole:
                 self._last_readings_print = now
             snapshot = dict(self._readings)
         if self.plain and due:
-            self._print("INFO", "readings " + ", ".join(
-                f"{READING_LABELS.get(k, (k, ''))[0]} {format_value(v, READING_LABELS.get(k, ('', ''))[1])}"
-                for k, v in self._ordered(snapshot)))
+            self._print("INFO", "readings " + readings_text(snapshot, axis_units=self._axis_units))
 
     def log(self, level: str | int, text: str) -> None:
-        """A log line: printed in plain mode, kept among the last lines on the live display."""
+        """A log line: printed in plain mode, kept among the recent lines on the live display."""
         name = logging.getLevelName(level) if isinstance(level, int) else str(level).upper()
         stamp = utc_iso(self.clock.now())
         with self._lock:
@@ -133,18 +148,26 @@ class RunConsole:
         if self.plain:
             self._print(name, text, stamp)
         elif self._live is not None and name in ("WARNING", "ERROR", "CRITICAL"):
-            self.console.print(Text(f"{stamp} {name} {text}", style=LEVEL_STYLES.get(name, "")))
+            self.console.print(Text(f"{self._stamp(stamp)} {name} {text}",
+                                    style=LEVEL_STYLES.get(name, "")))
         self._refresh()
 
     def state(self, name: str, cause: str | None = None) -> None:
         """The sequencer changed state; shown with its cause and always printed."""
+        now = self.clock.now()
         with self._lock:
             self._state, self._cause = name, cause
+            if name == "complete" and self._tracker is not None:
+                if self._index:
+                    self._tracker.step_finished(self._index, now)
+                self._tracker.finish()
         text = name + (f": {cause}" if cause else "")
         if self.plain:
             self._print("STATE", text)
+            if name == "complete":
+                self._print("INFO", self.progress_text())
         else:
-            self.console.print(Text(f"{utc_iso(self.clock.now())} state {text}", style="bold"))
+            self.console.print(Text(f"{self._stamp(utc_iso(now))} state {text}", style="bold"))
             self._refresh(force=True)
 
     def stop(self) -> None:
@@ -170,10 +193,10 @@ class RunConsole:
             return
         if self.plain:
             return
-        fields = ", ".join(f"{k}={format_value(v)}" for k, v in record.items()
+        fields = ", ".join(f"{k} {format_value(v)}" for k, v in record.items()
                            if k not in ("seq", "t", "utc", "type"))
         with self._lock:
-            self._lines.append((str(record.get("utc", "")), "EVENT", f"{kind} {fields}"[:160]))
+            self._lines.append((str(record.get("utc", "")), "EVENT", f"{kind}: {fields}"[:160]))
 
     def logging_handler(self, level: int = logging.INFO) -> logging.Handler:
         """A logging handler that writes through this console (one shared Console)."""
@@ -191,62 +214,76 @@ class RunConsole:
         return handler
 
     # -- progress and rendering --------------------------------------------------------------------
-    def progress(self) -> tuple[float, float, float | None]:
-        """(fraction done, clock seconds elapsed, seconds left).
-
-        Fraction: the plan's estimate of the finished steps over the total when given, else steps
-        finished over steps. Time left: the plan estimate for the rest (less the time already spent in
-        the running step) until 5 % is done, then the
-        observed pace (elapsed / fraction), which absorbs a plan that is optimistic or pessimistic.
-        """
+    def progress(self) -> Progress:
+        """Step (1-based), fraction done, elapsed and left in clock seconds (see progress.py)."""
         with self._lock:
-            if self._start_t is None:
-                return 0.0, 0.0, None
-            elapsed = max(self.clock.now() - self._start_t, 0.0)
-            if self._done_s is not None and self._estimate_s > 0:
-                frac = self._done_s / self._estimate_s
-            elif self._plan_len > 0:
-                frac = max(self._index - 1, 0) / self._plan_len
-            else:
-                frac = 0.0
-            frac = min(max(frac, 0.0), 1.0)
-            if frac < 0.05:
-                # time already spent in the step running counts against the plan's remainder
-                left = max(min(self._estimate_s * (1 - frac), self._estimate_s - elapsed), 0.0)
-            else:
-                left = elapsed * (1 - frac) / frac
-            return frac, elapsed, left
+            if self._tracker is None:
+                return Progress(0, self._plan_len, 0.0, 0.0, 0.0, 1.0, False)
+            return self._tracker.snapshot(self.clock.now())
+
+    def progress_text(self, short: bool = False) -> str:
+        """`25%, elapsed 0:01:10, about 0:03:30 left, ends about 14:32` in the run's clocks;
+        finished: `100%, total 0:04:40`; stopped: `40% done, stopped after 0:02:00`. Times of a
+        simulated run end with `(simulated)`."""
+        p = self.progress()
+        label = " (simulated)" if self.clock.simulated else ""
+        if p.finished:
+            return f"100%, total {format_duration(p.elapsed_s)}{label}"
+        if self._state in STOPPED_STATES:
+            return (f"{p.fraction * 100:.0f}% done, stopped after "
+                    f"{format_duration(p.elapsed_s)}{label}")
+        text = (f"{p.fraction * 100:.0f}%, " + ("" if short else
+                f"elapsed {format_duration(p.elapsed_s)}, ")
+                + f"about {format_duration(p.left_s)} left{label}")
+        end = self.expected_end(p)
+        if end is not None:
+            text += f", ends about {end}"
+        return text
+
+    def expected_end(self, p: Progress) -> str | None:
+        """Local clock time of the expected end: real clock, or a paced simulation (by its
+        speed); None for an unpaced simulation (it ends when the computer is done)."""
+        now = self.wall()
+        if not self.clock.simulated:
+            return format_clock_time(now + p.left_s, now)
+        speed = getattr(self.clock, "speed", None)
+        if speed:
+            return format_clock_time(now + p.left_s / float(speed), now) + f" at {speed:g}x"
+        return None
 
     def render(self) -> Group:
         """The live display as a rich renderable (also usable for a snapshot)."""
-        frac, elapsed, left = self.progress()
+        p = self.progress()
         with self._lock:
-            header = Text()
+            header = Text(no_wrap=True, overflow="ellipsis")
             header.append(f"{self._state.upper()}", style="bold")
             if self._cause:
                 header.append(f" ({self._cause})")
-            header.append(f"   step {self._index}/{self._plan_len}  ")
+            header.append(f"   step {p.step}/{p.steps}  ")
             header.append(self._step_id, style="cyan")
             if self._description:
                 header.append(f"  {self._description}")
             bar = Table.grid(padding=(0, 1))
-            bar.add_row(ProgressBar(total=1.0, completed=frac, width=40),
-                        Text(f"{frac * 100:5.1f}%  elapsed {format_duration(elapsed)}  "
-                             f"left ~{format_duration(left)}"
-                             f"{'  (simulated clock)' if self.clock.simulated else ''}"))
+            bar.add_row(ProgressBar(total=1.0, completed=p.fraction, width=30),
+                        Text(self.progress_text()))
             table = Table.grid(padding=(0, 2))
-            for key, value in self._ordered(self._readings):
-                label, unit = READING_LABELS.get(key, (key, ""))
-                table.add_row(Text(label, style="bold"), Text(format_value(value, unit)))
-            lines = Text("\n".join(f"{s[11:19]} {lvl:<7} {msg}" for s, lvl, msg in self._lines)
-                         or "-")
+            rows = reading_lines(self._readings, axis_units=self._axis_units)
+            for label, text in rows:
+                table.add_row(Text(label, style="bold"), Text(text))
+            room = max(self.console.height - SCREEN_FIXED_ROWS - max(len(rows), 1) - 1, 3)
+            recent = list(self._lines)[-room:]  # the newest lines that fit: the panel scrolls
+            lines = Text("\n".join(f"{s[11:19]} {lvl:<7} {msg}" for s, lvl, msg in recent)
+                         or "-", overflow="ellipsis", no_wrap=True)
+        recent_title = "recent (simulated time)" if self.clock.simulated else "recent"
         return Group(header, bar, Panel(table, title="instruments", expand=True),
-                     Panel(lines, title="recent", expand=True))
+                     Panel(lines, title=recent_title, expand=True))
 
-    @staticmethod
-    def _ordered(values: Mapping[str, Any]) -> list[tuple[str, Any]]:
-        known = [(k, values[k]) for k in READING_LABELS if k in values]
-        return known + sorted((k, v) for k, v in values.items() if k not in READING_LABELS)
+    def _stamp(self, utc_text: str) -> str:
+        """hh:mm:ss of a log line; simulated time says so."""
+        return utc_text[11:19] + (" simulated" if self.clock.simulated else "")
+
+    def _sim_label(self) -> str:
+        return " (simulated time)" if self.clock.simulated else ""
 
     def _refresh(self, force: bool = False) -> None:
         """Redraw now on a state change; otherwise the live display's own timer redraws it, so a
@@ -255,17 +292,9 @@ class RunConsole:
             self._live.refresh()
 
     def _print(self, level: str, text: str, stamp: str | None = None) -> None:
-        line = f"{stamp or utc_iso(self.clock.now())} {level:<7} {text}"
+        when = stamp or utc_iso(self.clock.now())
+        if self.clock.simulated:
+            when += " simulated"
+        line = f"{when} {level:<7} {text}"
         self.console.print(line, markup=False, highlight=False, emoji=False, soft_wrap=True,
                            style=None)
-
-
-def print_table(console: Console, title: str, columns: list[str] | tuple[str, ...],
-                rows: Sequence[Sequence[object]]) -> None:
-    """A titled table of plain cells (every cell shown with str())."""
-    table = Table(title=title)
-    for c in columns:
-        table.add_column(c)
-    for r in rows:
-        table.add_row(*[str(x) for x in r])
-    console.print(table)

@@ -1,7 +1,9 @@
 """The `nightbench` command line.
 
     nightbench run RECIPE [--station FILE] [--uut FILE] [--set NAME=VALUE] [--realtime [SPEED]]
-    nightbench check RECIPE [...]          validate, expand, preflight-estimate; moves nothing
+                   [--yes]                 real station: unattended start, no question asked
+    nightbench --version
+    nightbench check RECIPE [--full] [...] validate, expand, preflight-estimate; moves nothing
     nightbench recipes                     list built-in recipes
     nightbench bench [--station FILE]      connect to every instrument and show identity and state
     nightbench drivers [NAME] [--check]    list drivers (or one driver's settings); --check
@@ -11,6 +13,7 @@
     nightbench resume RUN_FOLDER [--force]
     nightbench verify RUN_FOLDER
 
+Only argparse is imported before the arguments are parsed; each command imports what it needs.
 Every bad input ends in a message naming the file and line and what to do, and an exit code from
 station/cli/exitcodes.py, never a bare traceback.
 """
@@ -23,14 +26,13 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-import yaml
-from rich.console import Console
-
-from sequences.yamlsource import SourceError
+from station import __version__
 from station.cli import exitcodes
 
 
 def _parse_overrides(pairs: Sequence[str]) -> dict[str, Any]:
+    import yaml
+
     out: dict[str, Any] = {}
     for pair in pairs:
         if "=" not in pair:
@@ -54,6 +56,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="nightbench", description=(
         "Drive a camera test bench (or its built-in simulator) through a recipe, capture, "
         "analyse and record everything in a run folder."))
+    parser.add_argument("--version", action="version", version=f"nightbench {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
     run = sub.add_parser("run", help="run a recipe")
@@ -64,11 +67,16 @@ def build_parser() -> argparse.ArgumentParser:
                      "the wall clock (1 = real time) for a demonstration")
     run.add_argument("--seed", type=int, default=1, help="seed of the simulated bench")
     run.add_argument("--plain", action="store_true", help="plain log lines, no live display")
+    run.add_argument("--yes", action="store_true",
+                     help="real station: start without asking (unattended start; recorded in "
+                     "the manifest)")
 
     check = sub.add_parser("check", help="validate a recipe, print the plan and its estimate")
     _common_inputs(check)
     check.add_argument("--no-connect", action="store_true",
                        help="skip asking every instrument to answer")
+    check.add_argument("--full", action="store_true",
+                       help="list every step of the plan (default: loops folded)")
 
     sub.add_parser("recipes", help="list the built-in recipes")
 
@@ -107,10 +115,41 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class _NotRaised(Exception):
+    """Stands for SourceError while the YAML layer was never loaded (so it cannot be raised)."""
+
+
+def _source_error() -> type[Exception]:
+    """sequences.yamlsource.SourceError if that module was loaded (commands that read no YAML,
+    such as `recipes`, do not pay for importing it)."""
+    module = sys.modules.get("sequences.yamlsource")
+    return module.SourceError if module is not None else _NotRaised
+
+
+class _LazyConsole:
+    """A rich Console made on first use: listings printed as plain text never load rich."""
+
+    def __init__(self) -> None:
+        self._console: Any = None
+
+    def resolve(self) -> Any:
+        """The rich Console itself (for rich objects that use it as a context manager)."""
+        if self._console is None:
+            from rich.console import Console
+
+            self._console = Console(stderr=False)
+        return self._console
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self.resolve(), name)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
-    console = Console(stderr=False)
+    # imported after parsing, so `--help` and `--version` answer at once
     from station.cli import commands
+
+    console = _LazyConsole()
 
     handlers = {
         "run": commands.cmd_run, "check": commands.cmd_check, "recipes": commands.cmd_recipes,
@@ -122,7 +161,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         if hasattr(args, "overrides"):
             args.overrides = _parse_overrides(args.overrides)
         return handlers[args.command](args, console)
-    except SourceError as exc:
+    except _source_error() as exc:  # evaluated only when something was raised
         console.print("[bold red]Input problems:[/]", highlight=False)
         for problem in exc.problems:
             console.print(f"  {problem}", highlight=False, markup=False)

@@ -19,7 +19,8 @@ from __future__ import annotations
 import dataclasses
 import os
 import socket
-from collections.abc import Mapping
+import time
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -29,7 +30,7 @@ from station.record.events import read_events
 from station.record.journal import JournalError
 from station.record.manifest import RUNNING, Manifest, ManifestError, load_manifest
 from station.record.runfolder import RunFolder, RunFolderError
-from station.engine.runner import Inputs, execute, load_inputs
+from station.engine.runner import Inputs, console_plan, execute, load_inputs
 from station.engine.ports import Console
 from typing import TYPE_CHECKING
 
@@ -183,7 +184,8 @@ def resume_clock(inputs: Inputs, start: float) -> Clock:
 
 def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None,
                console: Console, clock: Clock | None = None,
-               fault_plan: FaultPlan | None = None) -> tuple[str, str, Path]:
+               fault_plan: FaultPlan | None = None,
+               wall: Callable[[], float] = time.time) -> tuple[str, str, Path]:
     """Continue the run in `path` at its first step not in the journal.
 
     Returns (end state, cause, run folder). Raises ResumeRefused (a ValueError) when the folder,
@@ -227,7 +229,9 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
     note = (f"{len(completed)} of {len(inputs.plan.steps)} steps done; "
             f"{len(aside)} unfinished capture(s) set aside"
             + ("; forced past: " + ", ".join(c.role for c in changes) if changes else ""))
-    manifest.resumed(run_path, clock, note=note)
+    manifest.resumed(run_path, clock, note=note, wall=wall)
+    if hasattr(console, "clock"):
+        console.clock = clock  # the screen shows the run's (simulated) time, labelled so
     remaining_s = sum(s for step_id, s in inputs.estimate.per_step if step_id not in completed)
     with console as live:
         for warning in journal.warnings:
@@ -235,12 +239,12 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
         for change in changes:
             live.log("warning", f"--force: {change.role} file {change.source}: {change.problem}")
         live.log("info", f"resuming: {note}")
-        live.start(len(inputs.plan.steps), remaining_s)
+        live.start(len(inputs.plan.steps), remaining_s, **console_plan(inputs, completed))
         outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
                           fault_plan=fault_plan, manifest=manifest,
                           expected_identities=None if force else first_identities(run))
     run.close()
-    manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock)
+    manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock, wall=wall)
     return outcome.state, outcome.cause, run_path
 
 

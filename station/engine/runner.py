@@ -7,7 +7,8 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
-from collections.abc import Mapping
+import time
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -145,6 +146,17 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Emit, console: 
                 f"{inputs.estimate.frames} frames, estimated {format_duration(inputs.estimate.total_s)}")
 
 
+def console_plan(inputs: Inputs, done_ids: Mapping[str, object] | None = None
+                 ) -> dict[str, object]:
+    """What the console's `start` needs: per-step estimates (plan order), the 1-based numbers of
+    steps already done, and the stage axes' units."""
+    per_step = dict(inputs.estimate.per_step)
+    done = done_ids or {}
+    return {"per_step_s": [float(per_step.get(s.id, 0.0)) for s in inputs.plan.steps],
+            "done": [i for i, s in enumerate(inputs.plan.steps, start=1) if s.id in done],
+            "axis_units": {a: lim.unit for a, lim in inputs.station.axes.items()}}
+
+
 def plan_summary(inputs: Inputs, seed: int) -> dict[str, object]:
     """What the manifest records about the plan (resume reads it back)."""
     return {"recipe": inputs.plan.recipe, "station": inputs.station.name,
@@ -202,8 +214,11 @@ def io_sink(events: EventSink) -> Callable[[dict[str, object]], None]:
     return sink
 
 
-def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> RunFolder:
-    utc = dt.datetime.fromtimestamp(clock.now(), tz=dt.timezone.utc)
+def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock,
+                   wall: Callable[[], float] = time.time) -> RunFolder:
+    """A new run folder named by the wall clock's start time (never the simulated clock's: a dry
+    run is filed under the moment it was made); `wall` is injectable for tests."""
+    utc = dt.datetime.fromtimestamp(wall(), tz=dt.timezone.utc)
     run = RunFolder.create(Path(runs_root).resolve(), uut_serial=inputs.uut.serial,
                            recipe_name=inputs.plan.recipe, utc=utc, clock=clock)
     run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path, recipe=inputs.recipe_path)

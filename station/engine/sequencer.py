@@ -117,7 +117,7 @@ class Sequencer:
             self._pause_point()
             self.ctx.requests.check()
             self.current_step = step
-            self.console.step(index, step.id, describe(step))
+            self.console.step(index + 1, step.id, describe(step))
             self.ctx.emit("step.start", step=step.id, kind=step.kind, index=index, total=total)
             result = self.handlers[step.kind](step, self.ctx)
             self.journal.record(step.id, step.kind, result)
@@ -167,7 +167,8 @@ class Sequencer:
         else:
             self.status.request_fault(cause=cause)
         self.console.log("warning", f"safing the bench: {cause}")
-        problems = make_safe(self.ctx.bench, self.ctx.emit)
+        problems = make_safe(self.ctx.bench, self.ctx.emit,
+                             on_poll=self.ctx.requests.deliver_notices)
         for p in problems:
             self.console.log("error", p)
         full_cause = cause if not problems else cause + "; SAFING INCOMPLETE: " + "; ".join(problems)

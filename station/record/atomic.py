@@ -132,12 +132,34 @@ def replace_durably(src: Path | str, dst: Path | str) -> None:
     fsync_dir(Path(dst).parent)
 
 
+def current_umask() -> int:
+    """The process's umask, read without changing it where Linux tells it (/proc), else by the
+    usual set-and-restore (which is not thread safe, hence the /proc path first)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def follow_umask(fd: int) -> None:
+    """Give a file made by `tempfile.mkstemp` (always 0600) the mode every other new file of a
+    run folder gets: 0666 less the umask, so colleagues read manifests as they read frames."""
+    os.fchmod(fd, 0o666 & ~current_umask())
+
+
 def write_bytes_atomic(path: Path | str, data: bytes) -> Path:
     """Write `data` to `path` so that `path` holds either the old content or all of the new."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=TEMP_SUFFIX, dir=path.parent)
     try:
+        follow_umask(fd)
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -11,6 +11,18 @@ one with their own directory entries (tifffile `contiguous=False`), so even a st
 stays readable page by page. Leftovers of an interrupted capture are moved to
 `frames/abandoned/<step id>-<n>/` with a `reason.json` and are never mixed with new frames.
 
+File names. A capture outside any loop is named by its recipe name (`flat`); inside loops the
+plan names an instance with the loop values, `flat[difference=10]`, `spot[az=-11,el=-2.125]`.
+Its files are named (see `capture_stem`)::
+
+    <group>_<variable><value>_<variable><value>...
+    flat_difference+10        spot_az-11_el-2.125        spot_az0_el+5      mtf_target-edge
+
+Numbers carry their sign (`+`, `-`; none for zero) right after the variable name, so a name never
+has a doubled or trailing dash; a text value follows its variable after one `-`. Other characters
+than letters, digits, `.`, `_`, `+` and `-` become `-`, runs of them one `-`. The metadata
+JSON keeps the instance name exactly as the plan wrote it.
+
 Files of a capture named `flat` (axis order of every image: rows, cols)::
 
     frames/flat.stack.tif   uint16, one page per frame       (keep = stack | both)
@@ -64,15 +76,60 @@ class FrameStoreError(Exception):
     """A capture cannot be written or read; the message names the capture and what to do."""
 
 
-_SAFE = re.compile(r"[^A-Za-z0-9._-]+")
+_SAFE = re.compile(r"[^A-Za-z0-9._+-]+")
+_INSTANCE = re.compile(r"^(?P<group>[^\[\]]+)\[(?P<inner>[^\[\]]*)\]$")
+_INDEX = re.compile(r"\[(\d+)\]")
+_NUMBER = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
+
+
+def _clean(text: str) -> str:
+    cleaned = re.sub(r"-{2,}", "-", _SAFE.sub("-", text.strip()))
+    return cleaned.strip(".-")
 
 
 def safe_name(text: str) -> str:
-    """A file-name-safe form of a capture name or step id (`sweep[3].capture` -> `sweep-3-.capture`)."""
-    cleaned = _SAFE.sub("-", text.strip()).strip(".")
+    """A file-name-safe form of a step id (`s3.sweep[2].s1.capture` -> `s3.sweep2.s1.capture`)."""
+    cleaned = _clean(_INDEX.sub(r"\1", text))
     if not cleaned:
         raise FrameStoreError(f"{text!r} gives an empty file name; use letters, digits, '.', '_' or '-'")
     return cleaned
+
+
+def _value_text(value: str) -> str:
+    value = value.strip()
+    if _NUMBER.match(value):
+        number = float(value)
+        if number == 0:
+            return "0"
+        digits = value.lstrip("+-")
+        return ("-" if number < 0 else "+") + digits
+    return "-" + value
+
+
+def capture_stem(name: str) -> str:
+    """The file stem of a capture instance (scheme in the module docstring).
+
+    >>> capture_stem("flat[difference=10]"), capture_stem("spot[az=-11,el=-2.125]")
+    ('flat_difference+10', 'spot_az-11_el-2.125')
+    >>> capture_stem("spot[az=0,el=5.0]"), capture_stem("mtf[target=edge]"), capture_stem("grid")
+    ('spot_az0_el+5.0', 'mtf_target-edge', 'grid')
+    """
+    match = _INSTANCE.match(name.strip())
+    if match is None:
+        return safe_name(name)
+    parts = [match.group("group")]
+    for item in match.group("inner").split(","):
+        key, sep, value = item.partition("=")
+        parts.append(f"{key.strip()}{_value_text(value)}" if sep else item)
+    cleaned = "_".join(_clean(p) for p in parts if _clean(p))
+    if not cleaned:
+        raise FrameStoreError(f"{name!r} gives an empty file name; use letters, digits, '.', '_' or '-'")
+    return cleaned
+
+
+def _legacy_stem(name: str) -> str:
+    """The stem older versions used (`flat-difference-10-`), to read their run folders."""
+    return re.sub(r"[^A-Za-z0-9._-]+", "-", name.strip()).strip(".")
 
 
 @dataclass
@@ -202,7 +259,7 @@ class CaptureWriter:
         self.frames_dir.mkdir(parents=True, exist_ok=True)
         self.step_id = step_id
         self.name = name
-        self.stem = safe_name(name)
+        self.stem = capture_stem(name)
         self.keep = keep
         self.expected_count = expected_count
         self.clock = clock
@@ -435,9 +492,20 @@ def _frames_dir(run: RunLocation) -> Path:
     return root / "frames"
 
 
+def _stem_files(run: RunLocation, name: str) -> dict[str, Path]:
+    """The files of capture `name`, under the current naming scheme or, for older run folders,
+    the one they were written with."""
+    files = capture_files(_frames_dir(run), capture_stem(name))
+    if not files["metadata"].exists():
+        legacy = capture_files(_frames_dir(run), _legacy_stem(name))
+        if legacy["metadata"].exists():
+            return legacy
+    return files
+
+
 def load_metadata(run: RunLocation, name: str) -> dict[str, Any]:
     """The metadata of a finished capture; `run` is a RunFolder or a run folder path."""
-    path = capture_files(_frames_dir(run), safe_name(name))["metadata"]
+    path = _stem_files(run, name)["metadata"]
     if not path.exists():
         raise FrameStoreError(f"no finished capture named {name!r} in {path.parent} "
                               f"(looked for {path.name}); check the name, or verify the run")
@@ -453,8 +521,7 @@ def _load_tiff(run: RunLocation, name: str, role: str) -> np.ndarray:
     if role not in meta.get("files", {}):
         raise FrameStoreError(f"capture {name!r} kept {meta.get('keep')!r}, so it has no {role}; "
                               f"use keep: both in the recipe to have both")
-    path = capture_files(_frames_dir(run), safe_name(name))[role]
-    return tifffile.imread(path)
+    return tifffile.imread(_stem_files(run, name)[role])
 
 
 def load_average(run: RunLocation, name: str) -> np.ndarray:
@@ -513,4 +580,4 @@ def _read_frames_log(path: Path) -> tuple[str | None, int | None]:
 
 __all__ = ["CaptureRecord", "CaptureWriter", "DiskFullError", "FrameStoreError", "KEEP_MODES",
            "abandon_files", "capture_files", "list_captures", "load_average", "load_metadata",
-           "load_stack", "move_partials_aside", "partial_files", "safe_name"]
+           "load_stack", "move_partials_aside", "partial_files", "safe_name", "capture_stem"]

@@ -22,6 +22,8 @@ import os
 import platform
 import socket
 import sys
+import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -42,7 +44,13 @@ class ManifestError(Exception):
 
 @dataclass
 class Manifest:
-    """Everything a reader needs to trust (or distrust) a run folder. Times: UTC ISO 8601 and clock s."""
+    """Everything a reader needs to trust (or distrust) a run folder. Times: UTC ISO 8601 and clock s.
+
+    Two clocks: `start_utc`/`end_utc` and the clock seconds are the run's own clock (simulated in
+    a dry run, as the event log is stamped); `wall_start_utc`/`wall_end_utc` are the computer's
+    wall clock, always. A simulated run also records `simulated_span` (start, end, seconds of
+    simulated time). `start_confirmation` says how a real-station start was confirmed.
+    """
 
     start_utc: str
     start_clock: float
@@ -59,20 +67,27 @@ class Manifest:
     plan: dict[str, Any] = field(default_factory=dict)
     sessions: list[dict[str, Any]] = field(default_factory=list)
     files: dict[str, dict[str, Any]] = field(default_factory=dict)
+    wall_start_utc: str | None = None
+    wall_end_utc: str | None = None
+    simulated_span: dict[str, Any] | None = None
+    start_confirmation: str | None = None
     format: str = MANIFEST_FORMAT
     version: int = 1
 
     @classmethod
     def begin(cls, clock: Clock, *, inputs: dict[str, dict[str, Any]] | None = None,
-              plan: dict[str, Any] | None = None, utc: _dt.datetime | None = None) -> Manifest:
-        """A manifest for a run starting now (clock time; `utc` defaults to the clock's time)."""
+              plan: dict[str, Any] | None = None, utc: _dt.datetime | None = None,
+              wall: Callable[[], float] = time.time) -> Manifest:
+        """A manifest for a run starting now (clock time; `utc` defaults to the clock's time;
+        `wall` is the wall clock, injectable for tests)."""
         now = clock.now()
         start = utc.astimezone(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ") if utc \
             else utc_iso(now)
+        wall_now = utc_iso(wall())
         manifest = cls(start_utc=start, start_clock=now, simulated_clock=bool(clock.simulated),
-                       inputs=dict(inputs or {}), plan=dict(plan or {}))
+                       inputs=dict(inputs or {}), plan=dict(plan or {}), wall_start_utc=wall_now)
         manifest.sessions.append({"started_utc": start, "started_clock": now, "pid": os.getpid(),
-                                  "host": manifest.host, "kind": "start"})
+                                  "host": manifest.host, "kind": "start", "wall_utc": wall_now})
         return manifest
 
     # -- names of the inputs, for people -------------------------------------------------------
@@ -89,22 +104,29 @@ class Manifest:
         """Write atomically to `<run>/manifest.json`."""
         return write_json_atomic(Path(run_path) / MANIFEST_NAME, self.to_dict())
 
-    def resumed(self, run_path: Path | str, clock: Clock, note: str = "") -> Path:
+    def resumed(self, run_path: Path | str, clock: Clock, note: str = "",
+                wall: Callable[[], float] = time.time) -> Path:
         """Mark the run running again after an interruption and write it."""
         now = clock.now()
         self.sessions.append({"started_utc": utc_iso(now), "started_clock": now,
                               "pid": os.getpid(), "host": socket.gethostname(), "kind": "resume",
                               "previous_state": self.state, "previous_cause": self.cause,
-                              "note": note})
+                              "note": note, "wall_utc": utc_iso(wall())})
         self.state, self.cause, self.end_utc, self.end_clock = RUNNING, None, None, None
+        self.wall_end_utc = None
         self.files = {}
         return self.write(run_path)
 
-    def close(self, run_path: Path | str, *, state: str, cause: str | None, clock: Clock) -> Path:
+    def close(self, run_path: Path | str, *, state: str, cause: str | None, clock: Clock,
+              wall: Callable[[], float] = time.time) -> Path:
         """Record the end state and its cause, checksum every file, write atomically."""
         now = clock.now()
         self.state, self.cause = state, cause
         self.end_utc, self.end_clock = utc_iso(now), now
+        self.wall_end_utc = utc_iso(wall())
+        if self.simulated_clock:
+            self.simulated_span = {"start_utc": self.start_utc, "end_utc": self.end_utc,
+                                   "seconds": round(now - float(self.start_clock), 6)}
         self.files = checksum_files(Path(run_path))
         return self.write(run_path)
 

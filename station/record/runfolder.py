@@ -1,6 +1,8 @@
 """One folder per run: where every file of a run lives, and the only place that knows its layout.
 
-Layout (`<root>/<UTC YYYYmmddTHHMMSSZ>_<serial>_<recipe>/`)::
+Layout (`<root>/<UTC YYYYmmddTHHMMSSZ>_<serial>_<recipe>/`, the time being the wall-clock time
+the run was started, also for a dry run in simulated time; a second run in the same second gets
+`-2`)::
 
     run-folder.json   marks the folder as a run folder (written atomically at creation)
     manifest.json     see station.record.manifest

@@ -23,7 +23,7 @@ import tifffile
 from station.record.atomic import TEMP_SUFFIX, sha256_file
 from station.record.events import scan_events
 from station.record.frame_store import (ABANDONED, CAPTURE_FORMAT, META_SUFFIX, capture_files,
-                                 partial_files, safe_name)
+                                 partial_files, capture_stem)
 from station.record.journal import Journal, JournalError
 from station.record.manifest import MANIFEST_NAME, RUNNING, ManifestError, load_manifest
 from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
@@ -185,9 +185,11 @@ def _check_captures(root: Path, report: VerifyReport) -> None:
         if not isinstance(meta, dict) or meta.get("format") != CAPTURE_FORMAT:
             continue
         report.captures_checked += 1
-        files = capture_files(frames, safe_name(str(meta.get("name", ""))))
+        files = capture_files(frames, capture_stem(str(meta.get("name", ""))))
         for role, info in meta.get("files", {}).items():
-            file = files.get(role)
+            # the file name the capture recorded, else the one the naming scheme gives
+            file = frames / info["file"] if isinstance(info, dict) and info.get("file") \
+                else files.get(role)
             if file is None or not file.is_file():
                 report.capture_problems.append(f"capture {meta.get('name')!r}: {role} file "
                                                f"missing ({info.get('file')})")

@@ -113,7 +113,7 @@ def test_abandon_moves_partials_aside_with_reason(tmp_path: Path) -> None:
     for f in frames(7):
         writer.add(f)
     folder = writer.abandon("operator abort (SIGINT)")
-    assert folder == frames_dir / "abandoned" / "sweep-2-.capture-1"
+    assert folder == frames_dir / "abandoned" / "sweep2.capture-1"
     assert partial_files(frames_dir) == []
     reason = json.loads((folder / "reason.json").read_text())
     assert reason["step_id"] == "sweep[2].capture" and reason["frames_added"] == 7
@@ -131,7 +131,7 @@ def test_redoing_a_step_sets_old_files_aside_and_never_mixes_them(tmp_path: Path
         first.add(f)
     first._close_streams()  # as if killed: partial files stay behind
     second = CaptureWriter(frames_dir, "scan[4].capture", "spot_4", "stack")
-    assert (frames_dir / "abandoned" / "scan-4-.capture-1" / "spot_4.stack.tif.partial").exists()
+    assert (frames_dir / "abandoned" / "scan4.capture-1" / "spot_4.stack.tif.partial").exists()
     for f in frames(5, seed=2):
         second.add(f)
     second.finish()
@@ -140,7 +140,7 @@ def test_redoing_a_step_sets_old_files_aside_and_never_mixes_them(tmp_path: Path
     for f in frames(4, seed=4):
         third.add(f)
     third.finish()
-    assert (frames_dir / "abandoned" / "scan-4-.capture-2" / "spot_4.json").exists()
+    assert (frames_dir / "abandoned" / "scan4.capture-2" / "spot_4.json").exists()
     assert load_stack(tmp_path, "spot_4").shape == (4, ROWS, COLS)
     with pytest.raises(FrameStoreError, match="already used by step"):
         CaptureWriter(frames_dir, "scan[5].capture", "spot_4", "stack")
@@ -228,7 +228,7 @@ def test_kill_9_mid_capture_then_partials_are_set_aside_on_resume(tmp_path: Path
     proc.wait()
     proc.stdout.close()
     (folder,) = move_partials_aside(frames_dir, "resume after kill -9", clock=SimClock())
-    assert folder.name == "sweep-3-.capture-1"
+    assert folder.name == "sweep3.capture-1"
     reason = json.loads((folder / "reason.json").read_text())
     assert reason["step_id"] == "sweep[3].capture"
     assert reason["frames_added"] >= acknowledged
@@ -236,3 +236,34 @@ def test_kill_9_mid_capture_then_partials_are_set_aside_on_resume(tmp_path: Path
     assert acknowledged <= pages <= reason["frames_added"] + 1
     assert np.all(tifffile.imread(folder / "flat_15K.stack.tif.partial", key=0) == 1234)
     assert partial_files(frames_dir) == []
+
+
+@pytest.mark.parametrize("name, stem", [
+    ("flat[difference=10]", "flat_difference+10"),
+    ("flat[difference=-10]", "flat_difference-10"),
+    ("spot[az=-11,el=-2.125]", "spot_az-11_el-2.125"),
+    ("spot[diff=5,az=0,el=12.5]", "spot_diff+5_az0_el+12.5"),
+    ("mtf[target=slanted edge]", "mtf_target-slanted-edge"),
+])
+def test_capture_files_have_readable_names(tmp_path: Path, name: str, stem: str) -> None:
+    frames_dir = run_dir(tmp_path) / "frames"
+    writer = CaptureWriter(frames_dir, "s1.loop[1].s1.capture", name, "both")
+    for f in frames(2):
+        writer.add(f)
+    writer.finish()
+    files = sorted(p.name for p in frames_dir.iterdir())
+    assert files == [f"{stem}.avg.tif", f"{stem}.json", f"{stem}.stack.tif"]
+    assert not any("--" in f or "-." in f for f in files)  # no doubled or trailing dash
+    assert json.loads((frames_dir / f"{stem}.json").read_text())["name"] == name
+    assert load_average(tmp_path, name).shape == frames(1)[0].data.shape
+
+
+def test_older_run_folders_are_read_under_their_own_names(tmp_path: Path) -> None:
+    frames_dir = run_dir(tmp_path) / "frames"
+    writer = CaptureWriter(frames_dir, "s1.capture", "flat[difference=10]", "average")
+    for f in frames(2):
+        writer.add(f)
+    writer.finish()
+    for path in list(frames_dir.iterdir()):  # as an earlier version named them
+        path.rename(path.with_name(path.name.replace("flat_difference+10", "flat-difference-10-")))
+    assert load_average(tmp_path, "flat[difference=10]").ndim == 2

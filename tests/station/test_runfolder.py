@@ -107,7 +107,7 @@ def test_resume_sets_unfinished_captures_aside(tmp_path: Path) -> None:
     folder.close()
     again = RunFolder.open(folder.path, clock=clock)
     (aside,) = again.set_aside_partials()
-    assert aside.relative_to(again.path).as_posix() == "frames/abandoned/scan-2-.capture-1"
+    assert aside.relative_to(again.path).as_posix() == "frames/abandoned/scan2.capture-1"
     (event,) = read_events(again.events_path, "capture.abandoned")
     assert event["frames_added"] == 4 and event["step"] == "scan[2].capture"
     again.close()

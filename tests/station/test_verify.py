@@ -95,7 +95,7 @@ def test_partial_abandoned_and_temp_files_are_reported(tmp_path: Path) -> None:
     assert report.temporary == [".manifest.json.abc.tmp"]
     assert [a["step_id"] for a in report.abandoned] == ["sweep[3].capture"]
     assert report.abandoned[0]["frames_added"] == 1
-    assert "set aside: frames/abandoned/sweep-3-.capture-1" in report.format()
+    assert "set aside: frames/abandoned/sweep3.capture-1" in report.format()
     assert report.state == "aborted" and len(report.problems) == 3
 
 
