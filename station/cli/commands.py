@@ -11,7 +11,9 @@ from drivers.clock import SimClock
 from drivers.errors import InstrumentError
 from station.cli import exitcodes
 from station.engine.abort import OperatorRequests, abort_on_signals
+from station.record.closing import close_manifest, final_state_guard
 from station.record.manifest import Manifest
+from station.engine.prechecks import check_run_inputs
 from station.formatting import format_duration
 from station.engine.runner import (execute, load_inputs, make_clock, new_run_folder,
                             plan_summary)
@@ -27,17 +29,18 @@ def _console_for(console: Console, plain: bool, clock=None):
 def cmd_run(args: argparse.Namespace, console: Console) -> int:
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
+    check_run_inputs(inputs, seed=args.seed, runs_root=args.runs)  # before any folder exists
     clock = make_clock(inputs.station, args.realtime)
     run = new_run_folder(inputs, args.runs, clock)
     manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, args.seed))
     manifest.write(run.path)
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
-    with abort_on_signals(OperatorRequests()):
+    with abort_on_signals(OperatorRequests()), final_state_guard(run, manifest, clock):
         with _console_for(console, args.plain, clock) as live:
             live.start(len(inputs.plan.steps), inputs.estimate.total_s)
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
-        run.close()
-        manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
+        close_manifest(run, manifest, outcome.state, outcome.cause, clock)
+    run.release_writer_lock()
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
     console.print(f"run folder: {run.path}", highlight=False, markup=False)
     return exitcodes.BY_STATE.get(outcome.state, exitcodes.FAULTED)

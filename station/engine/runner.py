@@ -26,6 +26,7 @@ from station.inputs.config import BUILTIN_DIR, StationConfig, load_station
 from station.engine.sequencer import PreflightFailed, RunOutcome, Sequencer
 from station.engine.steps import StepContext
 from station.engine.timing import timing_model
+from station.engine.prechecks import check_frame_format
 from station.inputs.uut_file import load_uut
 
 DEMO_UUT = BUILTIN_DIR / "demo_uut.yaml"
@@ -87,6 +88,10 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
                                   "resume with --force if the replacement is intended")
         bench.identities[role] = identity
         emit("preflight.identity", instrument=role, identity=identity)
+    try:  # the analysis reads frames with the UUT file's geometry: they must agree
+        check_frame_format(bench.camera.shape, inputs.uut, "the camera")
+    except ValueError as exc:
+        raise PreflightFailed(str(exc)) from None
     limits = inputs.station.blackbody_limits
     for step in inputs.plan.steps:
         if step.kind == "blackbody":
