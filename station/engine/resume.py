@@ -168,6 +168,10 @@ def interrupted_step_start(run: RunFolder, step_id: str | None) -> float | None:
 
 def resume_clock(inputs: Inputs, start: float) -> Clock:
     """Simulated time for a simulated station, from `start` (when the interrupted step began)."""
+    from station.engine.served import is_served, served_clock
+
+    if is_served(inputs.station):  # the served bench kept its time; resume rewinds it per step
+        return served_clock(inputs.station)
     if inputs.station.simulated:
         return SimClock(start=start)
     return RealClock()

@@ -67,6 +67,10 @@ def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
     """Simulated time for a simulated station unless a real-time demonstration is asked for."""
     if not station.simulated:
         return RealClock()
+    from station.engine.served import is_served, served_clock
+
+    if is_served(station):  # the served bench keeps the time (it may pace it itself)
+        return served_clock(station)
     if realtime_speed is not None:
         return PacedClock(speed=realtime_speed)
     return SimClock()
@@ -136,6 +140,9 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
         emit("log", level=level, text=text)
         console.log(level, text)
 
+    from station.engine.served import attach_time_keeper
+
+    attach_time_keeper(run, clock, inputs.plan, completed)
     with abort_on_signals(requests, notify=lambda m: log("warning", m)):
         try:
             with open_bench(inputs.station, clock, events=io_sink(run.events),
