@@ -256,7 +256,7 @@ def _check_depth(file: str, text: str) -> None:
     """Refuse nesting deeper than MAX_DEPTH before composing (PyYAML's composer recurses, so
     5,000 nested brackets would end in a RecursionError); the parser's events are flat."""
     depth = 0
-    for event in yaml.parse(text, Loader=yaml.SafeLoader):
+    for event in yaml.parse(text, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader)):
         if isinstance(event, (yaml.SequenceStartEvent, yaml.MappingStartEvent)):
             depth += 1
             if depth > MAX_DEPTH:

@@ -135,6 +135,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     verify = sub.add_parser("verify", help="check a run folder's files against its manifest")
     verify.add_argument("run_folder", type=Path)
+    for command in sub.choices.values():  # --debug also after the sub-command
+        command.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                             help="show the full traceback of an error instead of one line")
     return parser
 
 
@@ -155,7 +158,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             args.overrides = _parse_overrides(args.overrides)
         return handlers[args.command](args, console)
     except Exception as exc:
-        if args.debug:
+        if getattr(args, "debug", False):
             raise
         return report_error(exc, console)
     except KeyboardInterrupt:
