@@ -380,3 +380,29 @@ def test_unexpected_error_is_one_line_unless_debug(monkeypatch, capsys) -> None:
     assert out.count("\n") == 1 and "Internal error: KeyError" in out and "--debug" in out
     with pytest.raises(KeyError):
         main(["--debug", "recipes"])
+
+
+# -- 7. reproducible resume -------------------------------------------------------------------------
+def test_resume_restarts_simulated_time_when_the_interrupted_step_began(complete_run: Path,
+                                                                       tmp_path: Path) -> None:
+    run = _interrupted_copy(complete_run, tmp_path, keep_steps=2)
+    events = [json.loads(x) for x in (run / "events.jsonl").read_text().splitlines()]
+    began = [e["t"] for e in events if e["type"] == "step.start" and e["step"] == "s3.capture"]
+    last = events[-1]["t"]
+    assert main(["resume", str(run), "--plain"]) == exitcodes.OK
+    events = [json.loads(x) for x in (run / "events.jsonl").read_text().splitlines()]
+    (resumed,) = [e for e in events if e["type"] == "resume.start"]
+    assert resumed["step_began_at"] == began[0] < last  # not "the last logged time + 1 s"
+    assert resumed["t"] == pytest.approx(began[0], abs=1e-6)
+
+
+def test_capture_refuses_a_frame_holding_nan(tmp_path: Path) -> None:
+    from drivers.interfaces import Frame
+    from station.record.frame_store import CaptureWriter, FrameStoreError
+
+    writer = CaptureWriter(tmp_path / "frames", "s1.capture", "flat", keep="average")
+    data = np.full((4, 5), 100.0)
+    data[2, 3] = np.nan
+    with pytest.raises(FrameStoreError, match="frame 7 holds 1 NaN or infinite pixel"):
+        writer.add(Frame(data=data, counter=7, timestamp=0.0))
+    writer.abandon("test")
