@@ -7,7 +7,9 @@ kill -9) on `<run>/writer.lock` is taken before anything in the folder is read o
 second process is refused at once and told who holds the folder (pid, host, start).
 
 The lock file also holds that description as JSON, for the refusal message. It is not part of
-the run's record (the manifest does not list it and `verify` ignores it).
+the run's record (the manifest does not list it and `verify` ignores it); the holder removes it
+as it lets go (a process killed leaves it behind, unlocked), and a process that locked a file
+just removed locks the new one instead.
 
 Example::
 
@@ -44,18 +46,23 @@ class WriterLock:
     def acquire(cls, run_path: Path | str, purpose: str) -> WriterLock:
         """Take the lock or raise `RunFolderBusy` naming the holder; never waits."""
         path = Path(run_path) / LOCK_NAME
-        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
-        try:
-            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
-            holder = _read_holder(fd)
-            os.close(fd)
-            raise RunFolderBusy(f"{Path(run_path)}: {describe_holder(holder)} is writing this run "
-                                "folder; only one run or resume may write a folder at a time. "
-                                "Wait for it to end (or stop it), then try again.") from None
-        except BaseException:
-            os.close(fd)
-            raise
+        while True:
+            fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except BlockingIOError:
+                holder = _read_holder(fd)
+                os.close(fd)
+                raise RunFolderBusy(f"{Path(run_path)}: {describe_holder(holder)} is writing "
+                                    "this run folder; only one run or resume may write a folder "
+                                    "at a time. Wait for it to end (or stop it), then try "
+                                    "again.") from None
+            except BaseException:
+                os.close(fd)
+                raise
+            if _same_file(fd, path):
+                break
+            os.close(fd)  # the holder removed the file as it let go: lock the new one
         holder = {"pid": os.getpid(), "host": socket.gethostname(), "purpose": purpose,
                   "started_utc": _dt.datetime.now(_dt.timezone.utc).strftime(
                       "%Y-%m-%dT%H:%M:%S.%fZ")}
@@ -68,6 +75,7 @@ class WriterLock:
         if self._fd is None:
             return
         try:
+            self.path.unlink(missing_ok=True)  # still held: nobody can lock this inode now
             fcntl.flock(self._fd, fcntl.LOCK_UN)
         finally:
             os.close(self._fd)
@@ -82,6 +90,13 @@ class WriterLock:
 
     def __exit__(self, *exc: object) -> None:
         self.release()
+
+
+def _same_file(fd: int, path: Path) -> bool:
+    try:
+        return os.fstat(fd).st_ino == os.stat(path).st_ino
+    except FileNotFoundError:
+        return False
 
 
 def _read_holder(fd: int) -> dict[str, Any]:

@@ -406,3 +406,18 @@ def test_capture_refuses_a_frame_holding_nan(tmp_path: Path) -> None:
     with pytest.raises(FrameStoreError, match="frame 7 holds 1 NaN or infinite pixel"):
         writer.add(Frame(data=data, counter=7, timestamp=0.0))
     writer.abandon("test")
+
+
+def test_writer_lock_names_its_holder_and_is_gone_when_released(tmp_path: Path) -> None:
+    import socket
+
+    from station.record.writer_lock import LOCK_NAME, RunFolderBusy, WriterLock
+
+    first = WriterLock.acquire(tmp_path, "resume")
+    with pytest.raises(RunFolderBusy, match=f"nightbench resume \\(pid {os.getpid()} on host "
+                                            f"{socket.gethostname()}, since 20"):
+        WriterLock.acquire(tmp_path, "run")
+    first.release()
+    assert not (tmp_path / LOCK_NAME).exists()
+    with WriterLock.acquire(tmp_path, "run") as again:
+        assert again.held
