@@ -256,7 +256,7 @@ def _check_depth(file: str, text: str) -> None:
     """Refuse nesting deeper than MAX_DEPTH before composing (PyYAML's composer recurses, so
     5,000 nested brackets would end in a RecursionError); the parser's events are flat."""
     depth = 0
-    for event in yaml.parse(text, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader)):
+    for event in _events_until_error(text):
         if isinstance(event, (yaml.SequenceStartEvent, yaml.MappingStartEvent)):
             depth += 1
             if depth > MAX_DEPTH:
@@ -267,6 +267,15 @@ def _check_depth(file: str, text: str) -> None:
                     "an input file needs only a few levels; check for unclosed brackets")])
         elif isinstance(event, (yaml.SequenceEndEvent, yaml.MappingEndEvent)):
             depth -= 1
+
+
+def _events_until_error(text: str) -> Any:
+    """Parser events up to the first syntax error (the composer then reports that error with
+    PyYAML's own marks); the C parser when PyYAML has it."""
+    try:
+        yield from yaml.parse(text, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader))
+    except yaml.YAMLError:
+        return
 
 
 def _check_expansion(file: str, root: yaml.Node) -> None:
@@ -350,6 +359,9 @@ def load_yaml(path: Path | str, text: str | None = None) -> MarkedNode:
         root = yaml.compose(text, Loader=yaml.SafeLoader)
     except yaml.YAMLError as exc:
         raise SourceError([_syntax_problem(file, exc)]) from None
+    except RecursionError:  # the depth check above makes this unreachable; never a traceback
+        raise SourceError([Problem(SourceRef(file, 1, 1), "nested too deeply to read",
+                                   "an input file needs only a few levels")]) from None
     if root is None:
         return MarkedScalar(None, SourceRef(file, 1, 1))
     _check_expansion(file, root)

@@ -83,39 +83,47 @@ def _manifest(run: Path) -> dict:
 
 # -- 1. one run folder, one writer ----------------------------------------------------------------
 GATED = """\
-import os, sys, time
-gate = sys.argv[1]
-while not os.path.exists(gate):   # both processes are loaded; they leave together
-    time.sleep(0.0005)
+import sys, time
+from station.cli.main import main       # loaded before the gate opens
+open(sys.argv[1], "rb").close()         # a FIFO: the kernel wakes every reader together
 print(repr(time.time()), file=sys.stderr, flush=True)
-from station.cli.main import main
 sys.exit(main(sys.argv[2:]))
 """
 
 
-def test_two_resumes_started_together_exactly_one_runs(complete_run: Path, tmp_path: Path) -> None:
-    run = _interrupted_copy(complete_run, tmp_path, keep_steps=1)
-    gate = tmp_path / "go"
+def _race_two_resumes(run: Path, gate: Path) -> tuple[float, list[int], list[str]]:
+    """Start two resumes of `run` together; returns (start gap s, exit codes, outputs)."""
+    os.mkfifo(gate)
     cmd = [sys.executable, "-c", GATED, str(gate), "resume", str(run), "--plain"]
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
     procs = [subprocess.Popen(cmd, cwd=REPO, env=env, stdout=subprocess.PIPE,
                               stderr=subprocess.PIPE, text=True) for _ in range(2)]
-    time.sleep(0.5)  # real time on purpose: let both interpreters load before the gate opens
-    gate.touch()
+    time.sleep(1.5)  # real time on purpose: both interpreters loaded and blocked on the gate
+    fd = os.open(gate, os.O_WRONLY)
+    os.close(fd)
     results = [p.communicate(timeout=120) for p in procs]
     starts = [float(err.splitlines()[0]) for _, err in results]
-    outs = [out for out, _ in results]
-    codes = sorted(p.returncode for p in procs)
-    assert abs(starts[0] - starts[1]) < 0.010, f"started {starts} apart"
-    assert codes == [exitcodes.OK, exitcodes.INVALID], outs
-    refused = outs[[p.returncode for p in procs].index(exitcodes.INVALID)]
-    assert "is writing this run folder" in refused and "pid" in refused and "since" in refused
-    events = [json.loads(x) for x in (run / "events.jsonl").read_text().splitlines()]
-    assert sum(e["type"] == "resume.start" for e in events) == 1
-    steps = [json.loads(x)["step"] for x in (run / "journal.jsonl").read_text().splitlines()]
-    assert len(steps) == len(set(steps)) == 3
-    report = verify_run(run)
-    assert report.ok, report.format()
+    return abs(starts[0] - starts[1]), [p.returncode for p in procs], [o for o, _ in results]
+
+
+def test_two_resumes_started_together_exactly_one_runs(complete_run: Path, tmp_path: Path) -> None:
+    gaps = []
+    for attempt in range(3):  # a loaded machine may wake the two apart: then race again
+        run = _interrupted_copy(complete_run, tmp_path / f"try{attempt}", keep_steps=1)
+        gap, codes, outs = _race_two_resumes(run, tmp_path / f"gate{attempt}")
+        gaps.append(gap)
+        assert sorted(codes) == [exitcodes.OK, exitcodes.INVALID], outs
+        refused = outs[codes.index(exitcodes.INVALID)]
+        assert "is writing this run folder" in refused and "pid" in refused and "since" in refused
+        events = [json.loads(x) for x in (run / "events.jsonl").read_text().splitlines()]
+        assert sum(e["type"] == "resume.start" for e in events) == 1
+        steps = [json.loads(x)["step"] for x in (run / "journal.jsonl").read_text().splitlines()]
+        assert len(steps) == len(set(steps)) == 3
+        report = verify_run(run)
+        assert report.ok, report.format()
+        if gap < 0.010:
+            break
+    assert min(gaps) < 0.010, f"the two resumes never started within 10 ms: {gaps}"
 
 
 # -- 2. resume trusts nothing it did not check -----------------------------------------------------
