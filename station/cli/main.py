@@ -8,9 +8,10 @@
     nightbench analyze distortion RUN_FOLDER | --frame TIFF --geometry FILE [--out DIR]
     nightbench resume RUN_FOLDER [--force]
     nightbench verify RUN_FOLDER
+    nightbench simulate [--station FILE] [--seed N] [--out FILE]   serve the simulated bench
 
 Every bad input ends in a message naming the file and line and what to do, and an exit code from
-station/cli/exitcodes.py, never a bare traceback.
+station/cli/exitcodes.py, never a bare traceback (`nightbench --debug ...` shows it).
 """
 
 from __future__ import annotations
