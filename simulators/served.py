@@ -304,7 +304,7 @@ class ServedClock:
 
     simulated = True
 
-    def __init__(self, address: str, timeout_s: float = 30.0) -> None:
+    def __init__(self, address: str, timeout_s: float = 120.0) -> None:
         host, _, port = address.rpartition(":")
         self.address = address
         self._sock = socket.create_connection((host or "127.0.0.1", int(port)),
@@ -326,8 +326,13 @@ class ServedClock:
         return float(self._ask("CLK:NOW?"))
 
     def sleep(self, seconds: float) -> None:
-        if seconds > 0:
-            self._ask(f"CLK:SLEEP {float(seconds)!r}")
+        """Advance the served time; long waits go in 1 s steps, so a paced server answers each
+        well within the socket timeout."""
+        left = float(seconds)
+        while left > 0:
+            step = min(left, 1.0)
+            self._ask(f"CLK:SLEEP {step!r}")
+            left -= step
 
     def mark(self, key: str) -> None:
         self._ask(f"SIM:MARK {key}")
