@@ -182,5 +182,13 @@ def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> Any:
     utc = dt.datetime.fromtimestamp(clock.now(), tz=dt.timezone.utc)
     run = RunFolder.create(Path(runs_root).resolve(), uut_serial=inputs.uut.serial,
                            recipe_name=inputs.plan.recipe, utc=utc, clock=clock)
-    run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path, recipe=inputs.recipe_path)
+    try:
+        run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path,
+                        recipe=inputs.recipe_path)
+    except BaseException:  # nothing was run: leave no half-made folder behind
+        import shutil
+
+        run.release_writer_lock()
+        shutil.rmtree(run.path, ignore_errors=True)
+        raise
     return run

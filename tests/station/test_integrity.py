@@ -429,3 +429,39 @@ def test_writer_lock_names_its_holder_and_is_gone_when_released(tmp_path: Path) 
     assert not (tmp_path / LOCK_NAME).exists()
     with WriterLock.acquire(tmp_path, "run") as again:
         assert again.held
+
+
+def test_closing_manifest_uses_the_disk_reserve_when_the_disk_is_full(complete_run: Path,
+                                                                     tmp_path: Path,
+                                                                     monkeypatch) -> None:
+    import errno
+
+    from drivers.clock import SimClock
+    from station.record import closing
+    from station.record.manifest import Manifest, load_manifest
+    from station.record.runfolder import RunFolder
+
+    run_path = _interrupted_copy(complete_run, tmp_path, keep_steps=3)
+    closing.make_reserve(run_path)
+    run = RunFolder.open(run_path)
+    manifest = load_manifest(run_path)
+    real = Manifest.close
+    calls = []
+
+    def close(self, path, **kw):  # full until the reserve is given back
+        calls.append((run_path / closing.RESERVE_NAME).exists())
+        if len(calls) == 1:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real(self, path, **kw)
+
+    monkeypatch.setattr(Manifest, "close", close)
+    closing.close_manifest(run, manifest, "faulted", "test cause", SimClock())
+    assert calls == [False, False]  # the reserve went before the first try
+    final = load_manifest(run_path)
+    assert final.state == "faulted" and "the disk is full" in final.cause
+
+
+def test_simulate_refuses_a_station_that_is_not_simulated(capsys) -> None:
+    lab = REPO / "station" / "data" / "example_lab_station.yaml"
+    assert main(["simulate", "--station", str(lab)]) == exitcodes.INVALID
+    assert "not a simulated station" in capsys.readouterr().out
