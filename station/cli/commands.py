@@ -13,7 +13,7 @@ from station.cli import exitcodes
 from station.engine.abort import OperatorRequests, abort_on_signals
 from station.record.closing import close_manifest, final_state_guard
 from station.record.manifest import Manifest
-from station.engine.prechecks import check_run_inputs
+from station.engine.prechecks import check_run_inputs, check_simulated_camera
 from station.formatting import format_duration
 from station.engine.runner import (execute, load_inputs, make_clock, new_run_folder,
                             plan_summary)
@@ -52,6 +52,7 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
+    check_simulated_camera(inputs)  # truth file readable, UUT format = the camera's
     per_step = dict(inputs.estimate.per_step)
     rows = [(i, s.id, s.kind, _brief(s.params), f"{per_step.get(s.id, 0.0):.1f}")
             for i, s in enumerate(inputs.plan.steps)]

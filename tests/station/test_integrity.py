@@ -461,3 +461,12 @@ def test_simulate_refuses_a_station_that_is_not_simulated(capsys) -> None:
     lab = REPO / "station" / "data" / "example_lab_station.yaml"
     assert main(["simulate", "--station", str(lab)]) == exitcodes.INVALID
     assert "not a simulated station" in capsys.readouterr().out
+
+
+def test_check_also_refuses_a_uut_format_that_is_not_the_cameras(tmp_path: Path, capsys) -> None:
+    uut = tmp_path / "uut.yaml"
+    uut.write_text((REPO / "station" / "data" / "demo_uut.yaml").read_text().replace(
+        "height: 512", "height: 256"))
+    assert main(["check", "distortion-grid", "--uut", str(uut), "--no-connect"]) == \
+        exitcodes.INVALID
+    assert "the UUT file says 640 x 256 px" in capsys.readouterr().out
