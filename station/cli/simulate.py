@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from typing import Any
 
 from rich.console import Console
 
@@ -48,13 +49,14 @@ def cmd_simulate(args: argparse.Namespace, console: Console) -> int:
         for role, resource in addresses.items():
             console.print(f"{role}: {resource}", highlight=False, markup=False)
         console.print(f"station file: {out}", highlight=False, markup=False)
-        console.print("serving; stop with Ctrl-C", highlight=False, markup=False)
+        console.print("serving (the control line is the clock and the state marks); stop with "
+                      "Ctrl-C", highlight=False, markup=False)
 
     serve_forever(station_mapping(station), seed=args.seed, ready=ready, speed=args.realtime)
     return exitcodes.OK
 
 
-def station_mapping(station) -> dict:
+def station_mapping(station: Any) -> dict[str, Any]:
     """What the server needs of the station: bench physics, camera truth, slots, collimator."""
     from station.engine.bench import camera_truth
 

@@ -69,8 +69,9 @@ class TimeKeeper:
     when the first open step of a resumed run starts."""
 
     def __init__(self, clock: Any, run_key: str, rewind_to: str | None,
-                 previous: str | None) -> None:
+                 previous: str | None, emit: Any = None) -> None:
         self.clock = clock
+        self.emit = emit
         self.run_key = run_key
         self.rewind_to = rewind_to
         self.previous = previous
@@ -91,6 +92,11 @@ class TimeKeeper:
                     if self.clock.rewind(key):
                         self.rewound = key
                         break
+                if self.emit is not None:  # say in the log whether the bench went back
+                    self.emit("simulation.rewound" if self.rewound else "simulation.not_rewound",
+                              at_step=step, mark=self.rewound,
+                              why=None if self.rewound else "the served bench holds no mark of "
+                              "this run (was it restarted?): the step runs from its present state")
             self.clock.mark(self.key("start", step))
         elif kind == "step.done":
             self.clock.mark(self.key("after", step))
@@ -109,7 +115,7 @@ def attach_time_keeper(run: Any, clock: Any, plan: Any,
                 rewind_to = step.id
                 break
             previous = step.id
-    keeper = TimeKeeper(clock, Path(run.path).name, rewind_to, previous)
+    keeper = TimeKeeper(clock, Path(run.path).name, rewind_to, previous, run.events.emit)
     run.events.subscribe(keeper)
     return keeper
 

@@ -213,8 +213,9 @@ def test_killed_and_resumed_scan_equals_the_uninterrupted_run(tmp_path: Path) ->
     (ref,) = [p for p in (tmp_path / "ref-runs").glob("*") if (p / "run-folder.json").exists()]
     report = verify_run(run)
     assert report.ok, report.format()
-    resumes = sum(e.get("type") == "resume.start" for e in _events(run))
-    assert resumes == 4
+    events = _events(run)
+    assert sum(e.get("type") == "resume.start" for e in events) == 4
+    assert sum(e.get("type") == "simulation.rewound" for e in events) == 4
     assert _captures(run) == _captures(ref) and len(_captures(ref)) == 25
     ref_results = sorted(p.name for p in (ref / "results").glob("*.json"))
     assert ref_results and sorted(p.name for p in (run / "results").glob("*.json")) == ref_results
