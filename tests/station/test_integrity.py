@@ -193,6 +193,14 @@ def test_analyze_out_inside_a_run_folder_is_refused(complete_run: Path, capsys) 
     assert verify_run(complete_run).ok
 
 
+def test_reanalysis_out_inside_a_run_folder_is_refused(complete_run: Path, capsys) -> None:
+    code = main(["analyze", "distortion", str(complete_run), "--out",
+                 str(complete_run / "results" / "again")])
+    assert code == exitcodes.INVALID
+    assert "is inside the run folder" in capsys.readouterr().out
+    assert not (complete_run / "results" / "again").exists()
+
+
 @pytest.mark.xfail(reason="analysis options are declared in the analysis registry (core "
                    "branch), which refuses undeclared ones such as results_dir", strict=False)
 def test_analysis_option_naming_a_results_folder_outside_the_run_is_refused(
