@@ -126,6 +126,10 @@ _ALLOWED = {
 }
 
 
+MAX_GRID_PINHOLES = 10_000
+"""A pinhole grid larger than 100 x 100 cannot be resolved by any detector format in use."""
+
+
 def target_from_mapping(d: dict[str, Any], base_dir: Path) -> Target:
     """Build a target from a station-file mapping; `ValueError` lists every problem found.
 
@@ -166,6 +170,9 @@ def target_from_mapping(d: dict[str, Any], base_dir: Path) -> Target:
             if pitch is not None and diameter is not None and diameter >= pitch:
                 problems.append(f"diameter_mm: {diameter} is not smaller than pitch_mm {pitch}; "
                                 "pinholes would overlap")
+            if rows is not None and cols is not None and rows * cols > MAX_GRID_PINHOLES:
+                problems.append(f"rows x cols: {rows} x {cols} pinholes; at most "
+                                f"{MAX_GRID_PINHOLES} fit a grid target (check rows and cols)")
             if None not in (rows, cols, pitch, diameter) and not problems:
                 target = PinholeGrid(rows=rows, cols=cols, pitch_mm=pitch,
                                      diameter_mm=diameter, offset_mm=offset)

@@ -38,6 +38,9 @@ __all__ = [
     "ref_in_key",
 ]
 
+MAX_FRAMES_PER_CAPTURE = 1_000_000
+"""About 9 hours at 30 Hz, 650 GB of 640x512 stack: more is a typo."""
+
 NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 CAPTURE_NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_.\-]*$")
 
@@ -67,6 +70,7 @@ class Option:
     above: float | None = None
     unit: str = ""
     field: str = ""  # the typed step's field this option fills ("" : the option's own name)
+    maximum: float | None = None  # inputs are bounded: a typo of 10^20 frames is refused
 
     @property
     def field_name(self) -> str:
@@ -108,7 +112,7 @@ STEP_SPECS: dict[str, StepSpec] = {
     "capture": _spec(
         "capture", "capture: {name: flat, frames: 64}",
         Option("name", "capture_name"),
-        Option("frames", "count", minimum=1),
+        Option("frames", "count", minimum=1, maximum=MAX_FRAMES_PER_CAPTURE),
         Option("keep", "choice", "average", choices=("average", "stack", "both")),
     ),
     "analyze": _spec(
@@ -323,6 +327,9 @@ def coerce_value(option: Option, value: Any, where: SourceRef, label: str,
     if option.above is not None and value <= option.above:
         return fail(f"{what} must be greater than {option.above:g}{unit}, not {value:g}",
                     "use a positive value")
+    if option.maximum is not None and value > option.maximum:
+        return fail(f"{what} must be at most {option.maximum:g}{unit}, not {value:g}",
+                    "split a longer acquisition into several steps")
     return True, value
 
 

@@ -37,7 +37,19 @@ __all__ = [
     "load_yaml",
     "ref_in",
     "is_number",
+    "bounded_safe_load",
+    "MAX_DEPTH",
+    "MAX_EXPANDED_NODES",
+    "MAX_TEXT_BYTES",
 ]
+
+MAX_DEPTH = 64
+"""Deepest nesting of mappings and lists a hand-written file may have (ours need under 10)."""
+MAX_EXPANDED_NODES = 100_000
+"""Values in a document once every alias is expanded: bounds what readers of the data walk
+(a "billion laughs" file of nested aliases is a few hundred bytes and 10^9 values)."""
+MAX_TEXT_BYTES = 4 * 1024 * 1024
+"""Largest input file read (station, UUT, recipe and geometry files are a few kB)."""
 
 
 @dataclass(frozen=True, order=True)
@@ -240,6 +252,87 @@ def _syntax_problem(file: str, exc: yaml.YAMLError) -> Problem:
     return Problem(where, f"YAML syntax error: {what}", hint)
 
 
+def _check_depth(file: str, text: str) -> None:
+    """Refuse nesting deeper than MAX_DEPTH before composing (PyYAML's composer recurses, so
+    5,000 nested brackets would end in a RecursionError); the parser's events are flat."""
+    depth = 0
+    for event in _events_until_error(text):
+        if isinstance(event, (yaml.SequenceStartEvent, yaml.MappingStartEvent)):
+            depth += 1
+            if depth > MAX_DEPTH:
+                mark = event.start_mark
+                raise SourceError([Problem(
+                    SourceRef(file, mark.line + 1, mark.column + 1),
+                    f"mappings and lists are nested more than {MAX_DEPTH} deep here",
+                    "an input file needs only a few levels; check for unclosed brackets")])
+        elif isinstance(event, (yaml.SequenceEndEvent, yaml.MappingEndEvent)):
+            depth -= 1
+
+
+def _events_until_error(text: str) -> Any:
+    """Parser events up to the first syntax error (the composer then reports that error with
+    PyYAML's own marks); the C parser when PyYAML has it."""
+    try:
+        yield from yaml.parse(text, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader))
+    except yaml.YAMLError:
+        return
+
+
+def _check_expansion(file: str, root: yaml.Node) -> None:
+    """Count the values the document holds once aliases are expanded (each node's expanded
+    size computed once, so this is linear in the file); refuse past MAX_EXPANDED_NODES or an
+    alias that contains itself, naming the line where the growth happens."""
+    sizes: dict[int, int] = {}
+    stack: list[tuple[yaml.Node, bool]] = [(root, False)]
+    open_nodes: set[int] = set()
+    while stack:
+        node, children_done = stack.pop()
+        key = id(node)
+        if key in sizes and not children_done:
+            continue
+        if isinstance(node, yaml.ScalarNode):
+            sizes[key] = 1
+            continue
+        items = ([v for pair in node.value for v in pair] if isinstance(node, yaml.MappingNode)
+                 else list(node.value))
+        if not children_done:
+            if key in open_nodes:
+                continue
+            open_nodes.add(key)
+            stack.append((node, True))
+            for child in items:
+                if id(child) in open_nodes and id(child) not in sizes:
+                    raise SourceError([Problem(_ref(file, child), "an alias refers to the "
+                                               "mapping or list that contains it",
+                                               "an alias must point at a finished value")])
+                if id(child) not in sizes:
+                    stack.append((child, False))
+            continue
+        total = 1 + sum(sizes[id(child)] for child in items)
+        sizes[key] = total
+        open_nodes.discard(key)
+        if total > MAX_EXPANDED_NODES:
+            raise SourceError([Problem(
+                _ref(file, node), f"once its aliases (*name) are expanded this holds more than "
+                f"{MAX_EXPANDED_NODES} values", "an input file needs far fewer; check the "
+                "aliases used here")])
+
+
+def bounded_safe_load(text: str, source: str = "<text>") -> Any:
+    """A YAML value from text (a --set value, say) with the same bounds as files; plain Python
+    values (dict, list, scalars) come back. Problems raise SourceError naming `source`."""
+    node = load_yaml(source, text=text)
+    return _plain(node.value if isinstance(node, MarkedScalar) else node)
+
+
+def _plain(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {k: _plain(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    return value
+
+
 def load_yaml(path: Path | str, text: str | None = None) -> MarkedNode:
     """Load one YAML document keeping positions; raise :class:`SourceError` on any problem.
 
@@ -257,12 +350,21 @@ def load_yaml(path: Path | str, text: str | None = None) -> MarkedNode:
         except (OSError, UnicodeDecodeError) as exc:
             raise SourceError([Problem(SourceRef(file, 1, 1), f"cannot read the file ({exc})",
                                        "check permissions and that it is UTF-8 text")]) from None
+    if len(text) > MAX_TEXT_BYTES:
+        raise SourceError([Problem(SourceRef(file, 1, 1), f"the file is {len(text)} characters "
+                                   f"long, more than the {MAX_TEXT_BYTES} an input file may have",
+                                   "check that this is the right file")])
     try:
+        _check_depth(file, text)
         root = yaml.compose(text, Loader=yaml.SafeLoader)
     except yaml.YAMLError as exc:
         raise SourceError([_syntax_problem(file, exc)]) from None
+    except RecursionError:  # the depth check above makes this unreachable; never a traceback
+        raise SourceError([Problem(SourceRef(file, 1, 1), "nested too deeply to read",
+                                   "an input file needs only a few levels")]) from None
     if root is None:
         return MarkedScalar(None, SourceRef(file, 1, 1))
+    _check_expansion(file, root)
     builder = _Builder(file)
     value = builder.build(root)
     if builder.problems:

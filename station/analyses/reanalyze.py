@@ -35,7 +35,8 @@ from station.analyses.registry import AnalysisContext, AnalysisFailed, JsonValue
 from station.analyses.site import FolderSite
 from station.inputs.config import StationConfig, load_station
 from station.inputs.geometry_file import load_geometry
-from station.record.runfolder import RunFolder, RunFolderError, is_run_folder
+from station.record.runfolder import (RunFolder, RunFolderError, is_run_folder,
+                                      refuse_inside_run_folder, refuse_unfinished_run)
 from station.inputs.uut_file import load_uut
 
 __all__ = ["Reanalysis", "analyze_run_folder", "analyze_frame_file", "read_frame",
@@ -142,6 +143,9 @@ def analyze_run_folder(path: str | Path, analysis: str = "distortion",
         raise ValueError(f"no analysis named {analysis!r}; known: {', '.join(sorted(registry))}")
     try:
         run = RunFolder.open(path)
+        refuse_unfinished_run(run.path)
+        if out is not None:
+            refuse_inside_run_folder(out)
     except RunFolderError as exc:
         raise ValueError(str(exc)) from None
     station = _load_station_copy(run)
@@ -206,6 +210,10 @@ def read_frame(frame: str | Path, shape: tuple[int, int]) -> np.ndarray:
     if data.ndim != 2:
         raise ValueError(f"{frame}: a {data.ndim}-D array {data.shape}; expected one 2-D frame "
                          f"or a 3-D stack (frames, rows, cols)")
+    bad = int(data.size - np.count_nonzero(np.isfinite(data)))
+    if bad:
+        raise ValueError(f"{frame}: {bad} pixel(s) are NaN or infinite; a camera frame holds "
+                         "finite counts. Export the raw frame again (or replace those pixels)")
     if data.shape != shape:
         raise ValueError(f"{frame}: the frame is {data.shape[0]} rows x {data.shape[1]} cols but "
                          f"the geometry file says {shape[0]} x {shape[1]} (uut height x width); "
@@ -221,6 +229,10 @@ def analyze_frame_file(frame: str | Path, geometry: str | Path,
     short summary. Scan mode needs one frame per stage pose and a run folder, so a single-pinhole
     target is refused here with a clear message.
     """
+    try:
+        refuse_inside_run_folder(out)
+    except RunFolderError as exc:
+        raise ValueError(str(exc)) from None
     geom = load_geometry(geometry)
     if not isinstance(geom.target, PinholeGrid):
         raise ValueError(f"{geometry}: a standalone frame can only be analysed with a pinhole "

@@ -49,10 +49,13 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     from station.engine.abort import OperatorRequests, abort_on_signals
     from station.engine.runner import (console_plan, execute, load_inputs, make_clock,
                                        new_run_folder, plan_summary)
+    from station.engine.prechecks import check_run_inputs
+    from station.record.closing import close_manifest, final_state_guard
     from station.record.manifest import Manifest
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
+    check_run_inputs(inputs, seed=args.seed, runs_root=args.runs)  # before any folder exists
     confirmation = _confirm_real_station(args, console, inputs)
     if isinstance(confirmation, int):
         return confirmation
@@ -64,12 +67,12 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     manifest.start_confirmation = confirmation
     manifest.write(run.path)
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
-    with abort_on_signals(OperatorRequests()):
+    with abort_on_signals(OperatorRequests()), final_state_guard(run, manifest, clock):
         with _console_for(console, args.plain, clock) as live:
             live.start(len(inputs.plan.steps), inputs.estimate.total_s, **console_plan(inputs))
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
-        run.close()
-        manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
+        close_manifest(run, manifest, outcome.state, outcome.cause, clock)
+    run.release_writer_lock()
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False,
                   soft_wrap=True)
     if outcome.state != "complete":
@@ -120,6 +123,7 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
+    check_simulated_camera(inputs)  # truth file readable, UUT format = the camera's
     per_step = dict(inputs.estimate.per_step)
     steps = inputs.plan.steps
     view = full_text if args.full else folded_text

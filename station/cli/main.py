@@ -12,22 +12,32 @@
     nightbench analyze distortion --frame TIFF --geometry FILE [--out DIR]
     nightbench resume RUN_FOLDER [--force]
     nightbench verify RUN_FOLDER
+    nightbench simulate [--station FILE] [--seed N] [--out FILE]   serve the simulated bench
 
 Only argparse is imported before the arguments are parsed; each command imports what it needs.
 Every bad input ends in a message naming the file and line and what to do, and an exit code from
-station/cli/exitcodes.py, never a bare traceback.
+station/cli/exitcodes.py, never a bare traceback (`nightbench --debug ...` shows it).
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
+import math
 import sys
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from station import __version__
 from station.cli import exitcodes
+
+if TYPE_CHECKING:
+    from rich.console import Console
+
+
+class ArgumentProblem(ValueError):
+    """A command-line argument that cannot be used (exit code 2)."""
 
 
 def _parse_overrides(pairs: Sequence[str]) -> dict[str, Any]:
@@ -36,10 +46,43 @@ def _parse_overrides(pairs: Sequence[str]) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for pair in pairs:
         if "=" not in pair:
-            raise SystemExit(f"--set expects NAME=VALUE, got {pair!r}")
+            raise ArgumentProblem(f"--set {pair}: expected NAME=VALUE (for example --set "
+                                  "frames=50)")
         name, raw = pair.split("=", 1)
-        out[name.strip()] = yaml.safe_load(raw)
+        if not name.strip():
+            raise ArgumentProblem(f"--set {pair}: the parameter name before '=' is missing")
+        from sequences.yamlsource import SourceError, bounded_safe_load
+
+        try:
+            out[name.strip()] = bounded_safe_load(raw, source=f"--set {name.strip()}")
+        except SourceError:
+            raise
+        except yaml.YAMLError as exc:
+            mark = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+            raise ArgumentProblem(f"--set {pair}: the value is not valid YAML ({mark}); quote "
+                                  "text, write lists as [1, 2]") from None
     return out
+
+
+def _speed(text: str) -> float:
+    """--realtime SPEED: finite and above zero (argparse reports the problem, exit code 2)."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"{text!r}: give a finite speed above 0 (1 = real "
+                                         "time)")
+    return value
+
+
+def _seed(text: str) -> int:
+    from station.engine.prechecks import check_seed
+
+    try:
+        return check_seed(int(text))
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc).removeprefix("--seed ")) from None
 
 
 def _common_inputs(p: argparse.ArgumentParser) -> None:
@@ -57,15 +100,17 @@ def build_parser() -> argparse.ArgumentParser:
         "Drive a camera test bench (or its built-in simulator) through a recipe, capture, "
         "analyse and record everything in a run folder."))
     parser.add_argument("--version", action="version", version=f"nightbench {__version__}")
+    parser.add_argument("--debug", action="store_true",
+                        help="show the full traceback of an error instead of one line")
     sub = parser.add_subparsers(dest="command", required=True)
 
     run = sub.add_parser("run", help="run a recipe")
     _common_inputs(run)
     run.add_argument("--runs", type=Path, default=Path("runs"), help="where run folders go")
-    run.add_argument("--realtime", nargs="?", const=1.0, type=float, default=None,
+    run.add_argument("--realtime", nargs="?", const=1.0, type=_speed, default=None,
                      metavar="SPEED", help="simulated bench only: pace simulated time against "
                      "the wall clock (1 = real time) for a demonstration")
-    run.add_argument("--seed", type=int, default=1, help="seed of the simulated bench")
+    run.add_argument("--seed", type=_seed, default=1, help="seed of the simulated bench")
     run.add_argument("--plain", action="store_true", help="plain log lines, no live display")
     run.add_argument("--yes", action="store_true",
                      help="real station: start without asking (unattended start; recorded in "
@@ -107,23 +152,19 @@ def build_parser() -> argparse.ArgumentParser:
     resume.add_argument("run_folder", type=Path)
     resume.add_argument("--force", action="store_true",
                         help="go on even if the station or recipe file changed")
-    resume.add_argument("--seed", type=int, default=None)
+    resume.add_argument("--seed", type=_seed, default=None)
     resume.add_argument("--plain", action="store_true")
+
+    from station.cli.simulate import add_parser as add_simulate
+
+    add_simulate(sub)
 
     verify = sub.add_parser("verify", help="check a run folder's files against its manifest")
     verify.add_argument("run_folder", type=Path)
+    for command in sub.choices.values():  # --debug also after the sub-command
+        command.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                             help="show the full traceback of an error instead of one line")
     return parser
-
-
-class _NotRaised(Exception):
-    """Stands for SourceError while the YAML layer was never loaded (so it cannot be raised)."""
-
-
-def _source_error() -> type[Exception]:
-    """sequences.yamlsource.SourceError if that module was loaded (commands that read no YAML,
-    such as `recipes`, do not pay for importing it)."""
-    module = sys.modules.get("sequences.yamlsource")
-    return module.SourceError if module is not None else _NotRaised
 
 
 class _LazyConsole:
@@ -157,21 +198,71 @@ def main(argv: Sequence[str] | None = None) -> int:
         "analyze": commands.cmd_analyze, "resume": commands.cmd_resume,
         "verify": commands.cmd_verify,
     }
+    handlers.update(extra_handlers())
     try:
         if hasattr(args, "overrides"):
             args.overrides = _parse_overrides(args.overrides)
         return handlers[args.command](args, console)
-    except _source_error() as exc:  # evaluated only when something was raised
-        console.print("[bold red]Input problems:[/]", highlight=False)
-        for problem in exc.problems:
-            console.print(f"  {problem}", highlight=False, markup=False)
-        return exitcodes.INVALID
-    except (FileNotFoundError, ValueError) as exc:
-        console.print(f"[bold red]Input problem:[/] {exc}", highlight=False)
-        return exitcodes.INVALID
+    except Exception as exc:
+        if getattr(args, "debug", False):
+            raise
+        return report_error(exc, console)
     except KeyboardInterrupt:
         console.print("interrupted")
         return exitcodes.ABORTED
+
+
+def extra_handlers() -> dict[str, Any]:
+    """Sub-commands that live in their own modules."""
+    from station.cli.simulate import cmd_simulate
+
+    return {"simulate": cmd_simulate}
+
+
+def report_error(exc: BaseException, console: Console) -> int:
+    """One line (or one line per input problem) and an exit code; never a traceback.
+
+    Input problems (files, arguments, a refused resume, a busy run folder) exit 2; a full disk
+    ends the run faulted (1); anything else is an internal error (1) that --debug shows in full.
+    """
+    from sequences.yamlsource import SourceError
+
+    def say(text: str) -> None:
+        console.print(text, highlight=False, markup=False, soft_wrap=True)
+
+    if isinstance(exc, SourceError):
+        console.print("[bold red]Input problems:[/]", highlight=False)
+        for problem in exc.problems:
+            say(f"  {problem}")
+        return exitcodes.INVALID
+    if isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, errno.EDQUOT):
+        say(f"Disk full: {exc}; the run folder records where it stopped. Free some space, "
+            "then resume the run.")
+        return exitcodes.FAULTED
+    if isinstance(exc, OSError):
+        where = f" {exc.filename}" if exc.filename else ""
+        say(f"Input problem: cannot use{where}: {exc.strerror or exc}")
+        return exitcodes.INVALID
+    if isinstance(exc, RecursionError):
+        say("Input problem: an input is nested too deeply to read; simplify it")
+        return exitcodes.INVALID
+    if isinstance(exc, MemoryError):
+        say("Input problem: an input asks for more memory than this machine has; reduce its "
+            "sizes (grid, frames, steps)")
+        return exitcodes.INVALID
+    if isinstance(exc, ValueError) or _is_input_error(exc):
+        say(f"Input problem: {exc}")
+        return exitcodes.INVALID
+    say(f"Internal error: {type(exc).__name__}: {exc} (run again with --debug for the "
+        "traceback and please report it)")
+    return exitcodes.FAULTED
+
+
+def _is_input_error(exc: BaseException) -> bool:
+    """Errors of the record and store layers that say what is wrong with a given folder/file."""
+    names = {"RunFolderError", "ManifestError", "JournalError", "FrameStoreError",
+             "ResultsError", "GeometryError"}
+    return any(cls.__name__ in names for cls in type(exc).__mro__)
 
 
 if __name__ == "__main__":

@@ -124,7 +124,9 @@ def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None
     with ExitStack() as stack:
         sim = None
         ports: dict[str, int] = {}
-        if station.simulated:
+        from station.engine.served import is_served
+
+        if station.simulated and not is_served(station):
             from simulators.bench import SimBench
             from simulators.servers import start_bench_servers
 

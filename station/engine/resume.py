@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import dataclasses
 import os
-import socket
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -28,8 +27,10 @@ from drivers.clock import Clock, RealClock, SimClock
 from station.record.atomic import sha256_file
 from station.record.events import read_events
 from station.record.journal import JournalError
-from station.record.manifest import RUNNING, Manifest, ManifestError, load_manifest
+from station.record.closing import close_manifest, final_state_guard, make_reserve
+from station.record.manifest import Manifest, ManifestError, load_manifest
 from station.record.runfolder import RunFolder, RunFolderError
+from station.record.trust import Mismatch, check_recorded_files, set_aside_temporary_files
 from station.engine.runner import Inputs, console_plan, execute, load_inputs
 from station.engine.ports import Console
 from typing import TYPE_CHECKING
@@ -123,25 +124,6 @@ def _refuse_plan_change(inputs: Inputs, manifest: Manifest, force: bool) -> None
                             "folder, or pass --force if you know the difference is harmless.")
 
 
-def _refuse_if_running_elsewhere(manifest: Manifest, path: Path, force: bool) -> None:
-    """A manifest saying `running` whose process is still alive on this host: someone owns it."""
-    if manifest.state != RUNNING or force or not manifest.sessions:
-        return
-    last = manifest.sessions[-1]
-    pid, host = last.get("pid"), last.get("host")
-    if not isinstance(pid, int) or host != socket.gethostname() or pid == os.getpid():
-        return
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return
-    except PermissionError:
-        pass
-    raise ResumeRefused(f"{path / 'manifest.json'}: the run is still marked running by process "
-                        f"{pid} on this host, which is alive. Stop that process first (or wait "
-                        "for it), or pass --force if that process is not nightbench.")
-
-
 def first_identities(run: RunFolder) -> dict[str, str]:
     """The instruments' identities as the run's first preflight recorded them."""
     found: dict[str, str] = {}
@@ -172,14 +154,44 @@ def last_clock_time(run: RunFolder, manifest: Manifest) -> float:
     return best
 
 
-def resume_clock(inputs: Inputs, start: float) -> Clock:
-    """Simulated time for an all-simulated station (continuing from where the run stopped);
-    real time as soon as one instrument is real (the clock follows the instruments)."""
-    from station.engine.runner import instrument_origins
+def interrupted_step_start(run: RunFolder, step_id: str | None) -> float | None:
+    """Clock time at which the interrupted step began: its last `step.start`, else the end of
+    the step before it (the next step begins the moment one ends). None if the log has neither."""
+    if not run.events_path.is_file():
+        return None
+    started = done = None
+    for event in read_events(run.events_path):
+        t = event.get("t")
+        if not isinstance(t, (int, float)):
+            continue
+        if event.get("type") == "step.start" and event.get("step") == step_id:
+            started = float(t)
+        elif event.get("type") == "step.done":
+            done = float(t)
+    return started if started is not None else done
 
-    if not instrument_origins(inputs.station)[1]:
-        return SimClock(start=start + 1.0)
+
+def resume_clock(inputs: Inputs, start: float) -> Clock:
+    """Simulated time for an all-simulated station, from `start` (when the interrupted step
+    began); real time as soon as one instrument is real (the clock follows the instruments)."""
+    from station.engine.runner import instrument_origins
+    from station.engine.served import is_served, served_clock
+
+    if is_served(inputs.station):  # the served bench kept its time; resume rewinds it per step
+        return served_clock(inputs.station)
+    if inputs.station.simulated and not instrument_origins(inputs.station)[1]:
+        return SimClock(start=start)
     return RealClock()
+
+
+def _refuse_changed_files(mismatches: list[Mismatch], run_path: Path, force: bool) -> None:
+    if mismatches and not force:
+        listed = "; ".join(str(m) for m in mismatches[:10])
+        more = f" (and {len(mismatches) - 10} more)" if len(mismatches) > 10 else ""
+        raise ResumeRefused(f"{run_path}: files of the interrupted run are not as it wrote them: "
+                            f"{listed}{more}. Going on would analyse or run them as if they were "
+                            "the originals. Restore them (from a backup), or pass --force to go "
+                            "on with them as they are (the manifest then records it).")
 
 
 def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None,
@@ -189,21 +201,34 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
     """Continue the run in `path` at its first step not in the journal.
 
     Returns (end state, cause, run folder). Raises ResumeRefused (a ValueError) when the folder,
-    its journal or manifest is unusable, or the station/recipe/UUT changed (unless `force`).
+    its journal or manifest is unusable, or the station/recipe/UUT changed (unless `force`),
+    and RunFolderBusy (a ValueError) when another process writes the folder.
     `clock` and `fault_plan` are for in-process callers (tests, soak); the command line leaves
     them None: a simulated station then runs on simulated time.
     """
     run_path = Path(path).resolve()
     try:
         run = RunFolder.open(run_path)
+    except RunFolderError as exc:
+        raise ResumeRefused(str(exc)) from None
+    run.take_writer_lock("resume")  # before anything is read: one writer per folder
+    try:
+        return _resume_locked(run, run_path, force=force, seed=seed, console=console,
+                              clock=clock, fault_plan=fault_plan)
+    finally:
+        run.release_writer_lock()
+
+
+def _resume_locked(run: RunFolder, run_path: Path, *, force: bool, seed: int | None,
+                   console: Any, clock: Clock | None, fault_plan: Any) -> tuple[str, str, Path]:
+    try:
         manifest = load_manifest(run_path)
         journal = run.journal
-    except (RunFolderError, ManifestError, JournalError) as exc:
+    except (ManifestError, JournalError) as exc:
         raise ResumeRefused(str(exc)) from None
     if manifest.state == "complete":
         return "complete", "already complete: every step is in the journal, nothing to resume", \
             run_path
-    _refuse_if_running_elsewhere(manifest, run_path, force)
     index = run.inputs or manifest.inputs
     if not run.inputs:
         run.inputs = dict(manifest.inputs)
@@ -214,39 +239,54 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
                             "(inputs/); resuming against a different station or recipe could "
                             "mix incompatible data. Restore the original, or pass --force to "
                             "go on with the copies in the run folder.")
+    completed = journal.completed()
+    mismatches = check_recorded_files(run_path, completed, manifest.inputs or index)
+    _refuse_changed_files(mismatches, run_path, force)
     inputs = load_run_inputs(run, manifest)
     _refuse_plan_change(inputs, manifest, force)
     run_seed = int(seed if seed is not None else manifest.plan.get("seed", 1))
-    clock = clock or resume_clock(inputs, last_clock_time(run, manifest))
+    first_open = next((s.id for s in inputs.plan.steps if s.id not in completed), None)
+    began = interrupted_step_start(run, first_open)
+    clock = clock or resume_clock(inputs, began if began is not None
+                                  else last_clock_time(run, manifest) + 1.0)
     run.clock = clock
-    completed = journal.completed()
+    make_reserve(run_path)
     emit = run.events.emit
     emit("resume.start", completed=len(completed), total=len(inputs.plan.steps),
          previous_state=manifest.state, previous_cause=manifest.cause, forced=bool(force),
          changed_inputs=[dataclasses.asdict(c) for c in changes],
+         changed_files=[str(m) for m in mismatches], step_began_at=began,
          journal_warnings=list(journal.warnings))
     aside = run.set_aside_partials()
+    temporary = set_aside_temporary_files(run_path, clock=clock, events=run.events)
     note = (f"{len(completed)} of {len(inputs.plan.steps)} steps done; "
             f"{len(aside)} unfinished capture(s) set aside"
-            + ("; forced past: " + ", ".join(c.role for c in changes) if changes else ""))
-    manifest.resumed(run_path, clock, note=note, wall=wall)
+            + ("; leftover temporary files set aside" if temporary else "")
+            + ("; forced past: " + ", ".join(c.role for c in changes) if changes else "")
+            + ("; forced past changed files: " + ", ".join(m.path for m in mismatches)
+               if mismatches else ""))
+    manifest.resumed(run_path, clock, note=note,
+                     accepted_changes=[str(m) for m in mismatches], wall=wall)
     if hasattr(console, "clock"):
         console.clock = clock  # the screen shows the run's (simulated) time, labelled so
     remaining_s = sum(s for step_id, s in inputs.estimate.per_step if step_id not in completed)
-    with console as live:
-        for warning in journal.warnings:
-            live.log("warning", warning)
-        for change in changes:
-            live.log("warning", f"--force: {change.role} file {change.source}: {change.problem}")
-        live.log("info", f"resuming: {note}")
-        live.start(len(inputs.plan.steps), remaining_s, **console_plan(inputs, completed))
-        outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
-                          fault_plan=fault_plan, manifest=manifest,
-                          expected_identities=None if force else first_identities(run))
-    run.close()
-    manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock, wall=wall)
+    with final_state_guard(run, manifest, clock):
+        with console as live:
+            for warning in journal.warnings:
+                live.log("warning", warning)
+            for change in changes:
+                live.log("warning", f"--force: {change.role} file {change.source}: "
+                         f"{change.problem}")
+            for mismatch in mismatches:
+                live.log("warning", f"--force: {mismatch}")
+            live.log("info", f"resuming: {note}")
+            live.start(len(inputs.plan.steps), remaining_s, **console_plan(inputs, completed))
+            outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
+                              fault_plan=fault_plan, manifest=manifest,
+                              expected_identities=None if force else first_identities(run))
+    close_manifest(run, manifest, outcome.state, outcome.cause, clock, wall=wall)
     return outcome.state, outcome.cause, run_path
 
 
 __all__ = ["InputChange", "ResumeRefused", "check_sources", "last_clock_time",
-           "load_run_inputs", "resume_clock", "resume_run"]
+           "interrupted_step_start", "load_run_inputs", "resume_clock", "resume_run"]

@@ -31,6 +31,7 @@ from station.inputs.config import BUILTIN_DIR, StationConfig, load_station
 from station.engine.sequencer import PreflightFailed, RunOutcome, Sequencer
 from station.engine.steps import StepContext
 from station.engine.timing import timing_model
+from station.engine.prechecks import check_frame_format
 from station.inputs.uut_file import load_uut, spec_sources
 from station.analyses.spec_check import spec_findings
 from sequences.yamlsource import Problem, SourceError, SourceRef
@@ -101,7 +102,12 @@ def instrument_origins(station: StationConfig) -> tuple[list[str], list[str]]:
 
 
 def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
-    """The clock follows the instruments: any real one means real time (choose_clock)."""
+    """The clock follows the instruments: any real one means real time (choose_clock); a bench
+    served by `nightbench simulate` keeps its own simulated time."""
+    from station.engine.served import is_served, served_clock
+
+    if station.simulated and is_served(station):
+        return served_clock(station)
     sim, real = instrument_origins(station)
     return choose_clock(not real, realtime_speed)
 
@@ -122,6 +128,10 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Emit, console: 
                                   "resume with --force if the replacement is intended")
         bench.identities[role] = identity
         emit("preflight.identity", instrument=role, identity=identity)
+    try:  # the analysis reads frames with the UUT file's geometry: they must agree
+        check_frame_format(bench.camera.shape, inputs.uut, "the camera")
+    except ValueError as exc:
+        raise PreflightFailed(str(exc)) from None
     limits = inputs.station.limits
     for step in inputs.plan.steps:
         refusals = []
@@ -177,6 +187,9 @@ def execute(inputs: Inputs, run: RunFolder, clock: Clock, console: Console, *, s
         emit("log", level=level, text=text)
         console.log(level, text)
 
+    from station.engine.served import attach_time_keeper
+
+    attach_time_keeper(run, clock, inputs.plan, completed)
     with abort_on_signals(requests, notify=lambda m: log("warning", m)):
         try:
             with open_bench(inputs.station, clock, events=io_sink(run.events),
@@ -221,5 +234,13 @@ def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock,
     utc = dt.datetime.fromtimestamp(wall(), tz=dt.timezone.utc)
     run = RunFolder.create(Path(runs_root).resolve(), uut_serial=inputs.uut.serial,
                            recipe_name=inputs.plan.recipe, utc=utc, clock=clock)
-    run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path, recipe=inputs.recipe_path)
+    try:
+        run.copy_inputs(station=inputs.station.path, uut=inputs.uut_path,
+                        recipe=inputs.recipe_path)
+    except BaseException:  # nothing was run: leave no half-made folder behind
+        import shutil
+
+        run.release_writer_lock()
+        shutil.rmtree(run.path, ignore_errors=True)
+        raise
     return run

@@ -184,6 +184,9 @@ def run_capture(step: CaptureStep, ctx: StepContext) -> JournalData:
         if not ok:
             _wait_for_guard(ctx, step.id, value)
             continue
+        begin = getattr(ctx.bench.camera, "begin_capture", None)
+        if begin is not None:  # noise follows the capture, not a counter a restart resets
+            begin(step.id if attempts == 1 else f"{step.id}#retake{attempts}")
         writer = ctx.run.new_capture(
             step.id, step.name, step.keep, expected_count=count,
             extra={"group": step.group, "target": ctx.current_target,

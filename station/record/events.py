@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import difflib
+import errno
 import json
 import os
 import threading
@@ -28,7 +29,7 @@ from pathlib import Path
 from typing import Any
 
 from drivers.clock import Clock
-from station.record.atomic import dumps_json, fsync_dir
+from station.record.atomic import DiskFullError, dumps_json, free_bytes, fsync_dir
 
 RESERVED_KEYS = frozenset({"t", "utc", "type", "seq"})
 """Keys every event carries; `emit` refuses fields with these names."""
@@ -136,6 +137,8 @@ class EventLog:
         if new_file:
             fsync_dir(self.path.parent)
         self._since_sync = 0
+        self.broken: OSError | None = None  # set when a write failed: later events are lost
+        self.lost = 0
         if repaired:
             self.emit("log_repaired", dropped_bytes=len(repaired),
                       dropped_text=repaired[:200].decode("utf-8", "replace"),
@@ -164,12 +167,15 @@ class EventLog:
                 record.update({k: _lenient(v) for k, v in fields.items()})
                 line = dumps_json(record, indent=None) + "\n"
             self._seq += 1
-            self._fh.write(line.encode("utf-8"))
-            self._fh.flush()
-            self._since_sync += 1
-            if kind.value in self.sync_types or self._since_sync >= self.fsync_every:
-                os.fsync(self._fh.fileno())
-                self._since_sync = 0
+            if self.broken is None:
+                self._since_sync += 1
+                sync = kind.value in self.sync_types or self._since_sync >= self.fsync_every
+                try:
+                    self._write_line(line.encode("utf-8"), sync)
+                except OSError as exc:
+                    self._fail(exc, record)
+            else:
+                self.lost += 1
             for fn in list(self._subscribers):
                 try:
                     fn(record)
@@ -177,10 +183,29 @@ class EventLog:
                     self.subscriber_errors += 1
             return record
 
+    def _write_line(self, data: bytes, sync: bool) -> None:
+        self._fh.write(data)
+        self._fh.flush()
+        if sync:
+            os.fsync(self._fh.fileno())
+            self._since_sync = 0
+
+    def _fail(self, exc: OSError, record: dict[str, Any]) -> None:
+        """The log cannot be written (disk full, disk gone). Raise once, so the step in flight
+        faults and the run is safed; later events are counted in `lost`, not raised, so safing
+        and closing the run are never stopped by the log."""
+        self.broken = exc
+        self.lost += 1
+        if exc.errno in (errno.ENOSPC, errno.EDQUOT):
+            raise DiskFullError(self.path.parent, len(dumps_json(record, indent=None)),
+                                free_bytes(self.path.parent),
+                                f"writing the event log {self.path.name}") from exc
+        raise exc
+
     def sync(self) -> None:
         """Force everything written so far to the disk."""
         with self._lock:
-            if not self._fh.closed:
+            if not self._fh.closed and self.broken is None:
                 self._fh.flush()
                 os.fsync(self._fh.fileno())
                 self._since_sync = 0
@@ -202,11 +227,16 @@ class EventLog:
         return self._fh.closed
 
     def close(self) -> None:
-        """Sync and close. Safe to call twice."""
+        """Sync and close. Safe to call twice; a log that could not be written closes quietly."""
         with self._lock:
             if not self._fh.closed:
-                self.sync()
-                self._fh.close()
+                try:
+                    self.sync()
+                finally:
+                    try:
+                        self._fh.close()
+                    except OSError:
+                        pass
 
     def __enter__(self) -> EventLog:
         return self

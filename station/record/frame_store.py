@@ -313,6 +313,11 @@ class CaptureWriter:
         if data.ndim != 2:
             raise FrameStoreError(f"capture {self.name!r}: frame {frame.counter} has shape "
                                   f"{data.shape}; frames must be 2-D (rows, cols)")
+        if np.issubdtype(data.dtype, np.floating) and not np.isfinite(data).all():
+            bad = int(data.size - np.count_nonzero(np.isfinite(data)))
+            raise FrameStoreError(f"capture {self.name!r}: frame {frame.counter} holds {bad} NaN "
+                                  "or infinite pixel(s); a camera delivers finite counts, so the "
+                                  "grabber or its settings are at fault")
         if self.shape is None:
             self._first_frame(data)
         elif data.shape != self.shape:

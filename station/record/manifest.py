@@ -36,6 +36,9 @@ from station.record.events import utc_iso
 MANIFEST_NAME = "manifest.json"
 MANIFEST_FORMAT = "nightbench-manifest"
 RUNNING = "running"
+NOT_RECORDED = frozenset({"writer.lock", "space.reserve"})
+"""Files at the top of a run folder that are machinery, not record: the writer lock (see
+writer_lock.py) and the disk reserve for the closing manifest (see closing.py)."""
 
 
 class ManifestError(Exception):
@@ -105,13 +108,18 @@ class Manifest:
         return write_json_atomic(Path(run_path) / MANIFEST_NAME, self.to_dict())
 
     def resumed(self, run_path: Path | str, clock: Clock, note: str = "",
+                accepted_changes: list[str] | None = None,
                 wall: Callable[[], float] = time.time) -> Path:
-        """Mark the run running again after an interruption and write it."""
+        """Mark the run running again after an interruption and write it. `accepted_changes`
+        lists files found changed that the operator chose to go on with (--force)."""
         now = clock.now()
-        self.sessions.append({"started_utc": utc_iso(now), "started_clock": now,
-                              "pid": os.getpid(), "host": socket.gethostname(), "kind": "resume",
-                              "previous_state": self.state, "previous_cause": self.cause,
-                              "note": note, "wall_utc": utc_iso(wall())})
+        session: dict[str, Any] = {
+            "started_utc": utc_iso(now), "started_clock": now, "pid": os.getpid(),
+            "host": socket.gethostname(), "kind": "resume", "previous_state": self.state,
+            "previous_cause": self.cause, "note": note, "wall_utc": utc_iso(wall())}
+        if accepted_changes:
+            session["accepted_changed_files"] = list(accepted_changes)
+        self.sessions.append(session)
         self.state, self.cause, self.end_utc, self.end_clock = RUNNING, None, None, None
         self.wall_end_utc = None
         self.files = {}
@@ -160,7 +168,7 @@ def checksum_files(run_path: Path) -> dict[str, dict[str, Any]]:
         if not path.is_file():
             continue
         rel = path.relative_to(run_path).as_posix()
-        if rel == MANIFEST_NAME or path.name.endswith(TEMP_SUFFIX):
+        if rel == MANIFEST_NAME or rel in NOT_RECORDED or path.name.endswith(TEMP_SUFFIX):
             continue
         files[rel] = {"sha256": sha256_file(path), "bytes": path.stat().st_size}
     return files

@@ -30,10 +30,12 @@ from pathlib import Path
 from typing import Any
 
 from drivers.clock import Clock, RealClock
+from station.record.closing import make_reserve
 from station.record.atomic import fsync_dir, sha256_file, write_bytes_atomic, write_json_atomic
 from station.record.events import EventLog
 from station.record.frame_store import DEFAULT_MIN_FREE, CaptureWriter, Keep, move_partials_aside
 from station.record.journal import Journal
+from station.record.writer_lock import WriterLock
 
 MARKER_NAME = "run-folder.json"
 MARKER_FORMAT = "nightbench-run-folder"
@@ -78,6 +80,7 @@ class RunFolder:
         self._journal: Journal | None = None
         self.inputs: dict[str, dict[str, Any]] = {}
         self.registered: dict[str, dict[str, Any]] = {}
+        self.writer_lock: WriterLock | None = None
 
     # -- creating and opening --------------------------------------------------------------------
     @classmethod
@@ -95,13 +98,26 @@ class RunFolder:
                 break
             except FileExistsError:
                 n += 1
+        folder = cls(path, clock)
+        folder.writer_lock = WriterLock.acquire(path, "run")  # before anything else is written
+        make_reserve(path)
         for sub in SUBFOLDERS:
             (path / sub).mkdir()
         fsync_dir(root)
         write_json_atomic(path / MARKER_NAME, {
             "format": MARKER_FORMAT, "version": 1, "uut_serial": uut_serial,
             "recipe_name": recipe_name, "created_utc": _utc_text(utc)})
-        return cls(path, clock)
+        return folder
+
+    def take_writer_lock(self, purpose: str) -> WriterLock:
+        """Become the only writer of this folder (raises RunFolderBusy naming the holder)."""
+        if self.writer_lock is None or not self.writer_lock.held:
+            self.writer_lock = WriterLock.acquire(self.path, purpose)
+        return self.writer_lock
+
+    def release_writer_lock(self) -> None:
+        if self.writer_lock is not None:
+            self.writer_lock.release()
 
     @classmethod
     def open(cls, path: Path | str, clock: Clock | None = None) -> RunFolder:
@@ -260,4 +276,39 @@ def is_run_folder(path: Path | str) -> bool:
     return (Path(path) / MARKER_NAME).is_file()
 
 
-__all__ = ["RunFolder", "RunFolderError", "folder_name", "is_run_folder", "sanitise"]
+def enclosing_run_folder(path: Path | str) -> Path | None:
+    """The run folder that `path` is (or lies inside), if any."""
+    resolved = Path(path).resolve()
+    for candidate in (resolved, *resolved.parents):
+        if is_run_folder(candidate):
+            return candidate
+    return None
+
+
+def refuse_inside_run_folder(path: Path | str, option: str = "--out") -> None:
+    """Results written by hand never land in a run folder: its results are its record (the
+    manifest's checksums cover them) and only the run or a re-analysis version may add to it."""
+    run = enclosing_run_folder(path)
+    if run is not None:
+        raise RunFolderError(f"{option} {path}: is inside the run folder {run}; a run folder's "
+                             "results are part of its record and are never overwritten. Give a "
+                             "folder outside it (or leave the option out to write a new results "
+                             "version of that run).")
+
+
+def refuse_unfinished_run(path: Path | str) -> None:
+    """Re-analysis reads a run that ended; one still `running` was interrupted (or is live)."""
+    manifest = Path(path) / "manifest.json"
+    try:
+        state = json.loads(manifest.read_text(encoding="utf-8")).get("state")
+    except (OSError, ValueError, AttributeError):
+        raise RunFolderError(f"{manifest}: missing or unreadable; run `nightbench verify "
+                             f"{path}` to see what the folder holds") from None
+    if state == "running":
+        raise RunFolderError(f"{path}: the run did not finish (its manifest says running): it "
+                             "was interrupted or is still going. Resume it (`nightbench resume "
+                             f"{path}`) and analyse it when it has ended.")
+
+
+__all__ = ["RunFolder", "RunFolderError", "enclosing_run_folder", "folder_name",
+           "is_run_folder", "refuse_inside_run_folder", "refuse_unfinished_run", "sanitise"]

@@ -25,7 +25,8 @@ from station.record.events import scan_events
 from station.record.frame_store import (ABANDONED, CAPTURE_FORMAT, META_SUFFIX, capture_files,
                                  partial_files, capture_stem)
 from station.record.journal import Journal, JournalError
-from station.record.manifest import MANIFEST_NAME, RUNNING, ManifestError, load_manifest
+from station.record.manifest import (MANIFEST_NAME, NOT_RECORDED, RUNNING, ManifestError,
+                                     load_manifest)
 from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
 
 
@@ -138,7 +139,7 @@ def _check_manifest(root: Path, report: VerifyReport) -> None:
             report.altered.append(f"{rel} (checksum differs{detail})")
     for file in sorted(p for p in root.rglob("*") if p.is_file()):
         rel = file.relative_to(root).as_posix()
-        if rel == MANIFEST_NAME or rel in listed:
+        if rel == MANIFEST_NAME or rel in listed or rel in NOT_RECORDED:
             continue
         if rel.startswith(REANALYSIS_PREFIX):  # written after the run by `nightbench analyze`
             version = rel.split("/")[1] if rel.count("/") > 1 else ""
@@ -194,6 +195,11 @@ def _check_captures(root: Path, report: VerifyReport) -> None:
                 report.capture_problems.append(f"capture {meta.get('name')!r}: {role} file "
                                                f"missing ({info.get('file')})")
                 continue
+            recorded = info.get("sha256") if isinstance(info, dict) else None
+            if recorded and sha256_file(file) != recorded:
+                report.capture_problems.append(
+                    f"capture {meta.get('name')!r}: {role} file {file.name} does not match the "
+                    "checksum in its metadata (changed after it was captured)")
             if role == "stack":
                 pages = _pages(file)
                 if pages != meta.get("count"):

@@ -33,7 +33,7 @@ def test_create_makes_the_layout_and_never_reuses_a_folder(tmp_path: Path) -> No
     assert one.path.name == "20260101T180509Z_SN-0042_sitf-sweep"
     assert two.path.name == "20260101T180509Z_SN-0042_sitf-sweep-2"
     assert sorted(p.name for p in one.path.iterdir()) == [
-        "frames", "inputs", "plots", "results", "run-folder.json"]
+        "frames", "inputs", "plots", "results", "run-folder.json", "space.reserve", "writer.lock"]
     assert is_run_folder(one.path) and one.results_dir.is_dir() and one.plots_dir.is_dir()
 
 
