@@ -81,6 +81,11 @@ class Event(str, Enum):
     TRANSPORT_RECONNECT = ("transport.reconnect", True)
     TRANSPORT_RECONNECT_FAILED = ("transport.reconnect_failed", True)
     TRANSPORT_GIVE_UP = ("transport.give_up", True)
+    OPERATOR_REQUEST = ("operator.request", True)    # pause/continue/abort asked from a monitor
+    NOTIFY_SENT = ("notify.sent", False)
+    NOTIFY_FAILED = ("notify.failed", True)
+    SIMULATION_REWOUND = ("simulation.rewound", True)          # served bench back to a step start
+    SIMULATION_NOT_REWOUND = ("simulation.not_rewound", True)
 
 
 def event_type(name: "Event | str") -> Event:
