@@ -8,6 +8,11 @@
     nightbench analyze distortion RUN_FOLDER | --frame TIFF --geometry FILE [--out DIR]
     nightbench resume RUN_FOLDER [--force]
     nightbench verify RUN_FOLDER
+    nightbench report RUN_FOLDER [--pdf]   write the run's report.html (and report.pdf)
+    nightbench index RUNS_DIR              record every finished run in the history (idempotent)
+    nightbench runs [filters] [--csv]      list recorded runs
+    nightbench trend FIGURE [filters]      one figure over time or across serials, with a chart
+    nightbench compare RUN_A RUN_B         two runs figure by figure, with significance
 
 Every bad input ends in a message naming the file and line and what to do, and an exit code from
 station/cli/exitcodes.py, never a bare traceback.
@@ -93,7 +98,39 @@ def build_parser() -> argparse.ArgumentParser:
 
     verify = sub.add_parser("verify", help="check a run folder's files against its manifest")
     verify.add_argument("run_folder", type=Path)
+    _history_commands(sub)
     return parser
+
+
+def _history_commands(sub: Any) -> None:
+    """report, index, runs, trend, compare: the run's report and the history's questions."""
+    from station.history.options import add_database_options, add_filter_options
+
+    report = sub.add_parser("report", help="write a run folder's report.html")
+    report.add_argument("run_folder", type=Path)
+    report.add_argument("--out", type=Path, default=None, help="HTML file (default: in the run)")
+    report.add_argument("--pdf", action="store_true", help="also write report.pdf ([pdf] extra)")
+    index = sub.add_parser("index", help="record every finished run of a folder in the history")
+    index.add_argument("runs_dir", type=Path)
+    index.add_argument("--db", default=None, metavar="URL", help="history database URL")
+    index.add_argument("--station", type=Path, default=None, help="station file naming it")
+    runs = sub.add_parser("runs", help="list and filter the recorded runs")
+    add_database_options(runs)
+    add_filter_options(runs)
+    runs.add_argument("--limit", type=int, default=None)
+    runs.add_argument("--csv", action="store_true", help="CSV on standard output")
+    trend = sub.add_parser("trend", help="one figure over time or across serials")
+    trend.add_argument("figure", help="a figure name, e.g. netd_mk or distortion.efl_mm")
+    add_database_options(trend)
+    add_filter_options(trend)
+    trend.add_argument("--by", choices=["time", "serial"], default="time")
+    trend.add_argument("--plot", type=Path, default=None, help="PNG file for the chart")
+    trend.add_argument("--csv", action="store_true")
+    compare = sub.add_parser("compare", help="two runs figure by figure")
+    compare.add_argument("run_a", help="run folder or recorded run id")
+    compare.add_argument("run_b")
+    add_database_options(compare)
+    compare.add_argument("--csv", action="store_true")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -105,7 +142,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         "run": commands.cmd_run, "check": commands.cmd_check, "recipes": commands.cmd_recipes,
         "bench": commands.cmd_bench, "drivers": commands.cmd_drivers,
         "analyze": commands.cmd_analyze, "resume": commands.cmd_resume,
-        "verify": commands.cmd_verify,
+        "verify": commands.cmd_verify, "report": commands.cmd_report,
+        "index": commands.cmd_index, "runs": commands.cmd_runs, "trend": commands.cmd_trend,
+        "compare": commands.cmd_compare,
     }
     try:
         if hasattr(args, "overrides"):
@@ -119,9 +158,19 @@ def main(argv: Sequence[str] | None = None) -> int:
     except (FileNotFoundError, ValueError) as exc:
         console.print(f"[bold red]Input problem:[/] {exc}", highlight=False)
         return exitcodes.INVALID
+    except _history_errors() as exc:
+        console.print(f"[bold red]History problem:[/] {exc}", highlight=False)
+        return exitcodes.INVALID
     except KeyboardInterrupt:
         console.print("interrupted")
         return exitcodes.ABORTED
+
+
+def _history_errors() -> tuple[type[Exception], ...]:
+    from station.history.db import HistoryError
+    from station.report.runread import NotARunFolder
+
+    return (HistoryError, NotARunFolder)
 
 
 if __name__ == "__main__":

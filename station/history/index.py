@@ -22,7 +22,7 @@ from station.history.models import FigureRow, Run, VerdictEntry
 from station.report.runread import NotARunFolder, RunRecord, read_run
 from station.report.verdict_rows import count_by_status
 
-PENDING_NAME = "history-pending.json"
+from station.report.finish import PENDING_NAME
 
 
 @dataclass

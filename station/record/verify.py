@@ -28,6 +28,10 @@ from station.record.journal import Journal, JournalError
 from station.record.manifest import MANIFEST_NAME, RUNNING, ManifestError, load_manifest
 from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
 
+DERIVED_AFTER_CLOSE = frozenset({"report.html", "report.pdf", "history-pending.json"})
+"""Written from the closed record after the manifest (the report, a history still to catch up):
+not part of the record, so not checksummed."""
+
 
 @dataclass
 class VerifyReport:
@@ -138,7 +142,7 @@ def _check_manifest(root: Path, report: VerifyReport) -> None:
             report.altered.append(f"{rel} (checksum differs{detail})")
     for file in sorted(p for p in root.rglob("*") if p.is_file()):
         rel = file.relative_to(root).as_posix()
-        if rel == MANIFEST_NAME or rel in listed:
+        if rel == MANIFEST_NAME or rel in listed or rel in DERIVED_AFTER_CLOSE:
             continue
         if file.name.endswith(TEMP_SUFFIX):
             report.temporary.append(rel)
