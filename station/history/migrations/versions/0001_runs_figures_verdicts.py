@@ -65,7 +65,7 @@ def upgrade() -> None:
         sa.Column("sense", sa.String(8), nullable=False, server_default="max"),
         sa.Column("margin", sa.Float, nullable=True),
         sa.Column("status", sa.String(12), nullable=False),
-        sa.Column("conditions", sa.JSON, nullable=True),
+        sa.Column("conditions", sa.JSON, nullable=False),
     )
     op.create_index("ix_verdicts_key_run", "verdicts", ["key", "run_id"])
 
