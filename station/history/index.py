@@ -16,13 +16,16 @@ from pathlib import Path
 from typing import Any
 
 from sqlalchemy import Engine, delete, insert, select
+from sqlalchemy.exc import OperationalError
 from sqlalchemy.dialects import postgresql, sqlite
 
 from station.history.models import FigureRow, Run, VerdictEntry
-from station.report.runread import NotARunFolder, RunRecord, read_run
+from station.report.runread import PENDING_NAME, NotARunFolder, RunRecord, read_run
 from station.report.verdict_rows import count_by_status
 
-from station.report.finish import PENDING_NAME
+
+BATCH = 100
+RETRIES = 3
 
 
 @dataclass
@@ -70,29 +73,65 @@ def _children(run_pk: int, record: RunRecord) -> tuple[list[dict[str, Any]],
 
 def record_run(engine: Engine, record: RunRecord) -> bool:
     """Record one run; True when it was new (False: already recorded, nothing changed)."""
+    return bool(record_runs(engine, [record]))
+
+
+def record_runs(engine: Engine, records: list[RunRecord]) -> int:
+    """Record a batch of runs in one transaction; returns how many were new.
+
+    Rows go in sorted by run_uid, so concurrent batches lock unique keys in the same order and
+    cannot deadlock; a transaction that still loses a race (a deadlock or serialisation error
+    reported by the server) is retried.
+    """
+    by_uid = {r.run_uid: r for r in records}
+    for attempt in range(RETRIES):
+        try:
+            with engine.begin() as conn:
+                return _record_batch(conn, engine, [by_uid[u] for u in sorted(by_uid)])
+        except OperationalError:
+            if attempt == RETRIES - 1:
+                raise
+    return 0
+
+
+def _record_batch(conn: Any, engine: Engine, records: list[RunRecord]) -> int:
+    if not records:
+        return 0
     ins = _insert_for(engine)
-    values = run_values(record)
-    with engine.begin() as conn:
-        stmt = (ins(Run).values(**values).on_conflict_do_nothing(index_elements=["run_uid"])
-                .returning(Run.id))
-        run_pk = conn.execute(stmt).scalar()
-        if run_pk is None:
-            row = conn.execute(select(Run.id, Run.ended_at, Run.state)
-                               .where(Run.run_uid == record.run_uid)).one()
-            if (row.ended_at, row.state) == (values["ended_at"], values["state"]):
-                return False
-            conn.execute(delete(FigureRow).where(FigureRow.run_id == row.id))
-            conn.execute(delete(VerdictEntry).where(VerdictEntry.run_id == row.id))
-            conn.execute(delete(Run).where(Run.id == row.id))
-            run_pk = conn.execute(stmt).scalar()
-            if run_pk is None:  # another process replaced it in the meantime
-                return False
-        figures, verdicts = _children(run_pk, record)
-        if figures:
-            conn.execute(insert(FigureRow), figures)
-        if verdicts:
-            conn.execute(insert(VerdictEntry), verdicts)
-    return True
+    values = [run_values(r) for r in records]
+    stmt = ins(Run).on_conflict_do_nothing(index_elements=["run_uid"]).returning(
+        Run.id, Run.run_uid)
+    new = {uid: pk for pk, uid in conn.execute(stmt.values(values)).all()}
+    stale = _changed_since_recorded(conn, [v for v in values if v["run_uid"] not in new])
+    if stale:
+        ids = list(stale.values())
+        conn.execute(delete(FigureRow).where(FigureRow.run_id.in_(ids)))
+        conn.execute(delete(VerdictEntry).where(VerdictEntry.run_id.in_(ids)))
+        conn.execute(delete(Run).where(Run.id.in_(ids)))
+        again = [v for v in values if v["run_uid"] in stale]
+        new.update({uid: pk for pk, uid in conn.execute(stmt.values(again)).all()})
+    figures: list[dict[str, Any]] = []
+    verdicts: list[dict[str, Any]] = []
+    for record in records:
+        if record.run_uid in new:
+            f, v = _children(new[record.run_uid], record)
+            figures += f
+            verdicts += v
+    if figures:
+        conn.execute(insert(FigureRow), figures)
+    if verdicts:
+        conn.execute(insert(VerdictEntry), verdicts)
+    return len(new)
+
+
+def _changed_since_recorded(conn: Any, values: list[dict[str, Any]]) -> dict[str, int]:
+    """Runs already recorded whose end differs now (resumed since): {run_uid: row id}."""
+    if not values:
+        return {}
+    wanted = {v["run_uid"]: (v["ended_at"], v["state"]) for v in values}
+    rows = conn.execute(select(Run.id, Run.run_uid, Run.ended_at, Run.state)
+                        .where(Run.run_uid.in_(list(wanted)))).all()
+    return {r.run_uid: r.id for r in rows if (r.ended_at, r.state) != wanted[r.run_uid]}
 
 
 def run_folders(root: Path | str) -> Iterator[Path]:
@@ -105,10 +144,20 @@ def run_folders(root: Path | str) -> Iterator[Path]:
         yield manifest.parent
 
 
-def index_runs(engine: Engine, folders: Iterable[Path]) -> IndexSummary:
-    """Record every finished run among ``folders``; a folder that cannot be read is named in
-    the summary and skipped, never stops the pass."""
+def index_runs(engine: Engine, folders: Iterable[Path], batch: int = BATCH) -> IndexSummary:
+    """Record every finished run among ``folders``, ``batch`` runs per transaction; a folder
+    that cannot be read is named in the summary and skipped, never stops the pass."""
     summary = IndexSummary()
+    pending: list[RunRecord] = []
+
+    def flush() -> None:
+        added = record_runs(engine, pending)
+        summary.added += added
+        summary.already += len({r.run_uid for r in pending}) - added
+        for record in pending:
+            (record.path / PENDING_NAME).unlink(missing_ok=True)
+        pending.clear()
+
     for folder in folders:
         try:
             record = read_run(folder)
@@ -118,9 +167,8 @@ def index_runs(engine: Engine, folders: Iterable[Path]) -> IndexSummary:
         if not record.finished:
             summary.unfinished += 1
             continue
-        if record_run(engine, record):
-            summary.added += 1
-        else:
-            summary.already += 1
-        (Path(folder) / PENDING_NAME).unlink(missing_ok=True)
+        pending.append(record)
+        if len(pending) >= batch:
+            flush()
+    flush()
     return summary

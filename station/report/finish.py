@@ -13,8 +13,7 @@ import json
 from pathlib import Path
 
 from station.report.render import write_report
-
-PENDING_NAME = "history-pending.json"
+from station.report.runread import PENDING_NAME
 
 
 def _station_copy(run: Path) -> Path | None:

@@ -19,6 +19,9 @@ import yaml
 
 from station.report.verdict_rows import RunVerdicts, read_verdicts, unit_of
 
+PENDING_NAME = "history-pending.json"
+"""Left in a run folder whose history record failed; `nightbench index` records it and removes it."""
+_YAML_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)  # the C loader when built: faster
 SKIP_FIGURES = {"schema_version", "passed", "coverage_k", "version", "nominal", "thresholds"}
 
 
@@ -118,7 +121,7 @@ def load_uut(run: Path, manifest: Mapping[str, Any]) -> dict[str, Any]:
     if not rel or not (run / rel).is_file():
         return {}
     try:
-        data = yaml.safe_load((run / rel).read_text(encoding="utf-8"))
+        data = yaml.load((run / rel).read_text(encoding="utf-8"), Loader=_YAML_LOADER)
     except (OSError, yaml.YAMLError):
         return {}
     return data if isinstance(data, dict) else {}
