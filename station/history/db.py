@@ -70,11 +70,21 @@ def safe_url(url: str) -> str:
 
 
 def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
+    # SQLAlchemy's documented recipe for real SQLite transactions: the driver must not open
+    # them itself (so DDL is transactional and the migration atomic) ...
+    dbapi_connection.isolation_level = None
     cur = dbapi_connection.cursor()
     cur.execute("PRAGMA foreign_keys=ON")
     cur.execute("PRAGMA journal_mode=WAL")
     cur.execute("PRAGMA busy_timeout=30000")
     cur.close()
+
+
+def _sqlite_begin(conn: Any) -> None:
+    # ... and each transaction takes the write lock at its start, so concurrent writers
+    # (several runs ending at once, a first migration) queue on busy_timeout instead of
+    # failing when a read lock cannot be upgraded.
+    conn.exec_driver_sql("BEGIN IMMEDIATE")
 
 
 def open_engine(url: str, *, migrate_schema: bool = True) -> Engine:
@@ -90,6 +100,7 @@ def open_engine(url: str, *, migrate_schema: bool = True) -> Engine:
             Path(parsed.database).parent.mkdir(parents=True, exist_ok=True)
         engine = create_engine(url, connect_args={"timeout": 30})
         event.listen(engine, "connect", _sqlite_pragmas)
+        event.listen(engine, "begin", _sqlite_begin)
     else:
         engine = create_engine(url, pool_pre_ping=True)
     if migrate_schema:
