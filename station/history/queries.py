@@ -52,7 +52,7 @@ def list_runs(engine: Engine, filt: RunFilter = RunFilter(), limit: int | None =
         return [dict(r._mapping) for r in conn.execute(stmt)]
 
 
-@dataclass
+@dataclass(slots=True)
 class TrendPoint:
     started_at: dt.datetime | None
     serial: str
@@ -86,7 +86,7 @@ def trend(engine: Engine, figure: str, filt: RunFilter = RunFilter(), by: str = 
         limit_row = conn.execute(
             select(VerdictEntry.limit, VerdictEntry.sense).where(
                 VerdictEntry.key == figure.rsplit(".", 1)[-1]).order_by(
-                VerdictEntry.id.desc()).limit(1)).first()
+                VerdictEntry.run_id.desc()).limit(1)).first()  # the newest: index (key, run_id)
     points = [TrendPoint(r.started_at, r.uut_serial, r.run_uid, r.value, r.sigma) for r in rows]
     if by == "serial":
         latest: dict[str, TrendPoint] = {}
