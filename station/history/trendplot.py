@@ -14,7 +14,7 @@ def plot_trend(t: Trend, out: Path) -> Path:
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(8, 3.6), dpi=110)
+    fig = Figure(figsize=(9.5, 3.6), dpi=110)
     ax = fig.subplots()
     xs = list(range(len(t.points)))
     ys = [p.value for p in t.points]
@@ -41,7 +41,7 @@ def plot_trend(t: Trend, out: Path) -> Path:
     ax.set_ylabel(f"{t.figure} ({t.unit})" if t.unit else t.figure, fontsize=8)
     ax.set_title(f"{t.figure} {'across serials' if t.by == 'serial' else 'over time'}",
                  fontsize=9)
-    ax.legend(fontsize=7, loc="best")
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     ax.grid(alpha=0.3)
     fig.tight_layout()
     fig.savefig(out)
