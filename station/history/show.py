@@ -19,7 +19,6 @@ from rich.console import Console
 from station.history.db import open_engine, resolve_url, safe_url
 from station.history.queries import (RUN_COLUMNS, RunFilter, compare_runs, figure_names,
                                      list_runs, trend)
-from station.history.options import add_database_options, add_filter_options  # noqa: F401
 from station.report.render import format_number
 
 

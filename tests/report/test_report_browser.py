@@ -16,8 +16,8 @@ from pathlib import Path
 import pytest
 
 from station.report.runread import read_run
-from tests.report.conftest import ARTIFACTS
 
+ARTIFACTS = Path(__file__).resolve().parents[1] / "artifacts"  # ignored by git
 A4_PT = (595.28, 841.89)
 LETTER_PT = (612.0, 792.0)
 A4_PRINTABLE_PX = round((210 - 24) / 25.4 * 96)  # width inside the 12 mm side margins at 96 dpi
@@ -52,6 +52,10 @@ def test_report_in_a_real_browser(browser, all_runs, name: str) -> None:
             assert statuses == [v.status for v in record.verdicts.rows]
         else:
             assert page.locator("#no-verdicts").is_visible()
+        # the page's own stylesheet applied (the badge is coloured, the text is sans-serif)
+        style = page.evaluate("[getComputedStyle(document.querySelector('#overall'))"
+                              ".backgroundColor, getComputedStyle(document.body).fontFamily]")
+        assert style[0] not in ("rgba(0, 0, 0, 0)", "transparent") and "Sans" in style[1], style
         assert page.locator("#overall").inner_text() in ("PASSED", "FAILED", "NOT JUDGED",
                                                          "INCOMPLETE")
         if record.state != "complete":

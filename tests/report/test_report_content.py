@@ -10,6 +10,7 @@ from __future__ import annotations
 import base64
 import hashlib
 import re
+import zlib
 from pathlib import Path
 
 import pytest
@@ -80,3 +81,28 @@ def test_report_is_rendered_the_same_from_the_folder_again(all_runs) -> None:
     run = all_runs["distortion-grid"]
     strip = lambda h: re.sub(r"Report generated [^<]*", "", h)  # noqa: E731
     assert strip(render_html(run)) == strip(html_of(run))
+
+
+def test_pdf_from_the_optional_extra(all_runs, tmp_path) -> None:
+    """`nightbench report RUN --pdf` (WeasyPrint): a PDF of A4 pages by default (ISO 216:
+    210 x 297 mm = 595.3 x 841.9 pt)."""
+    pytest.importorskip("weasyprint", reason="the optional pdf extra is not installed")
+    from station.cli.main import main
+
+    run = all_runs["distortion-grid"]
+    assert main(["report", str(run), "--out", str(tmp_path / "r.html"), "--pdf"]) == 0
+    pdf = (tmp_path / "r.pdf").read_bytes()
+    assert pdf.startswith(b"%PDF-")
+    # page dictionaries may sit in compressed object streams (PDF 1.5+, Flate = zlib)
+    text = pdf + b"".join(_inflate(m) for m in re.findall(rb"stream\r?\n(.*?)endstream", pdf,
+                                                          re.S))
+    boxes = re.findall(rb"/MediaBox\s*\[\s*0\s+0\s+([\d.]+)\s+([\d.]+)\s*\]", text)
+    assert boxes and all(abs(float(w) - 595.28) < 1 and abs(float(h) - 841.89) < 1
+                         for w, h in boxes)
+
+
+def _inflate(data: bytes) -> bytes:
+    try:
+        return zlib.decompress(data)
+    except zlib.error:
+        return b""
