@@ -124,6 +124,9 @@ def _pm(value: float, sigma: float | None) -> str:
 def run_index(args: argparse.Namespace, console: Console) -> int:
     from station.history.index import index_runs, run_folders
 
+    if not args.runs_dir.is_dir():
+        raise FileNotFoundError(f"{args.runs_dir}: no such folder; give the folder that holds "
+                                "the run folders (e.g. runs/)")
     url = resolve_url(explicit=args.db, station_file=args.station, runs_dir=args.runs_dir)
     summary = index_runs(open_engine(url), run_folders(args.runs_dir))
     for problem in summary.problems:
