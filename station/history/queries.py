@@ -78,22 +78,24 @@ def trend(engine: Engine, figure: str, filt: RunFilter = RunFilter(), by: str = 
     """One figure over time (every run, oldest first) or across serials (the latest run of each
     serial, in serial order), with its control chart and the spec limit when one judged it."""
     stmt = filt.apply(
-        select(Run.started_at, Run.uut_serial, Run.run_uid, FigureRow.value, FigureRow.sigma,
-               FigureRow.unit).join(FigureRow, FigureRow.run_id == Run.id)
+        select(Run.started_at, Run.uut_serial, Run.run_uid, FigureRow.value, FigureRow.sigma
+               ).join(FigureRow, FigureRow.run_id == Run.id)
         .where(FigureRow.name == figure)).order_by(Run.started_at, Run.id)
     with engine.connect() as conn:
-        rows = conn.execute(stmt).all()
+        rows = conn.execute(stmt)
+        points = [TrendPoint(*r) for r in rows]  # rows unpack as tuples: fast for 100,000
+        unit = conn.execute(select(FigureRow.unit).where(FigureRow.name == figure).limit(1)
+                            ).scalar() or ""
         limit_row = conn.execute(
             select(VerdictEntry.limit, VerdictEntry.sense).where(
                 VerdictEntry.key == figure.rsplit(".", 1)[-1]).order_by(
                 VerdictEntry.run_id.desc()).limit(1)).first()  # the newest: index (key, run_id)
-    points = [TrendPoint(r.started_at, r.uut_serial, r.run_uid, r.value, r.sigma) for r in rows]
     if by == "serial":
         latest: dict[str, TrendPoint] = {}
         for p in points:
             latest[p.serial] = p
         points = [latest[s] for s in sorted(latest)]
-    out = Trend(figure, rows[0].unit if rows else "", by, points,
+    out = Trend(figure, unit, by, points,
                 limit=limit_row.limit if limit_row else None,
                 sense=limit_row.sense if limit_row else None)
     if points:
