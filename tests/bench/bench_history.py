@@ -46,7 +46,7 @@ def fill(engine, n_runs: int) -> float:
         ids = range(base + 1, min(base + CHUNK, n_runs) + 1)
         runs, figures, verdicts = [], [], []
         for i in ids:
-            serial = f"OW-{i % 100:04d}"
+            serial = f"DEMO-{i % 100:04d}"
             started = start + dt.timedelta(minutes=20 * i)
             netd = rng.gauss(44.0, 1.0)
             runs.append({"id": i, "run_uid": f"bench-{i}", "folder": f"/runs/bench-{i}",
@@ -92,7 +92,7 @@ def time_indexing(url: str, folders: Path) -> tuple[float, int]:
 
 def make_folders(root: Path, n: int) -> Path:
     for i in range(n):
-        make_run(root, serial=f"OW-{i % 97:04d}", start=dt.datetime(2026, 1, 1)
+        make_run(root, serial=f"DEMO-{i % 97:04d}", start=dt.datetime(2026, 1, 1)
                  + dt.timedelta(minutes=17 * i), netd_mk=40.0 + (i % 11), gathered=i % 2 == 0,
                  pid=i)
     return root

@@ -13,7 +13,7 @@ from pathlib import Path
 
 from analysis.verdicts import judge, overall
 
-MODEL = "Owlet LW640"
+MODEL = "nightbench demo imager LW-640"
 NETD_LIMIT_MK = 50.0
 
 

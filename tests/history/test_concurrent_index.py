@@ -30,7 +30,7 @@ REPO = Path(__file__).resolve().parents[2]
 def test_eight_processes_record_each_of_1000_runs_exactly_once(pg_server, tmp_path) -> None:
     start = dt.datetime(2026, 1, 1)
     for i in range(RUNS):
-        make_run(tmp_path / "runs", serial=f"OW-{i % 97:04d}",
+        make_run(tmp_path / "runs", serial=f"DEMO-{i % 97:04d}",
                  start=start + dt.timedelta(minutes=17 * i), netd_mk=40.0 + (i % 11),
                  gathered=i % 2 == 0, pid=i)
     url = pg_server.create_database("concurrent")

@@ -41,7 +41,7 @@ def test_migrations_bring_the_schema_to_the_models(history_url: str) -> None:
 
 def test_each_run_recorded_once_and_reindexing_is_a_no_op(history_url: str, tmp_path) -> None:
     for i in range(6):
-        make_run(tmp_path / "runs", serial=f"OW-{i:04d}", start=T0 + dt.timedelta(days=i),
+        make_run(tmp_path / "runs", serial=f"DEMO-{i:04d}", start=T0 + dt.timedelta(days=i),
                  netd_mk=44.0 + i, gathered=i % 2 == 0, pid=100 + i)
     engine = open_engine(history_url)
     first = index_runs(engine, run_folders(tmp_path / "runs"))
@@ -59,14 +59,14 @@ def test_each_run_recorded_once_and_reindexing_is_a_no_op(history_url: str, tmp_
 
 def test_list_and_filter_runs(history_url: str, tmp_path) -> None:
     for i, netd in enumerate([45.0, 53.0, 46.0, 55.0]):
-        make_run(tmp_path / "runs", serial=f"OW-{i % 2}", start=T0 + dt.timedelta(days=i),
+        make_run(tmp_path / "runs", serial=f"DEMO-{i % 2}", start=T0 + dt.timedelta(days=i),
                  netd_mk=netd, pid=i)
     engine = open_engine(history_url)
     index_runs(engine, run_folders(tmp_path / "runs"))
     assert len(list_runs(engine)) == 4
     failed = list_runs(engine, RunFilter(outcome="FAILED"))
-    assert sorted(r["uut_serial"] for r in failed) == ["OW-1", "OW-1"]
-    assert [r["started_at"] for r in list_runs(engine, RunFilter(serial="OW-0"))] == [
+    assert sorted(r["uut_serial"] for r in failed) == ["DEMO-1", "DEMO-1"]
+    assert [r["started_at"] for r in list_runs(engine, RunFilter(serial="DEMO-0"))] == [
         T0 + dt.timedelta(days=2), T0]  # newest first
     window = RunFilter(since=T0 + dt.timedelta(days=1), until=T0 + dt.timedelta(days=3))
     assert len(list_runs(engine, window)) == 2
@@ -77,11 +77,11 @@ def test_trend_is_an_individuals_chart_with_the_spec_limit(history_url: str, tmp
     values = list(np.round(rng.normal(44.0, 0.4, 24), 4))
     values[17] = 49.0  # one unit far outside the population
     for i, v in enumerate(values):
-        make_run(tmp_path / "runs", serial=f"OW-{i:04d}", start=T0 + dt.timedelta(hours=i),
+        make_run(tmp_path / "runs", serial=f"DEMO-{i:04d}", start=T0 + dt.timedelta(hours=i),
                  netd_mk=float(v), pid=i)
     engine = open_engine(history_url)
     index_runs(engine, run_folders(tmp_path / "runs"))
-    t = trend(engine, "netd_mk", RunFilter(model="Owlet LW640"))
+    t = trend(engine, "netd_mk", RunFilter(model="nightbench demo imager LW-640"))
     got = [p.value for p in t.points]
     assert got == pytest.approx(values)  # oldest first
     x = np.array(values)
@@ -92,14 +92,14 @@ def test_trend_is_an_individuals_chart_with_the_spec_limit(history_url: str, tmp
     assert [i for i, p in enumerate(t.points) if p.outlier] == [17]
     assert (t.limit, t.sense, t.unit) == (NETD_LIMIT_MK, "max", "mK")
     by_serial = trend(engine, "netd_mk", by="serial")
-    assert [p.serial for p in by_serial.points] == sorted(f"OW-{i:04d}" for i in range(24))
+    assert [p.serial for p in by_serial.points] == sorted(f"DEMO-{i:04d}" for i in range(24))
 
 
 def test_compare_two_runs_figure_by_figure(history_url: str, tmp_path) -> None:
-    a = make_run(tmp_path / "runs", serial="OW-1", start=T0, netd_mk=45.0, netd_sigma_mk=1.0)
-    b = make_run(tmp_path / "runs", serial="OW-1", start=T0 + dt.timedelta(days=7),
+    a = make_run(tmp_path / "runs", serial="DEMO-1", start=T0, netd_mk=45.0, netd_sigma_mk=1.0)
+    b = make_run(tmp_path / "runs", serial="DEMO-1", start=T0 + dt.timedelta(days=7),
                  netd_mk=48.0, netd_sigma_mk=1.5, pid=2)
-    c = make_run(tmp_path / "runs", serial="OW-1", start=T0 + dt.timedelta(days=8),
+    c = make_run(tmp_path / "runs", serial="DEMO-1", start=T0 + dt.timedelta(days=8),
                  netd_mk=49.5, netd_sigma_mk=1.5, pid=3)
     engine = open_engine(history_url)
     index_runs(engine, [a, b, c])
@@ -120,7 +120,7 @@ def test_compare_two_runs_figure_by_figure(history_url: str, tmp_path) -> None:
 
 def test_unreachable_database_never_fails_the_run_and_index_catches_up(history_url: str,
                                                                        tmp_path) -> None:
-    run = make_run(tmp_path / "runs", serial="OW-9", start=T0, netd_mk=45.0)
+    run = make_run(tmp_path / "runs", serial="DEMO-9", start=T0, netd_mk=45.0)
     lines = finish_run(run, "postgresql+psycopg://nobody@/none?host=/nonexistent-socket-dir")
     assert any(line.startswith("report: ") and "NOT" not in line for line in lines)
     assert any("history: NOT recorded" in line for line in lines)
@@ -131,7 +131,7 @@ def test_unreachable_database_never_fails_the_run_and_index_catches_up(history_u
 
 
 def test_a_run_recorded_unfinished_then_resumed_is_replaced(history_url: str, tmp_path) -> None:
-    run = make_run(tmp_path / "runs", serial="OW-5", start=T0, netd_mk=45.0, state="faulted")
+    run = make_run(tmp_path / "runs", serial="DEMO-5", start=T0, netd_mk=45.0, state="faulted")
     engine = open_engine(history_url)
     assert index_runs(engine, [run]).added == 1
     manifest = json.loads((run / "manifest.json").read_text())

@@ -26,7 +26,7 @@ def runs(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     monkeypatch.delenv(ENV_VAR, raising=False)
     monkeypatch.chdir(tmp_path)
     for i, netd in enumerate([44.0, 44.5, 43.8, 44.2, 53.0, 44.1]):
-        make_run(tmp_path / "runs", serial=f"OW-{i:04d}", start=T0 + dt.timedelta(days=i),
+        make_run(tmp_path / "runs", serial=f"DEMO-{i:04d}", start=T0 + dt.timedelta(days=i),
                  netd_mk=netd, pid=i)
     return tmp_path / "runs"
 
@@ -47,7 +47,7 @@ def test_index_runs_trend_compare_report(runs: Path, capsys: pytest.CaptureFixtu
 
     assert main(["runs", "--csv", "--outcome", "FAILED"]) == 0
     rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
-    assert [r["uut_serial"] for r in rows] == ["OW-0004"]
+    assert [r["uut_serial"] for r in rows] == ["DEMO-0004"]
 
     assert main(["trend", "netd_mk", "--csv", "--plot", "chart.png"]) == 0
     out = capsys.readouterr().out

@@ -26,7 +26,7 @@ def test_gathered_verdicts_file_wins_over_the_results_files(tmp_path: Path) -> N
     netd = judge("netd_mk", "NETD", 49.0, 1.0, "mK", 50.0, conditions={"source_c": 30.0})
     write(tmp_path / "results" / "netd.json", {"netd_mk": 49.0, "passed": True})
     write(tmp_path / "results" / "verdicts.json", {
-        "uut": {"serial": "OW-1"}, "outcome": "PASSED",
+        "uut": {"serial": "DEMO-1"}, "outcome": "PASSED",
         "verdicts": [dict(netd.to_dict(), analysis="netd")]})
     got = read_verdicts(tmp_path / "results", {"netd_mk": 50.0})
     assert got.source == "results/verdicts.json" and got.outcome == "PASSED"
