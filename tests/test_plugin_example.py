@@ -59,7 +59,7 @@ def test_the_plugin_drives_the_simulated_stage_through_a_recipe(installed: None,
     done = run(sys.executable, "-m", "station", "run", str(HERE / "glide_recipe.yaml"),
                "--station", str(HERE / "glide_station.yaml"), "--runs", str(tmp_path), "--plain")
     assert done.returncode == 0, done.stdout + done.stderr
-    (folder,) = tmp_path.iterdir()
+    (folder,) = [p for p in tmp_path.iterdir() if p.is_dir()]  # the history file lies beside
     events = [json.loads(x) for x in (folder / "events.jsonl").read_text().splitlines()]
     moves = [e for e in events if e["type"] == "step.done" and e["kind"] == "move"]
     positions = [m["result"]["positions"]["x"] for m in moves]

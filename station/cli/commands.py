@@ -73,6 +73,7 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
         close_manifest(run, manifest, outcome.state, outcome.cause, clock)
     run.release_writer_lock()
+    _after_run(console, run.path)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False,
                   soft_wrap=True)
     if outcome.state != "complete":
@@ -321,6 +322,7 @@ def cmd_resume(args: argparse.Namespace, console: Console) -> int:
     _transport_log_to_event_log_only()
     state, cause, path = resume_run(args.run_folder, force=args.force, seed=args.seed,
                                     console=_console_for(console, args.plain))
+    _after_run(console, path)
     console.print(f"run {state}: {cause}", highlight=False, markup=False, soft_wrap=True)
     if state not in ("complete",):
         simulated = _was_simulated(path)
@@ -353,3 +355,45 @@ def cmd_verify(args: argparse.Namespace, console: Console) -> int:
     report = verify_run(args.run_folder)
     console.print(report.format(), highlight=False, markup=False)
     return exitcodes.OK if report.ok else exitcodes.VERIFY_FAILED
+
+
+def _after_run(console: Console, run_path: Path) -> None:
+    """The run is closed: its report and its history record (neither can fail the run)."""
+    from station.report.finish import finish_run
+
+    for line in finish_run(run_path):
+        console.print(line, highlight=False, markup=False)
+
+
+def cmd_report(args: argparse.Namespace, console: Console) -> int:
+    from station.report.render import write_pdf, write_report
+
+    html = write_report(args.run_folder, args.out)
+    console.print(f"report: {html}", highlight=False, markup=False)
+    if args.pdf:
+        console.print(f"pdf: {write_pdf(html)}", highlight=False, markup=False)
+    return exitcodes.OK
+
+
+def cmd_index(args: argparse.Namespace, console: Console) -> int:
+    from station.history.show import run_index
+
+    return run_index(args, console)
+
+
+def cmd_runs(args: argparse.Namespace, console: Console) -> int:
+    from station.history.show import show_runs
+
+    return show_runs(args, console)
+
+
+def cmd_trend(args: argparse.Namespace, console: Console) -> int:
+    from station.history.show import show_trend
+
+    return show_trend(args, console)
+
+
+def cmd_compare(args: argparse.Namespace, console: Console) -> int:
+    from station.history.show import show_compare
+
+    return show_compare(args, console)

@@ -13,6 +13,11 @@
     nightbench resume RUN_FOLDER [--force]
     nightbench verify RUN_FOLDER
     nightbench simulate [--station FILE] [--seed N] [--out FILE]   serve the simulated bench
+    nightbench report RUN_FOLDER [--pdf]   write the run's report.html (and report.pdf)
+    nightbench index RUNS_DIR              record every finished run in the history (idempotent)
+    nightbench runs [filters] [--csv]      list recorded runs
+    nightbench trend FIGURE [filters]      one figure over time or across serials, with a chart
+    nightbench compare RUN_A RUN_B         two runs figure by figure, with significance
 
 Only argparse is imported before the arguments are parsed; each command imports what it needs.
 Every bad input ends in a message naming the file and line and what to do, and an exit code from
@@ -161,6 +166,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     verify = sub.add_parser("verify", help="check a run folder's files against its manifest")
     verify.add_argument("run_folder", type=Path)
+    _history_commands(sub)
     for command in sub.choices.values():  # --debug also after the sub-command
         command.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
                              help="show the full traceback of an error instead of one line")
@@ -185,6 +191,37 @@ class _LazyConsole:
         return getattr(self.resolve(), name)
 
 
+def _history_commands(sub: Any) -> None:
+    """report, index, runs, trend, compare: the run's report and the history's questions."""
+    from station.history.options import add_database_options, add_filter_options
+
+    report = sub.add_parser("report", help="write a run folder's report.html")
+    report.add_argument("run_folder", type=Path)
+    report.add_argument("--out", type=Path, default=None, help="HTML file (default: in the run)")
+    report.add_argument("--pdf", action="store_true", help="also write report.pdf ([pdf] extra)")
+    index = sub.add_parser("index", help="record every finished run of a folder in the history")
+    index.add_argument("runs_dir", type=Path)
+    index.add_argument("--db", default=None, metavar="URL", help="history database URL")
+    index.add_argument("--station", type=Path, default=None, help="station file naming it")
+    runs = sub.add_parser("runs", help="list and filter the recorded runs")
+    add_database_options(runs)
+    add_filter_options(runs)
+    runs.add_argument("--limit", type=int, default=None)
+    runs.add_argument("--csv", action="store_true", help="CSV on standard output")
+    trend = sub.add_parser("trend", help="one figure over time or across serials")
+    trend.add_argument("figure", help="a figure name, e.g. netd_mk or distortion.efl_mm")
+    add_database_options(trend)
+    add_filter_options(trend)
+    trend.add_argument("--by", choices=["time", "serial"], default="time")
+    trend.add_argument("--plot", type=Path, default=None, help="PNG file for the chart")
+    trend.add_argument("--csv", action="store_true")
+    compare = sub.add_parser("compare", help="two runs figure by figure")
+    compare.add_argument("run_a", help="run folder or recorded run id")
+    compare.add_argument("run_b")
+    add_database_options(compare)
+    compare.add_argument("--csv", action="store_true")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     # imported after parsing, so `--help` and `--version` answer at once
@@ -196,7 +233,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         "run": commands.cmd_run, "check": commands.cmd_check, "recipes": commands.cmd_recipes,
         "bench": commands.cmd_bench, "drivers": commands.cmd_drivers,
         "analyze": commands.cmd_analyze, "resume": commands.cmd_resume,
-        "verify": commands.cmd_verify,
+        "verify": commands.cmd_verify, "report": commands.cmd_report,
+        "index": commands.cmd_index, "runs": commands.cmd_runs, "trend": commands.cmd_trend,
+        "compare": commands.cmd_compare,
     }
     handlers.update(extra_handlers())
     try:
@@ -261,7 +300,7 @@ def report_error(exc: BaseException, console: Console) -> int:
 def _is_input_error(exc: BaseException) -> bool:
     """Errors of the record and store layers that say what is wrong with a given folder/file."""
     names = {"RunFolderError", "ManifestError", "JournalError", "FrameStoreError",
-             "ResultsError", "GeometryError"}
+             "ResultsError", "GeometryError", "HistoryError", "NotARunFolder"}
     return any(cls.__name__ in names for cls in type(exc).__mro__)
 
 

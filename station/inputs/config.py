@@ -14,6 +14,7 @@ Schema (see station/data/*.yaml for complete examples)::
       stage:     {driver, resource, axes: {<axis>: {min, max, park, unit}}}
       camera:    {driver, resource}
     simulation: {...}   # only in a simulated station: bench physics and the camera's truth
+    history: {url: <database URL>}   # optional: the run history (default: runs/history.sqlite)
 """
 
 from __future__ import annotations
@@ -84,6 +85,7 @@ class StationConfig:
     axes: Mapping[str, AxisLimits]
     simulation: Mapping[str, Any] | None = None
     problems_ignored: tuple[str, ...] = field(default=())
+    history_url: str | None = None
 
     @property
     def simulated(self) -> bool:
@@ -391,12 +393,14 @@ def load_station(path: Path | str | None = None) -> StationConfig:
         raise SourceError([Problem(doc.ref(), "a station file must be a mapping",
                                    "start from station/data/example_lab_station.yaml")])
     for key in doc:
-        if key not in ("station", "collimator", "instruments", "simulation", "lab", "notes"):
+        if key not in ("station", "collimator", "instruments", "simulation", "lab", "notes",
+                       "history"):
             close = difflib.get_close_matches(str(key), ["station", "collimator", "instruments",
                                                          "simulation"], n=1)
             check.add(doc.key_ref(key), f"unknown top-level key '{key}'",
                       f"did you mean '{close[0]}'?" if close else
-                      "allowed: station, collimator, instruments, simulation, lab, notes")
+                      "allowed: station, collimator, instruments, simulation, lab, notes, "
+                      "history")
     name = check.text(doc, "station", "give the station a name, e.g. 'Bay 2 collimator bench'")
     collimator = check.mapping(doc, "collimator", "e.g. collimator: {focal_length_mm: 1500}")
     focal = (check.number(collimator, "focal_length_mm", "the collimator's effective focal "
@@ -427,10 +431,22 @@ def load_station(path: Path | str | None = None) -> StationConfig:
         slots = _slots(check, raw["wheel"] if isinstance(raw["wheel"], MarkedDict) else None,
                        path.parent)
         axes = _axes(check, raw["stage"] if isinstance(raw["stage"], MarkedDict) else None)
+    history_url = _history_url(check, doc)
     if check.problems or name is None or focal is None or limits is None:
         if not check.problems:
             check.add(doc.ref(), "the station file is incomplete")
         raise SourceError(check.problems)
     return StationConfig(name=name, path=path, text=text, collimator_focal_mm=focal,
                          instruments=entries, blackbody_limits=limits, slots=slots, axes=axes,
-                         simulation=simulation)
+                         simulation=simulation, history_url=history_url)
+
+
+def _history_url(check: _Checker, doc: MarkedDict) -> str | None:
+    """``history: {url: ...}``: the run history's database (read by station/history)."""
+    if "history" not in doc:
+        return None
+    history = check.mapping(doc, "history", "e.g. history: {url: postgresql://lab-db/nightbench}")
+    if history is None:
+        return None
+    return check.text(history, "url", "a database URL, e.g. sqlite:///runs/history.sqlite or "
+                      "postgresql://user@host/nightbench")

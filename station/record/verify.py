@@ -29,6 +29,10 @@ from station.record.manifest import (MANIFEST_NAME, NOT_RECORDED, RUNNING, Manif
                                      load_manifest)
 from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
 
+DERIVED_AFTER_CLOSE = frozenset({"report.html", "report.pdf", "history-pending.json"})
+"""Written from the closed record after the manifest (the report, a history still to catch up):
+not part of the record, so not checksummed."""
+
 
 @dataclass
 class VerifyReport:
@@ -139,7 +143,8 @@ def _check_manifest(root: Path, report: VerifyReport) -> None:
             report.altered.append(f"{rel} (checksum differs{detail})")
     for file in sorted(p for p in root.rglob("*") if p.is_file()):
         rel = file.relative_to(root).as_posix()
-        if rel == MANIFEST_NAME or rel in listed or rel in NOT_RECORDED:
+        if rel == MANIFEST_NAME or rel in listed or rel in NOT_RECORDED \
+                or rel in DERIVED_AFTER_CLOSE:
             continue
         if rel.startswith(REANALYSIS_PREFIX):  # written after the run by `nightbench analyze`
             version = rel.split("/")[1] if rel.count("/") > 1 else ""

@@ -117,7 +117,7 @@ def test_full_recipe_through_the_station_uses_the_yaml_templates(tmp_path: Path)
     code = main(["run", str(RECIPE), "--station", str(STATION), "--runs", str(tmp_path),
                  "--plain"])
     assert code == 0
-    (run,) = tmp_path.iterdir()
+    (run,) = [p for p in tmp_path.iterdir() if p.is_dir()]  # the history file lies beside
     events = [json.loads(line) for line in (run / "events.jsonl").read_text().splitlines()]
     sent = {e["command"] for e in events if e["type"] == "io"}
     # the settings go out exactly as the templates format them (3 decimals, not the built-in 4)

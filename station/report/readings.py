@@ -1,0 +1,135 @@
+"""Instrument readings against time, from the event log and the captures' metadata.
+
+Two sources, both already in the run folder: the replies to the blackbody's and stage's read-back
+queries in events.jsonl (dense, every poll), and the readings every capture recorded at its start
+and end (frames/*.json: driver independent). The frame rate is measured per capture from the
+frame timestamps, (n - 1) / (t_last - t_first).
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import re
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from station.record.events import read_events
+
+QUERY_SERIES = {"MEAS:TEMP?": ("blackbody", "source"), "MEAS:REF?": ("blackbody", "reference")}
+AXIS_QUERY = re.compile(r"^POS\?\s+(\w+)$")
+PANELS = (("blackbody", "blackbody (C)"), ("stage", "stage axes"), ("camera", "frame rate (Hz)"))
+
+
+@dataclass
+class Series:
+    """One reading over time: ``t`` in seconds from the run's first event."""
+
+    panel: str
+    name: str
+    t: list[float] = field(default_factory=list)
+    v: list[float] = field(default_factory=list)
+
+
+def _add(series: dict[tuple[str, str], Series], panel: str, name: str, t: float,
+         value: Any) -> None:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return
+    s = series.setdefault((panel, name), Series(panel, name))
+    s.t.append(t)
+    s.v.append(number)
+
+
+def _from_events(events: Iterable[Mapping[str, Any]], t0: float,
+                 series: dict[tuple[str, str], Series]) -> None:
+    for e in events:
+        if e.get("type") != "io" or "reply" not in e:
+            continue
+        command = str(e.get("command", ""))
+        t = float(e.get("t", t0)) - t0
+        if command in QUERY_SERIES:
+            _add(series, *QUERY_SERIES[command], t, e["reply"])
+        elif e.get("instrument") == "stage" and (m := AXIS_QUERY.match(command)):
+            _add(series, "stage", m.group(1), t, e["reply"])
+
+
+def _from_captures(run: Path, t0: float, series: dict[tuple[str, str], Series],
+                   dense: set[str]) -> None:
+    for path in sorted((run / "frames").glob("*.json")):
+        try:
+            meta = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue
+        if not isinstance(meta, dict) or meta.get("format") != "nightbench-capture":
+            continue
+        stamps = [float(x) for x in meta.get("timestamps") or [] if x is not None]
+        if len(stamps) >= 2 and stamps[-1] > stamps[0]:
+            rate = (len(stamps) - 1) / (stamps[-1] - stamps[0])
+            _add(series, "camera", "measured", (stamps[0] + stamps[-1]) / 2 - t0, rate)
+        extra = meta.get("extra") or {}
+        for which, t_key in (("readings_start", "start_t"), ("readings_end", "end_t")):
+            readings = extra.get(which) or {}
+            t = float(meta.get(t_key, t0)) - t0
+            bb = readings.get("blackbody") or {}
+            if "blackbody" not in dense:
+                _add(series, "blackbody", "source", t, bb.get("temperature_c"))
+                _add(series, "blackbody", "reference", t, bb.get("reference_c"))
+            stage = readings.get("stage") or {}
+            if "stage" not in dense:
+                for axis, value in stage.items():
+                    if axis != "states":
+                        _add(series, "stage", str(axis), t, value)
+            _add(series, "camera", "nominal", t, (readings.get("camera") or {}).get(
+                "frame_rate_hz"))
+
+
+def read_series(run: Path) -> list[Series]:
+    """Every reading series of a run folder, sorted by time."""
+    run = Path(run)
+    events = read_events(run / "events.jsonl") if (run / "events.jsonl").is_file() else []
+    t0 = float(events[0].get("t", 0.0)) if events else 0.0
+    series: dict[tuple[str, str], Series] = {}
+    _from_events(events, t0, series)
+    dense = {panel for panel, _ in series}
+    _from_captures(run, t0, series, dense)
+    for s in series.values():
+        order = sorted(range(len(s.t)), key=s.t.__getitem__)
+        s.t, s.v = [s.t[i] for i in order], [s.v[i] for i in order]
+    return list(series.values())
+
+
+def plot_series(series: list[Series]) -> bytes | None:
+    """One PNG, a panel per instrument sharing the time axis; None when nothing was read."""
+    panels = [(p, label) for p, label in PANELS if any(s.panel == p for s in series)]
+    if not panels:
+        return None
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from matplotlib.figure import Figure
+
+    span = max((s.t[-1] for s in series if s.t), default=0.0)
+    scale, unit = (3600.0, "h") if span > 7200 else (60.0, "min") if span > 120 else (1.0, "s")
+    fig = Figure(figsize=(7.5, 1.9 * len(panels) + 0.4), dpi=110)
+    axes = fig.subplots(len(panels), 1, sharex=True, squeeze=False)[:, 0]
+    for ax, (panel, label) in zip(axes, panels):
+        for s in (s for s in series if s.panel == panel):
+            style = "o" if panel == "camera" or len(s.t) < 3 else "-"
+            ax.plot([t / scale for t in s.t], s.v, style, ms=3, lw=1, label=s.name)
+        ax.ticklabel_format(axis="y", useOffset=False)
+        if panel == "camera":
+            values = [v for s in series if s.panel == panel for v in s.v]
+            ax.set_ylim(0.9 * min(values), 1.1 * max(values))
+        ax.set_ylabel(label, fontsize=8)
+        ax.legend(fontsize=7, loc="best")
+        ax.grid(alpha=0.3)
+        ax.tick_params(labelsize=7)
+    axes[-1].set_xlabel(f"time from the start of the run ({unit})", fontsize=8)
+    fig.tight_layout()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    return buf.getvalue()
