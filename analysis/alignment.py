@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from collections.abc import Callable
 from typing import Sequence
 
 import numpy as np
@@ -40,7 +41,8 @@ from analysis.geometry import (CameraGeometry, gimbal_rotation, undistort_normal
 
 __all__ = ["pixel_to_direction", "axis_direction_at", "pose_seeing_axis_at", "aligned_pose",
            "aligned_pose_with_uncertainty", "AlignmentIteration", "AlignmentDecision",
-           "next_decision", "converged_boresight", "ConvergedPose"]
+           "next_decision", "converged_boresight", "ConvergedPose",
+           "AlignmentFault", "align"]
 
 _E_Z = np.array([0.0, 0.0, 1.0])
 
@@ -196,7 +198,9 @@ def next_decision(history: Sequence[AlignmentIteration], tolerance_px: float,
 
     Converged when the residual is within `tolerance_px`. Diverging when the residual grew by
     more than `diverge_factor` over the previous one twice in a row, or exceeds the first
-    residual by that factor (a wrong sign or a wrong model scale makes every step worse).
+    residual by that factor (a wrong sign or a wrong model scale makes every step worse);
+    residuals below a noise floor (the tolerance, or 3 sigma of the centroid) never count as
+    growth.
     Out of iterations after `max_iterations`.
     """
     last = history[-1]
@@ -206,9 +210,12 @@ def next_decision(history: Sequence[AlignmentIteration], tolerance_px: float,
                                               f"iteration(s)")
     if len(history) >= 2:
         first = history[0].residual_px
-        grew = [b.residual_px > diverge_factor * a.residual_px
+        # Growth below a noise floor (the tolerance, or 3 sigma of the centroid) is noise.
+        floor = max(tolerance_px, 3.0 * math.hypot(*last.spot_sigma_px))
+        grew = [b.residual_px > diverge_factor * max(a.residual_px, floor)
                 for a, b in zip(history[:-1], history[1:])]
-        if last.residual_px > diverge_factor * first or (len(grew) >= 2 and grew[-1] and grew[-2]):
+        if (last.residual_px > diverge_factor * max(first, floor)
+                or (len(grew) >= 2 and grew[-1] and grew[-2])):
             return AlignmentDecision("fault", "alignment diverges: residual went "
                                      + " -> ".join(f"{h.residual_px:.2f}" for h in history)
                                      + " px; check the UUT model (focal length, projection) and "
@@ -249,3 +256,57 @@ def converged_boresight(last: AlignmentIteration, reference_px: Sequence[float],
         last.spot_px, last.spot_sigma_px, reference_px, last.pose_deg, geom,
         stage_sigma_deg=stage_sigma_deg)
     return ConvergedPose(az, el, saz, sel, tuple(history))
+
+
+class AlignmentFault(RuntimeError):
+    """The loop stopped without converging; the message says why. ``history`` holds every
+    iteration done, for the record."""
+
+    def __init__(self, message: str, history: Sequence[AlignmentIteration] = ()) -> None:
+        super().__init__(message)
+        self.history = tuple(history)
+
+
+Measure = Callable[[tuple[float, float]], tuple[tuple[float, float], tuple[float, float]]]
+
+
+def align(measure: Measure, start_pose_deg: Sequence[float], reference_px: Sequence[float],
+          geom: CameraGeometry, *, tolerance_px: float = 0.25, max_iterations: int = 8,
+          limits_deg: Sequence[tuple[float, float]] | None = None, stage_sigma_deg: float = 0.0,
+          on_iteration: Callable[[AlignmentIteration], None] = lambda it: None) -> ConvergedPose:
+    """The closed loop: measure at a pose, convert the offset to the pose that centres the spot,
+    move there, repeat, until the spot sits on `reference_px` within `tolerance_px`.
+
+    `measure(pose)` moves the stage to `pose` (az, el) deg, takes a frame and returns the spot's
+    centroid (x, y) and its 1-sigma; it raises to stop the loop (pinhole not found, spot at the
+    frame edge). `limits_deg` ((az_lo, az_hi), (el_lo, el_hi)) refuses a next pose outside the
+    stage's soft limits before anything moves. Every iteration goes to `on_iteration` first.
+    Raises `AlignmentFault` when it diverges, runs out of iterations or would leave the limits.
+    """
+    if max_iterations < 1:
+        raise ValueError("max_iterations must be at least 1")
+    history: list[AlignmentIteration] = []
+    pose = (float(start_pose_deg[0]), float(start_pose_deg[1]))
+    while True:
+        spot, sigma = measure(pose)
+        nxt = aligned_pose(spot, reference_px, pose, geom)
+        it = AlignmentIteration(len(history) + 1, pose, (float(spot[0]), float(spot[1])),
+                                (float(sigma[0]), float(sigma[1])),
+                                (float(spot[0]) - float(reference_px[0]),
+                                 float(spot[1]) - float(reference_px[1])), nxt)
+        history.append(it)
+        on_iteration(it)
+        decision = next_decision(history, tolerance_px, max_iterations)
+        if decision.action == "converged":
+            return converged_boresight(it, reference_px, geom, stage_sigma_deg=stage_sigma_deg,
+                                       history=history)
+        if decision.action == "fault":
+            raise AlignmentFault(decision.reason, history)
+        if limits_deg is not None:
+            for name, value, (lo, hi) in zip(("az", "el"), nxt, limits_deg):
+                if not lo <= value <= hi:
+                    raise AlignmentFault(
+                        f"alignment asks for {name} = {value:.4f} deg, outside the stage's soft "
+                        f"limits {lo:g} .. {hi:g} deg (nothing was moved); start nearer the "
+                        "collimator axis or check the UUT mounting", history)
+        pose = nxt

@@ -28,12 +28,17 @@ CENTRE = (47.5, 39.5)
 
 
 def test_boresight_recovered_within_two_sigma_over_twenty_seeds() -> None:
+    # A single frame converts the offset through the model, so the model's errors scale with the
+    # offset: an unknown 0.15 deg roll on a 2.8 px offset is 0.007 px, as large as the noise
+    # (0.007 px). The model here is the fitted one (roll known, as a distortion fit gives it);
+    # the closed loop (test_alignment) drives the offset to zero and needs no such help.
+    fitted = NOMINAL.replace(roll_deg=0.15)
     truth = truth_camera(TRUE)
     want = true_aligned_pose(TRUE, CENTRE)
     pulls = []
     for seed in range(20):
         img = frame(CameraRenderer(truth, seed=seed), 0.0, 0.0)
-        m = measure_boresight(img, NOMINAL, (0.0, 0.0), saturation=truth.full_scale)
+        m = measure_boresight(img, fitted, (0.0, 0.0), saturation=truth.full_scale)
         pulls.append((np.array(m.boresight_deg) - want) / np.array(m.sigma_deg))
     pulls = np.array(pulls)
     # Honest 1-sigma (GUM, JCGM 100:2008): about 95 % of the pulls within 2 sigma; allow 2 of 20
