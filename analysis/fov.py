@@ -7,8 +7,8 @@ focal length f with N pixels of pitch p across sees ``2 atan(N p / 2 f)``; an eq
 
 Three ways, each with its uncertainty:
 
-* **From a camera model** (`fov_from_model`): the angle between the lines of sight through the
-  outer *edges* of the outer pixels (x = -0.5 and W - 0.5 on the principal point's row for the
+* **From a camera model** (`fov_from_model`): the sum of the field angles (from the optical
+  axis) of the lines of sight through the outer *edges* of the outer pixels (x = -0.5 and W - 0.5 on the principal point's row for the
   horizontal FOV, likewise vertically, opposite corners for the diagonal), through the exact
   inverse of the model (`analysis.alignment.pixel_to_direction`). Works for a fitted model with
   distortion; the uncertainty comes from the focal length's.
@@ -17,7 +17,8 @@ Three ways, each with its uncertainty:
   spot's flux is still on the detector (for a symmetric spot, its centre is then on the outer
   pixel edge). The edge pose is bracketed by bisection on the stage and the last bracket is
   interpolated linearly in the flux fraction. The FOV is the angle between the lines of sight of
-  the two edge poses of an axis (exact for the az-over-el gimbal).
+  the two edge poses of an axis (exact for the az-over-el gimbal); the diagonal is derived from
+  H and V through the projection law.
 * **IFOV at the centre** (`ifov_from_slope`): the slope of the centroid's position against the
   stage angle around the boresight, fitted with a cubic term so the projection's curvature does
   not bias it.
@@ -35,13 +36,13 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
-from analysis.alignment import axis_direction_at, pixel_to_direction
+from analysis.alignment import inverse_radial, axis_direction_at, pixel_to_direction
 from analysis.centroid import Background, estimate_background
-from analysis.geometry import CameraGeometry
+from analysis.geometry import CameraGeometry, _radial_map
 from analysis.verdicts import SpecKey, Verdict
 
 __all__ = ["FOV_SPEC_KEYS", "FieldOfView", "fov_from_model", "ifov_from_slope", "spot_flux",
-           "spot_flux_near", "EdgeProbe", "EdgeSearch", "find_edge", "fov_from_edge_poses", "fov_verdicts",
+           "spot_flux_near", "EdgeProbe", "EdgeSearch", "find_edge", "fov_from_edge_poses", "fov_verdicts", "ScanFov", "scan_fov",
            "line_of_sight_angle_deg"]
 
 _AXES = {"h": "horizontal", "v": "vertical", "d": "diagonal"}
@@ -99,7 +100,10 @@ def _model_fov(geom: CameraGeometry) -> np.ndarray:
     w, h = geom.width - 0.5, geom.height - 0.5
     pts = np.array([[-0.5, cy], [w, cy], [cx, -0.5], [cx, h], [-0.5, -0.5], [w, h]])
     d = pixel_to_direction(geom, pts)
-    return np.array([_angle_deg(d[0], d[1]), _angle_deg(d[2], d[3]), _angle_deg(d[4], d[5])])
+    # Each edge's field angle from the optical axis, summed: a fish-eye's field may pass 180 deg,
+    # where the angle between the two edge directions would fold back.
+    theta = np.degrees(np.arctan2(np.hypot(d[:, 0], d[:, 1]), d[:, 2]))
+    return np.array([theta[0] + theta[1], theta[2] + theta[3], theta[4] + theta[5]])
 
 
 def fov_from_model(geom: CameraGeometry, *, focal_sigma_mm: float = 0.0) -> FieldOfView:
@@ -209,9 +213,11 @@ class EdgeSearch:
     angle_deg: float
     sigma_deg: float
     probes: tuple[EdgeProbe, ...] = field(default_factory=tuple)
+    slope_per_deg: float = float("nan")
 
     def to_dict(self) -> dict[str, Any]:
         return {"angle_deg": self.angle_deg, "sigma_deg": self.sigma_deg,
+                "slope_per_deg": self.slope_per_deg,
                 "probes": [[p.angle_deg, p.fraction, p.sigma] for p in self.probes]}
 
 
@@ -257,7 +263,7 @@ def find_edge(fraction_at: Callable[[float], tuple[float, float]], inside_deg: f
     width = abs(hi.angle_deg - lo.angle_deg)
     sigma = math.sqrt((frac_sigma / abs(slope)) ** 2 + (width / 4.0) ** 2 / 3.0
                       + stage_sigma_deg ** 2)
-    return EdgeSearch(float(angle), float(sigma), tuple(probes))
+    return EdgeSearch(float(angle), float(sigma), tuple(probes), float(slope))
 
 
 def line_of_sight_angle_deg(pose_a: Sequence[float], pose_b: Sequence[float]) -> float:
@@ -267,31 +273,122 @@ def line_of_sight_angle_deg(pose_a: Sequence[float], pose_b: Sequence[float]) ->
                       axis_direction_at(float(pose_b[0]), float(pose_b[1])))
 
 
+def _radial(theta: float, projection: str) -> float:
+    return float(_radial_map(np.array([theta]), projection)[0])
+
+
+def _diagonal_deg(h_deg: float, v_deg: float, projection: str) -> float:
+    """Diagonal FOV from H and V through the projection's radial law r(theta):
+    r(D/2)^2 = r(H/2)^2 + r(V/2)^2 (the corner's image height from its two components)."""
+    rh = _radial(math.radians(h_deg / 2.0), projection)
+    rv = _radial(math.radians(v_deg / 2.0), projection)
+    rd = math.hypot(rh, rv)
+    return 2.0 * math.degrees(float(inverse_radial(np.array([rd]), projection)[0]))
+
+
 def fov_from_edge_poses(left: tuple[float, float], right: tuple[float, float],
                         top: tuple[float, float], bottom: tuple[float, float], *,
                         sigma_az_deg: tuple[float, float], sigma_el_deg: tuple[float, float],
+                        projection: str = "rectilinear",
                         ifov: tuple[float, float] = (float("nan"), float("nan"))) -> FieldOfView:
     """FOV from the four edge poses (az, el) deg found in scan mode.
 
     Horizontal: the angle between the lines of sight of the left and right edge poses; vertical
-    likewise. Diagonal: between the corner poses (left az, top el) and (right az, bottom el), which
-    is exact for a rectilinear UUT without roll (its x depends on az only and its y on el only,
-    ``x = -f tan az``, ``y = f tan el``) and a first-order estimate otherwise (stated in notes).
-    Sigmas: the two edges' in quadrature (through the derivative of the angle, ~1 on the axis).
+    likewise (exact for the az-over-el gimbal). Diagonal: derived from H and V through the UUT's
+    projection law, ``r(D/2)^2 = r(H/2)^2 + r(V/2)^2`` (``tan`` for rectilinear, ``theta`` for
+    f-theta): exact for a distortion-free UUT with its principal point centred, stated in notes.
+    Sigmas: the two edges' in quadrature; the diagonal's propagated numerically (GUM).
     """
     h = line_of_sight_angle_deg(left, right)
     v = line_of_sight_angle_deg(top, bottom)
-    c1, c2 = (left[0], top[1]), (right[0], bottom[1])
-    d = line_of_sight_angle_deg(c1, c2)
+    d = _diagonal_deg(h, v, projection)
     sh = math.hypot(*sigma_az_deg)
     sv = math.hypot(*sigma_el_deg)
-    # The diagonal through the corner poses: its partial derivatives against the four edge angles.
-    da = abs(right[0] - left[0]) or 1.0
-    de = abs(bottom[1] - top[1]) or 1.0
-    sd = math.hypot(sh * da, sv * de) / math.hypot(da, de)
+    eps = 1e-4
+    gh = (_diagonal_deg(h + eps, v, projection) - d) / eps
+    gv = (_diagonal_deg(h, v + eps, projection) - d) / eps
+    sd = math.hypot(gh * sh, gv * sv)
     return FieldOfView(h, v, d, sh, sv, sd, ifov[0], ifov[1], "scan",
-                       ("diagonal from the corner poses (left az, top el) and (right az, bottom "
-                        "el): exact for a rectilinear UUT without roll",))
+                       (f"diagonal derived from H and V through the {projection} projection law "
+                        "(distortion-free, centred principal point)",))
+
+
+@dataclass(frozen=True)
+class ScanFov:
+    """Scan-mode result: the FOV and the four edge searches (left, right, top, bottom)."""
+
+    fov: FieldOfView
+    edges: Mapping[str, EdgeSearch]
+    centre_pose_deg: tuple[float, float]
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"fov": self.fov.to_dict(), "centre_pose_deg": list(self.centre_pose_deg),
+                "edges": {k: v.to_dict() for k, v in self.edges.items()}}
+
+
+def scan_fov(fraction_at_pose: Callable[[tuple[float, float]], tuple[float, float]],
+             centre_pose_deg: Sequence[float], nominal: CameraGeometry, *,
+             tolerance_deg: float = 0.02, stage_sigma_deg: float = 0.0,
+             reference_rel_sigma: float = 0.0,
+             limits_deg: Sequence[tuple[float, float]] | None = None,
+             ifov: tuple[float, float] = (float("nan"), float("nan"))) -> ScanFov:
+    """FOV in scan mode: from the aligned pose, step the pinhole out along azimuth (elevation
+    held) and along elevation (azimuth held), each way, bisecting for the edge (`find_edge`).
+
+    The first outside guess is 1.25 x the nominal half field beyond the centre, widened to 1.6 and
+    2 x if the spot is still seen, never beyond `limits_deg` ((az_lo, az_hi), (el_lo, el_hi)).
+    Positive azimuth moves the spot toward -x (left), positive elevation toward +y (down): see
+    `analysis.geometry`.
+
+    `reference_rel_sigma` is the relative 1-sigma of the reference (on-axis) flux the fractions
+    are taken against. It moves both edges of an axis inward or outward together, so it enters
+    each FOV linearly over the two edges, ``sigma_ref (1/2|s1| + 1/2|s2|)`` with s the
+    fraction's slope per degree at each edge, added in quadrature to the edges' own sigmas.
+    """
+    model = fov_from_model(nominal)
+    az0, el0 = float(centre_pose_deg[0]), float(centre_pose_deg[1])
+    half = {"az": model.h_deg / 2.0, "el": model.v_deg / 2.0}
+    edges: dict[str, EdgeSearch] = {}
+    plan = {"left": ("az", +1.0), "right": ("az", -1.0), "top": ("el", -1.0),
+            "bottom": ("el", +1.0)}
+    for name, (axis, sign) in plan.items():
+        k = 0 if axis == "az" else 1
+        centre = az0 if axis == "az" else el0
+
+        def at(angle: float, axis: str = axis) -> tuple[float, float]:
+            return fraction_at_pose((angle, el0) if axis == "az" else (az0, angle))
+
+        last_error: Exception | None = None
+        for factor in (1.25, 1.6, 2.0):
+            outside = centre + sign * factor * half[axis]
+            if limits_deg is not None:
+                lo, hi = limits_deg[k]
+                outside = min(max(outside, lo), hi)
+            try:
+                edges[name] = find_edge(at, centre, outside, tolerance_deg=tolerance_deg,
+                                        stage_sigma_deg=stage_sigma_deg)
+                break
+            except ValueError as exc:
+                last_error = exc
+                if "still on the detector" not in str(exc):
+                    raise
+        else:
+            raise ValueError(f"{name} edge: {last_error}")
+    def correlated(a: EdgeSearch, b: EdgeSearch) -> float:
+        return reference_rel_sigma * (0.5 / abs(a.slope_per_deg) + 0.5 / abs(b.slope_per_deg))
+
+    # Split the correlated term equally over the two edges' sigmas so the quadrature sum in
+    # fov_from_edge_poses gives sqrt(s1^2 + s2^2 + c^2).
+    def with_c(a: EdgeSearch, b: EdgeSearch) -> tuple[float, float]:
+        c = correlated(a, b) / math.sqrt(2.0)
+        return math.hypot(a.sigma_deg, c), math.hypot(b.sigma_deg, c)
+
+    fov = fov_from_edge_poses((edges["left"].angle_deg, el0), (edges["right"].angle_deg, el0),
+                              (az0, edges["top"].angle_deg), (az0, edges["bottom"].angle_deg),
+                              sigma_az_deg=with_c(edges["left"], edges["right"]),
+                              sigma_el_deg=with_c(edges["top"], edges["bottom"]),
+                              projection=nominal.projection, ifov=ifov)
+    return ScanFov(fov, edges, (az0, el0))
 
 
 def fov_verdicts(limits: Mapping[str, float], fov: FieldOfView,
