@@ -27,6 +27,9 @@ class UutSpec:
     frame_rate_hz: float
     bit_depth: int
     spec_limits: dict[str, float] = field(default_factory=dict)
+    spec_conditions: dict[str, dict[str, float]] = field(default_factory=dict)
+    """Per spec key, the measurement conditions the UUT file states beside its limit
+    (``netd_mk: {limit: 50, source_c: 30, background_c: 20}``)."""
 
     def __post_init__(self) -> None:
         if self.projection not in PROJECTIONS:
@@ -48,4 +51,5 @@ class UutSpec:
                 "focal_length_mm": self.focal_length_mm, "f_number": self.f_number,
                 "projection": self.projection, "band_um": list(self.band_um),
                 "frame_rate_hz": self.frame_rate_hz, "bit_depth": self.bit_depth,
-                "spec_limits": dict(self.spec_limits)}
+                "spec_limits": dict(self.spec_limits),
+                "spec_conditions": {k: dict(v) for k, v in self.spec_conditions.items()}}

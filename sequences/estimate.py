@@ -12,6 +12,9 @@ position) and charges each step with a closed-form time:
   never reaches full speed); the axes move together, so the slowest axis sets the time.
 * capture: frames / frame rate.  wait: its seconds.  note, analyze: nothing.
 * every step: the command overhead.
+
+A blackbody step whose time reaches 90 % of its timeout is returned as a warning with its place
+in the recipe, so `check` and preflight can show it before anything moves.
 """
 
 from __future__ import annotations
@@ -21,21 +24,50 @@ from dataclasses import dataclass, field
 
 from sequences.facts import TimingModel
 from sequences.plan import Plan
+from sequences.plansteps import (BlackbodyStep, CaptureStep, MoveStep, TargetStep, WaitStep)
+from sequences.yamlsource import SourceRef
 
-__all__ = ["Estimate", "estimate", "blackbody_settle_s", "wheel_travel_s", "trapezoid_s",
-           "slots_between"]
+__all__ = ["Estimate", "TimeoutWarning", "estimate", "blackbody_settle_s", "wheel_travel_s",
+           "trapezoid_s", "slots_between", "NEAR_TIMEOUT_FRACTION"]
+
+NEAR_TIMEOUT_FRACTION = 0.9
+"""A step whose estimated duration reaches 90 % of its timeout is warned about: the model's
+error and a warmer lab than modelled easily eat a 10 % margin."""
+
+
+@dataclass(frozen=True)
+class TimeoutWarning:
+    """A step the model expects to time out, or to come within 10 % of its timeout."""
+
+    step_id: str
+    where: SourceRef
+    needed_s: float
+    timeout_s: float
+
+    @property
+    def exceeds(self) -> bool:
+        return self.needed_s > self.timeout_s
+
+    def __str__(self) -> str:
+        how = ("times out after" if self.exceeds
+               else "is within 10 % of its timeout of")
+        fix = (f"raise its timeout above {self.needed_s * 1.25:.0f} s or approach the setpoint "
+               "in smaller steps")
+        return (f"{self.where}: {self.step_id}: the blackbody needs about {self.needed_s:.0f} s "
+                f"to settle and hold but {how} {self.timeout_s:g} s. {fix.capitalize()}.")
 
 
 @dataclass(frozen=True)
 class Estimate:
     """Total real duration, the share of each step (by plan id), frames acquired, bytes written;
-    ``warnings`` name steps the model expects to fail (e.g. a settle longer than its timeout)."""
+    ``warnings`` name steps the model expects to fail or nearly fail (a settle longer than, or
+    within 10 % of, its timeout), with where each is written."""
 
     total_s: float
     per_step: list[tuple[str, float]]
     frames: int
     bytes: int
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[TimeoutWarning] = field(default_factory=list)
 
 
 def blackbody_settle_s(error_k: float, tolerance_k: float, slew_k_per_s: float,
@@ -106,34 +138,33 @@ def estimate(plan: Plan, timing: TimingModel) -> Estimate:
     average_bytes = (timing.average_frame_bytes if timing.average_frame_bytes is not None
                      else 2 * timing.frame_bytes)
     per_step: list[tuple[str, float]] = []
-    warnings: list[str] = []
+    warnings: list[TimeoutWarning] = []
     frames = 0
     written = 0
     for step in plan.steps:
-        p = step.params
         seconds = 0.0
-        if step.kind == "blackbody":
-            target = p["value"] if p["mode"] == "absolute" else timing.reference_c + p["value"]
-            settle = blackbody_settle_s(target - temperature, p["tolerance"],
+        if isinstance(step, BlackbodyStep):
+            target = (step.setpoint if step.mode == "absolute"
+                      else timing.reference_c + step.setpoint)
+            settle = blackbody_settle_s(target - temperature, step.tolerance_k,
                                         timing.blackbody_slew_k_per_s,
                                         timing.blackbody_time_constant_s)
-            seconds = settle + p["hold"]
-            if seconds > p["timeout"]:
-                warnings.append(f"{step.id}: the blackbody needs about {seconds:.0f} s to settle "
-                                f"and hold but times out after {p['timeout']:g} s")
+            seconds = settle + step.hold_s
+            if seconds >= NEAR_TIMEOUT_FRACTION * step.timeout_s:
+                warnings.append(TimeoutWarning(step.id, step.source, seconds, step.timeout_s))
             temperature = target
-        elif step.kind == "target":
-            if p["name"] not in timing.wheel_slot_of:
-                raise ValueError(f"{step.id}: target '{p['name']}' has no wheel slot in the "
+        elif isinstance(step, TargetStep):
+            if step.target not in timing.wheel_slot_of:
+                raise ValueError(f"{step.id}: target '{step.target}' has no wheel slot in the "
                                  "timing model; add it to the wheel's slots in the station file")
-            new = timing.wheel_slot_of[p["name"]]
+            new = timing.wheel_slot_of[step.target]
             moved = (timing.wheel_slot_count // 2 if slot is None
                      else slots_between(slot, new, timing.wheel_slot_count))
             seconds = moved * timing.wheel_seconds_per_slot
             slot = new
-        elif step.kind == "move":
+        elif isinstance(step, MoveStep):
             times = []
-            for axis, value in p["position"].items():
+            for axis, value in step.position.items():
                 if axis not in timing.stage_velocity:
                     raise ValueError(f"{step.id}: stage axis '{axis}' has no speed in the timing "
                                      "model; add its velocity and acceleration")
@@ -142,15 +173,15 @@ def estimate(plan: Plan, timing: TimingModel) -> Estimate:
                                          timing.stage_acceleration[axis]))
                 position[axis] = value
             seconds = max(times, default=0.0)
-        elif step.kind == "capture":
-            seconds = p["frames"] / timing.frame_rate_hz
-            frames += p["frames"]
-            if p["keep"] in ("stack", "both"):
-                written += p["frames"] * timing.frame_bytes
-            if p["keep"] in ("average", "both"):
+        elif isinstance(step, CaptureStep):
+            seconds = step.frames / timing.frame_rate_hz
+            frames += step.frames
+            if step.keep in ("stack", "both"):
+                written += step.frames * timing.frame_bytes
+            if step.keep in ("average", "both"):
                 written += average_bytes
-        elif step.kind == "wait":
-            seconds = p["seconds"]
+        elif isinstance(step, WaitStep):
+            seconds = step.duration_s
         seconds += timing.command_overhead_s
         per_step.append((step.id, seconds))
     total = math.fsum(s for _, s in per_step)

@@ -7,25 +7,65 @@ validation and duration estimates pure and testable without a bench.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Mapping
+from typing import TYPE_CHECKING, Mapping, Protocol
 
-__all__ = ["StationFacts", "TimingModel"]
+from sequences.yamlsource import Problem
+
+if TYPE_CHECKING:
+    from sequences.plansteps import PlanStep
+
+__all__ = ["StationFacts", "TimingModel", "Refusal", "InstrumentLimits", "PlanCheck"]
+
+
+@dataclass(frozen=True)
+class Refusal:
+    """Why a setpoint or position is not allowed, and what to do instead."""
+
+    message: str
+    hint: str = ""
+
+
+class InstrumentLimits(Protocol):
+    """The one answer to "is this allowed, and if not why" for the station's instruments.
+
+    The station implements it from its station file (station.inputs.limits); recipe validation,
+    preflight and the step handlers all ask it, so a limit is written down once.
+    """
+
+    def setpoint_problem(self, mode: str, value: float) -> Refusal | None:
+        """None if the blackbody may go to ``value`` (C absolute, K difference), else why not."""
+        ...
+
+    def position_problem(self, axis: str, low: float, high: float | None = None
+                         ) -> Refusal | None:
+        """None if the stage axis may go to ``low`` (and, for a scan, every value up to
+        ``high``), else why not (an unknown axis included)."""
+        ...
+
+
+class PlanCheck(Protocol):
+    """Checks the station adds over a whole expanded plan (the analyses' options and needs)."""
+
+    def __call__(self, steps: Sequence["PlanStep"]) -> list[Problem]: ...
 
 
 @dataclass(frozen=True)
 class StationFacts:
-    """Limits and names that recipe validation checks against.
+    """What recipe validation checks against: names, limits and the analyses' declarations.
 
-    ``stage_axes`` maps an axis name to its soft limits ``(low, high)`` in the axis's own unit
-    (degrees for a gimbal); blackbody limits are inclusive ``(low, high)`` pairs.
+    ``stage_axes`` maps an axis name to its unit (``deg`` for a gimbal axis, ``mm`` for a linear
+    one); ``limits`` answers every setpoint and position question; ``check_plan`` (optional) adds
+    the station's checks of the whole plan, so that every problem of a recipe is reported in one
+    pass.
     """
 
     targets: frozenset[str]
-    blackbody_absolute_c: tuple[float, float]
-    blackbody_difference_k: tuple[float, float]
-    stage_axes: Mapping[str, tuple[float, float]]
+    stage_axes: Mapping[str, str]
+    limits: InstrumentLimits
     analyses: frozenset[str]
+    check_plan: PlanCheck | None = None
 
 
 @dataclass(frozen=True)

@@ -31,6 +31,8 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Protocol
 
 from sequences.facts import StationFacts
+from sequences.plansteps import (AnalyzeStep, BlackbodyStep, CaptureStep, LoopValue, MoveStep,
+                                 NoteStep, PlanStep, TargetStep, WaitStep)
 from sequences.steps import (NAME_PATTERN, STEP_SPECS, Option, StepNode, axis_problems,
                              coerce_options, coerce_value, station_problems, suggest)
 from sequences.yamlsource import MarkedDict, MarkedList, Problem, SourceError, SourceRef
@@ -42,18 +44,6 @@ MAX_PLAN_STEPS = 200_000
 
 _WHOLE_REF = re.compile(r"^\$\{\s*([^{}]*?)\s*\}$")
 _ANY_REF = re.compile(r"\$\$\{|\$\{([^{}]*)\}")
-
-
-@dataclass(frozen=True)
-class PlanStep:
-    """One concrete step: what to do (``kind``, ``params``), where it was written (``source``)
-    and the loop values in force (``context``, outermost loop first)."""
-
-    id: str
-    kind: str
-    params: dict[str, Any]
-    source: SourceRef
-    context: dict[str, Any]
 
 
 @dataclass
@@ -68,6 +58,13 @@ class Plan:
     captures: list[str]
     frames_total: int
     groups: dict[str, list[str]] = field(default_factory=dict)
+
+    def capture_step(self, name: str) -> CaptureStep:
+        """The capture step making instance ``name`` (KeyError naming it if none does)."""
+        for s in self.steps:
+            if isinstance(s, CaptureStep) and s.name == name:
+                return s
+        raise KeyError(f"no capture '{name}' in plan of recipe '{self.recipe}'")
 
     def step(self, step_id: str) -> PlanStep:
         """The step with this id (KeyError naming the id if there is none)."""
@@ -84,7 +81,7 @@ def format_value(value: Any) -> str:
     return repr(value) if isinstance(value, float) else str(value)
 
 
-def instance_name(group: str, context: dict[str, Any]) -> str:
+def instance_name(group: str, context: dict[str, LoopValue]) -> str:
     """``group`` outside loops, else ``group[var=value,...]`` with the loop values."""
     if not context:
         return group
@@ -174,15 +171,18 @@ class _Expander:
         self.group_where: dict[str, SourceRef] = {}
         self.frames_total = 0
         self.unknowable: set[str] = set()  # captures of steps that could not be expanded
+        self.target: str | None = None  # what the plan has put in the beam so far
+        self.pose: dict[str, float] = {}  # where the plan has left the stage so far
 
     # -- helpers -------------------------------------------------------------------------------
-    def add(self, step_id: str, kind: str, params: dict[str, Any], node: StepNode,
-            context: dict[str, Any]) -> None:
+    def add(self, step: PlanStep, node: StepNode, *, check: bool = True) -> None:
         if len(self.steps) >= MAX_PLAN_STEPS:
             self.problems.append(Problem(node.where, f"the plan grows beyond {MAX_PLAN_STEPS} steps",
                                          "use coarser scan steps or fewer sweep values"))
             raise _PlanLimit
-        self.steps.append(PlanStep(step_id, kind, params, node.where, dict(context)))
+        if check and self.facts is not None:
+            self.problems.extend(station_problems(step, self.refs_of(node), self.facts))
+        self.steps.append(step)
 
     @staticmethod
     def refs_of(node: StepNode) -> Callable[[str], SourceRef]:
@@ -191,13 +191,9 @@ class _Expander:
             return lambda key: body.ref_of(key)
         return lambda key: node.body_ref
 
-    def station(self, kind: str, params: dict[str, Any], refs: Callable[[str], SourceRef]) -> None:
-        if self.facts is not None:
-            self.problems.extend(station_problems(kind, params, refs, self.facts))
-
     # -- the walk ------------------------------------------------------------------------------
     def run(self, nodes: list[StepNode], env: dict[str, Any], prefix: str,
-            context: dict[str, Any]) -> None:
+            context: dict[str, LoopValue]) -> None:
         for node in nodes:
             step_id = f"{prefix}s{node.index}"
             count = len(self.steps)
@@ -212,31 +208,34 @@ class _Expander:
         own (the step's problem is already reported)."""
         self.unknowable.update(collect_capture_names([node], {}))
 
-    def do_scalar(self, node: StepNode, env: dict[str, Any], step_id: str,
-                  context: dict[str, Any], key: str) -> None:
+    def scalar(self, node: StepNode, env: dict[str, Any]) -> tuple[bool, Any]:
         spec = STEP_SPECS[node.kind]
         ok, value = substitute(node.body, env, node.body_ref, self.problems)
         if not ok:
-            return
+            return False, None
         assert spec.scalar is not None
-        good, value = coerce_value(spec.scalar, value, node.body_ref, "", self.problems)
-        if not good:
-            return
-        params = {key: value}
-        self.station(node.kind, params, lambda _: node.body_ref)
-        self.add(f"{step_id}.{node.kind}", node.kind, params, node, context)
+        return coerce_value(spec.scalar, value, node.body_ref, "", self.problems)
 
     def do_target(self, node: StepNode, env: dict[str, Any], step_id: str,
-                  context: dict[str, Any]) -> None:
-        self.do_scalar(node, env, step_id, context, "name")
+                  context: dict[str, LoopValue]) -> None:
+        ok, value = self.scalar(node, env)
+        if ok:
+            self.add(TargetStep(f"{step_id}.target", node.where, dict(context), target=value),
+                     node)
+            self.target = value
 
     def do_note(self, node: StepNode, env: dict[str, Any], step_id: str,
-                context: dict[str, Any]) -> None:
-        self.do_scalar(node, env, step_id, context, "text")
+                context: dict[str, LoopValue]) -> None:
+        ok, value = self.scalar(node, env)
+        if ok:
+            self.add(NoteStep(f"{step_id}.note", node.where, dict(context), text=value), node)
 
     def do_wait(self, node: StepNode, env: dict[str, Any], step_id: str,
-                context: dict[str, Any]) -> None:
-        self.do_scalar(node, env, step_id, context, "seconds")
+                context: dict[str, LoopValue]) -> None:
+        ok, value = self.scalar(node, env)
+        if ok:
+            self.add(WaitStep(f"{step_id}.wait", node.where, dict(context), duration_s=value),
+                     node)
 
     def options(self, node: StepNode, env: dict[str, Any]) -> dict[str, Any] | None:
         ok, values = substitute(node.body, env, node.body_ref, self.problems)
@@ -245,15 +244,16 @@ class _Expander:
         return coerce_options(STEP_SPECS[node.kind], values, self.refs_of(node), self.problems)
 
     def do_blackbody(self, node: StepNode, env: dict[str, Any], step_id: str,
-                     context: dict[str, Any]) -> None:
-        params = self.options(node, env)
-        if params is None:
+                     context: dict[str, LoopValue]) -> None:
+        p = self.options(node, env)
+        if p is None:
             return
-        self.station("blackbody", params, self.refs_of(node))
-        self.add(f"{step_id}.blackbody", "blackbody", params, node, context)
+        self.add(BlackbodyStep(f"{step_id}.blackbody", node.where, dict(context), mode=p["mode"],
+                               setpoint=p["value"], tolerance_k=p["tolerance"],
+                               hold_s=p["hold"], timeout_s=p["timeout"]), node)
 
     def do_move(self, node: StepNode, env: dict[str, Any], step_id: str,
-                context: dict[str, Any]) -> None:
+                context: dict[str, LoopValue]) -> None:
         ok, values = substitute(node.body, env, node.body_ref, self.problems)
         if not ok:
             return
@@ -266,12 +266,11 @@ class _Expander:
             position[str(axis)] = number
         if not ok:
             return
-        params = {"position": position}
-        self.station("move", params, refs)
-        self.add(f"{step_id}.move", "move", params, node, context)
+        self.add(MoveStep(f"{step_id}.move", node.where, dict(context), position=position), node)
+        self.pose.update(position)
 
     def do_capture(self, node: StepNode, env: dict[str, Any], step_id: str,
-                   context: dict[str, Any]) -> None:
+                   context: dict[str, LoopValue]) -> None:
         params = self.options(node, env)
         if params is None:
             return
@@ -293,12 +292,12 @@ class _Expander:
         self.captures.append(name)
         self.groups.setdefault(group, []).append(name)
         self.frames_total += params["frames"]
-        self.add(f"{step_id}.capture", "capture",
-                 {"name": name, "group": group, "frames": params["frames"],
-                  "keep": params["keep"]}, node, context)
+        self.add(CaptureStep(f"{step_id}.capture", node.where, dict(context), name=name,
+                             group=group, frames=params["frames"], keep=params["keep"],
+                             target=self.target, pose=dict(self.pose)), node)
 
     def do_analyze(self, node: StepNode, env: dict[str, Any], step_id: str,
-                   context: dict[str, Any]) -> None:
+                   context: dict[str, LoopValue]) -> None:
         params = self.options(node, env)
         if params is None:
             return
@@ -334,10 +333,27 @@ class _Expander:
                 ok = False
         if not ok:
             return
-        self.station("analyze", params, refs)
-        self.add(f"{step_id}.analyze", "analyze",
-                 {"analysis": params["analysis"], "captures": params["captures"],
-                  "instances": instances, "options": params["options"]}, node, context)
+        options = params["options"]
+        option_refs: dict[str, SourceRef] = {}
+        plain: dict[str, Any] = {}
+        raw_options = node.body.get("options") if isinstance(node.body, dict) else None
+        for key, value in options.items():
+            where = (raw_options.ref_of(key) if isinstance(raw_options, MarkedDict)
+                     else refs("options"))
+            if isinstance(value, (dict, list)) or value is None:
+                self.problems.append(Problem(where, f"analysis option '{key}' must be a single "
+                                                    f"value, not {value!r}",
+                                             "for example mode: grid"))
+                ok = False
+                continue
+            option_refs[str(key)] = where
+            plain[str(key)] = value
+        if not ok:
+            return
+        self.add(AnalyzeStep(f"{step_id}.analyze", node.where, dict(context),
+                             analysis=params["analysis"], captures=tuple(params["captures"]),
+                             instances=tuple(instances), options=plain,
+                             option_refs=option_refs, captures_ref=refs("captures")), node)
 
     def loop_variable(self, name: Any, where: SourceRef, env: dict[str, Any]) -> bool:
         if not isinstance(name, str) or not NAME_PATTERN.match(name):
@@ -410,15 +426,15 @@ class _Expander:
             reach = {a: (min(v), max(v)) for a, v in axis_values.items()}
             axis_refs = (axes_raw.ref_of if isinstance(axes_raw, MarkedDict)
                          else (lambda _a: refs("axes")))
-            found = axis_problems({a: v[0] for a, v in axis_values.items()}, axis_refs,
-                                  self.facts, reach)
+            found = axis_problems(reach, axis_refs, self.facts)
             if found:
                 self.problems.extend(found)
                 return
         for i, position in enumerate(grid(axis_values, order), start=1):
             scan_id = f"{step_id}.scan[{i}]"
-            self.add(f"{scan_id}.move", "move", {"position": dict(position)}, node,
-                     {**context, **position})
+            self.add(MoveStep(f"{scan_id}.move", node.where, {**context, **position},
+                              position=dict(position)), node, check=False)
+            self.pose.update(position)
             self.run(node.children, {**env, **position}, f"{scan_id}.", {**context, **position})
 
     def axis_values(self, axis: str, spec: Any, where: SourceRef,
@@ -527,13 +543,20 @@ class Expansion:
 
 def expand_nodes(nodes: list[StepNode], parameters: dict[str, Any],
                  facts: StationFacts | None) -> Expansion:
-    """Walk the tree with the given parameter values; never raises for recipe mistakes."""
+    """Walk the tree with the given parameter values; never raises for recipe mistakes.
+
+    With station facts, the station's own checks of the whole plan (``facts.check_plan``: the
+    analyses' options and needs) run on the steps that could be expanded, so every problem of a
+    recipe comes out of this one walk.
+    """
     problems: list[Problem] = []
     walker = _Expander(facts, problems, collect_capture_names(nodes, {}))
     try:
         walker.run(nodes, dict(parameters), "", {})
     except _PlanLimit:
         pass
+    if facts is not None and facts.check_plan is not None:
+        problems.extend(facts.check_plan(walker.steps))
     unique: dict[tuple[SourceRef, str], Problem] = {}
     for p in problems:
         unique.setdefault((p.where, p.message), p)
@@ -541,23 +564,22 @@ def expand_nodes(nodes: list[StepNode], parameters: dict[str, Any],
                      list(unique.values()))
 
 
+def build_plan(name: str, description: str, file: str, parameters: dict[str, Any],
+               expansion: Expansion) -> Plan:
+    """The plan of a walk that found no problem (raises SourceError listing them otherwise)."""
+    if expansion.problems:
+        raise SourceError(expansion.problems)
+    return Plan(recipe=name, description=description, file=file, parameters=dict(parameters),
+                steps=expansion.steps, captures=expansion.captures,
+                frames_total=expansion.frames_total, groups=expansion.groups)
+
+
 class ValidatedRecipe(Protocol):
     """What expansion needs of a recipe (sequences.recipe.Recipe provides it)."""
 
-    name: str
-    description: str
-    file: str
-    parameters: dict[str, Any]
-    steps: list[StepNode]
-    facts: StationFacts | None
+    plan: Plan
 
 
 def expand(recipe: ValidatedRecipe) -> Plan:
-    """The flat plan of a validated recipe (raises SourceError if it does not validate)."""
-    result = expand_nodes(recipe.steps, recipe.parameters, recipe.facts)
-    if result.problems:
-        raise SourceError(result.problems)
-    return Plan(recipe=recipe.name, description=recipe.description, file=recipe.file,
-                parameters=dict(recipe.parameters), steps=result.steps,
-                captures=result.captures, frames_total=result.frames_total,
-                groups=result.groups)
+    """The flat plan of a validated recipe: expanded once, when the recipe was loaded."""
+    return recipe.plan

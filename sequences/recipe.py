@@ -24,7 +24,7 @@ from typing import Any, Mapping
 import yaml
 
 from sequences.facts import StationFacts
-from sequences.plan import expand_nodes
+from sequences.plan import Plan, build_plan, expand_nodes
 from sequences.steps import NAME_PATTERN, StepNode, parse_steps, suggest
 from sequences.yamlsource import (MarkedDict, MarkedList, Problem, SourceError, SourceRef,
                                   load_yaml)
@@ -36,10 +36,10 @@ TOP_LEVEL_KEYS = ("recipe", "description", "parameters", "steps")
 
 @dataclass
 class Recipe:
-    """A validated recipe: its parameters as used (defaults with overrides applied) and its steps.
+    """A validated recipe: its parameters as used (defaults with overrides applied), its steps as
+    written and its plan (expanded once, while validating).
 
-    ``facts`` are the station facts it was validated against (None: recipe-only check); the plan
-    expanded from it is checked against the same facts.
+    ``facts`` are the station facts it was validated against (None: recipe-only check).
     """
 
     name: str
@@ -48,6 +48,7 @@ class Recipe:
     parameters: dict[str, Any]
     defaults: dict[str, Any]
     steps: list[StepNode]
+    plan: Plan
     facts: StationFacts | None = None
     overrides: dict[str, Any] = field(default_factory=dict)
 
@@ -187,9 +188,13 @@ def load_recipe(path: Path | str, overrides: Mapping[str, Any] | None = None,
         problems.append(Problem(doc.ref_of("steps"), "the recipe has no steps",
                                 "list at least one step under 'steps:'"))
     nodes = parse_steps(steps_raw, doc.ref_of("steps"), problems)
-    problems.extend(expand_nodes(nodes, used, facts).problems)
+    expansion = expand_nodes(nodes, used, facts)
+    problems.extend(expansion.problems)
     if problems:
         raise SourceError(problems)
-    return Recipe(name=name.strip(), description=str(description).strip(), file=file,
-                  parameters=used, defaults=defaults, steps=nodes, facts=facts,
+    name = name.strip()
+    description = str(description).strip()
+    return Recipe(name=name, description=description, file=file, parameters=used,
+                  defaults=defaults, steps=nodes,
+                  plan=build_plan(name, description, file, used, expansion), facts=facts,
                   overrides=dict(overrides or {}))

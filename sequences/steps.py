@@ -13,9 +13,11 @@ import difflib
 import math
 import re
 from dataclasses import dataclass, field
+from collections.abc import Mapping
 from typing import Any, Callable
 
 from sequences.facts import StationFacts
+from sequences.plansteps import AnalyzeStep, BlackbodyStep, MoveStep, PlanStep, TargetStep
 from sequences.yamlsource import MarkedDict, MarkedList, Problem, SourceRef, ref_in
 
 __all__ = [
@@ -331,56 +333,42 @@ def coerce_options(spec: StepSpec, values: dict[str, Any], refs: Callable[[str],
     return out if ok else None
 
 
-def _fmt_range(low: float, high: float, unit: str = "") -> str:
-    return f"{low:g} .. {high:g}{unit}"
-
-
-def station_problems(kind: str, params: dict[str, Any], refs: Callable[[str], SourceRef],
+def station_problems(step: PlanStep, refs: Callable[[str], SourceRef],
                      facts: StationFacts) -> list[Problem]:
-    """Check one resolved step against the station: targets, limits, axes and analyses."""
+    """Check one resolved step against the station: targets, limits, axes and analyses.
+
+    ``refs`` gives where each option of the step is written (``refs("value")``, ``refs(axis)``).
+    The limits themselves are the station's (``facts.limits``): one answer everywhere.
+    """
     found: list[Problem] = []
-    if kind == "blackbody":
-        absolute = params["mode"] == "absolute"
-        low, high = facts.blackbody_absolute_c if absolute else facts.blackbody_difference_k
-        value = params["value"]
-        if not low <= value <= high:
-            unit = " C" if absolute else " K"
-            found.append(Problem(refs("value"),
-                                 f"blackbody {params['mode']} {value:g}{unit} is outside the "
-                                 f"station's limits {_fmt_range(low, high, unit)}",
-                                 f"choose a value from {low:g} to {high:g}"))
-    elif kind == "target":
-        if params["name"] not in facts.targets:
-            found.append(Problem(refs("name"), f"target '{params['name']}' is not on the wheel",
+    if isinstance(step, BlackbodyStep):
+        refusal = facts.limits.setpoint_problem(step.mode, step.setpoint)
+        if refusal is not None:
+            found.append(Problem(refs("value"), refusal.message, refusal.hint))
+    elif isinstance(step, TargetStep):
+        if step.target not in facts.targets:
+            found.append(Problem(refs("name"), f"target '{step.target}' is not on the wheel",
                                  f"the wheel holds: {', '.join(sorted(facts.targets))}"))
-    elif kind == "move":
-        found.extend(axis_problems(params["position"], refs, facts))
-    elif kind == "analyze":
-        if params["analysis"] not in facts.analyses:
-            found.append(Problem(refs("analysis"), f"unknown analysis '{params['analysis']}'",
-                                 suggest(params["analysis"], facts.analyses, "analyses")))
+    elif isinstance(step, MoveStep):
+        found.extend(axis_problems({a: (v, v) for a, v in step.position.items()}, refs, facts))
+    elif isinstance(step, AnalyzeStep):
+        if step.analysis not in facts.analyses:
+            found.append(Problem(refs("analysis"), f"unknown analysis '{step.analysis}'",
+                                 suggest(step.analysis, facts.analyses, "analyses")))
     return found
 
 
-def axis_problems(position: dict[str, Any], refs: Callable[[str], SourceRef],
-                  facts: StationFacts, reach: dict[str, tuple[float, float]] | None = None
-                  ) -> list[Problem]:
+def axis_problems(reach: Mapping[str, tuple[float, float]], refs: Callable[[str], SourceRef],
+                  facts: StationFacts) -> list[Problem]:
     """Unknown axes and positions outside soft limits.
 
-    ``reach`` gives, per axis, the lowest and highest value a scan will visit, so that a scan of
-    hundreds of positions gives one message per axis rather than one per position.
+    ``reach`` gives, per axis, the lowest and highest value the step (a move, or a whole scan)
+    visits, so that a scan of hundreds of positions gives one message per axis rather than one
+    per position.
     """
     found: list[Problem] = []
-    for axis, value in position.items():
-        if axis not in facts.stage_axes:
-            found.append(Problem(refs(axis), f"the stage has no axis '{axis}'",
-                                 suggest(axis, facts.stage_axes, "axes")))
-            continue
-        low, high = facts.stage_axes[axis]
-        lo, hi = reach[axis] if reach else (value, value)
-        if lo < low or hi > high:
-            bad = lo if lo < low else hi
-            found.append(Problem(refs(axis), f"{axis} = {bad:g} is outside the soft limits "
-                                             f"{_fmt_range(low, high)}",
-                                 f"keep {axis} between {low:g} and {high:g}"))
+    for axis, (low, high) in reach.items():
+        refusal = facts.limits.position_problem(axis, low, high)
+        if refusal is not None:
+            found.append(Problem(refs(axis), refusal.message, refusal.hint))
     return found

@@ -1,10 +1,12 @@
-"""Re-run the distortion analysis after the fact: on a finished run folder, or on one frame.
+"""Re-run an analysis after the fact: on a finished run folder, or distortion on one frame.
 
 Why: the analysis improves after a run (a better fit, a corrected target file) and frames arrive
 from other labs. Re-analysis uses the copies of the station, UUT and recipe files kept in the run
 folder's inputs/, so the answer does not drift when the originals are edited later; it never
-touches an instrument. The computation is the same code path a live run takes
-(station.analyses.builtin.run_distortion); the standalone path uses analysis.distortion_frames directly.
+touches an instrument. It runs the registered analysis (station.analyses.registry), the same code
+a live run takes, over a site whose captures are the run's and whose results go to a new version
+(RUN/reanalysis/<n>/results and plots) so the run's own results stay as they were recorded;
+``replace`` writes over them instead, ``out`` writes to a folder outside any run folder.
 """
 
 from __future__ import annotations
@@ -12,7 +14,6 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import tifffile
@@ -22,47 +23,48 @@ from analysis.distortion_plots import write_distortion_plots
 from analysis.results_io import (distortion_summary, write_distortion_results,
                                  write_undistortion_map)
 from analysis.targets import PinholeGrid
+from analysis.verdicts import Verdict
 from sequences.plan import expand
+from sequences.plansteps import AnalyzeStep, OptionValue
 from sequences.recipe import load_recipe
-from station.analyses.builtin import ANALYSES, run_distortion
+from station.analyses.builtin import builtin_registry
+from station.analyses.plan_check import recipe_facts
+from station.analyses.registry import AnalysisContext, AnalysisFailed, JsonValue, Registry
+from station.analyses.site import FolderSite
 from station.inputs.config import StationConfig, load_station
 from station.inputs.geometry_file import load_geometry
-from station.record.runfolder import RunFolder, RunFolderError
+from station.record.runfolder import RunFolder, RunFolderError, is_run_folder
 from station.inputs.uut_file import load_uut
-from station.engine.waiting import StepFailed
+
+__all__ = ["Reanalysis", "analyze_run_folder", "analyze_frame_file", "read_frame",
+           "REANALYSIS_DIR"]
+
+REANALYSIS_DIR = "reanalysis"
 
 _SHORT_KEYS = ("max_distortion_percent", "classification", "boresight_offset_px", "skew_deg",
                "n_defects", "defect_labels")
 
 
 @dataclass
-class _ResultsTarget:
-    """The run as seen by an analysis: frames from the run, results and plots where asked.
+class Reanalysis:
+    """What a re-analysis wrote and found: per analyze step its summary, all verdicts, where."""
 
-    Registration only lists the files: re-analysis must not append to the run's event log
-    (the manifest's checksums cover it).
-    """
-
-    path: Path
+    analysis: str
     results_dir: Path
     plots_dir: Path
-    written: list[Path] = field(default_factory=list)
+    summaries: dict[str, dict[str, JsonValue]] = field(default_factory=dict)
+    verdicts: list[Verdict] = field(default_factory=list)
+    files: list[Path] = field(default_factory=list)
 
-    def register(self, path: Path | str, kind: str = "result") -> dict[str, Any]:
-        self.written.append(Path(path))
-        return {"path": str(path), "kind": kind}
-
-
-@dataclass(frozen=True)
-class ReanalysisContext:
-    """The light context an analysis needs: the run (frames), the station and the UUT."""
-
-    run: _ResultsTarget
-    station: StationConfig
-    uut: Any
+    @property
+    def summary(self) -> dict[str, JsonValue]:
+        """The one step's summary (several steps: one summary per step id)."""
+        if len(self.summaries) == 1:
+            return next(iter(self.summaries.values()))
+        return dict(self.summaries)  # type: ignore[arg-type]
 
 
-def _manifest_overrides(run_path: Path) -> dict[str, Any]:
+def _manifest_overrides(run_path: Path) -> dict[str, OptionValue]:
     try:
         data = json.loads((run_path / "manifest.json").read_text(encoding="utf-8"))
     except (OSError, ValueError):
@@ -92,20 +94,50 @@ def _load_station_copy(run: RunFolder) -> StationConfig:
         raise
 
 
-def _short(summary: dict[str, Any], model: dict[str, Any]) -> dict[str, Any]:
-    out = {k: summary[k] for k in _SHORT_KEYS if k in summary}
-    for key in ("k1", "k2", "k3", "p1", "p2", "fx_px", "fy_px", "cx_px", "cy_px"):
-        if key in model:
-            out[key] = model[key]
-    return out
+def _inside_a_run_folder(path: Path) -> Path | None:
+    for folder in (path, *path.parents):
+        if is_run_folder(folder):
+            return folder
+    return None
 
 
-def analyze_run_folder(path: str | Path, out: str | Path | None = None) -> dict[str, Any]:
-    """Re-run every distortion `analyze` step of a finished run; write to `out` or its results/.
+def _next_version(run: RunFolder) -> Path:
+    root = run.path / REANALYSIS_DIR
+    n = 1
+    while (root / str(n)).exists():
+        n += 1
+    return root / str(n)
 
-    Returns the short summary of the step (several steps: one summary per step id). Raises
-    ValueError (file and what to do) if the folder, its inputs or its captures are unusable.
+
+def _destination(run: RunFolder, out: Path | None, replace: bool) -> tuple[Path, Path]:
+    if replace and out is not None:
+        raise ValueError("give either --out or --replace, not both")
+    if replace:
+        return run.results_dir, run.plots_dir
+    if out is not None:
+        out = Path(out).resolve()
+        owner = _inside_a_run_folder(out)
+        if owner is not None:
+            raise ValueError(f"{out} is inside the run folder {owner}; a run folder is evidence "
+                             "and only nightbench writes into it. Leave out --out (results go "
+                             "to a new RUN/reanalysis/<n>/), or give a folder outside any run")
+        return out, out / "plots"
+    version = _next_version(run)
+    return version / "results", version / "plots"
+
+
+def analyze_run_folder(path: str | Path, analysis: str = "distortion",
+                       out: str | Path | None = None, replace: bool = False,
+                       registry: Registry | None = None) -> Reanalysis:
+    """Re-run every `analyze` step of ``analysis`` in a finished run.
+
+    Results go to a new version ``RUN/reanalysis/<n>/`` unless ``replace`` (the run's own
+    results/ and plots/) or ``out`` (a folder outside any run folder). Raises ValueError (file
+    and what to do) if the folder, its inputs or its captures are unusable.
     """
+    registry = registry or builtin_registry()
+    if analysis not in registry:
+        raise ValueError(f"no analysis named {analysis!r}; known: {', '.join(sorted(registry))}")
     try:
         run = RunFolder.open(path)
     except RunFolderError as exc:
@@ -113,33 +145,47 @@ def analyze_run_folder(path: str | Path, out: str | Path | None = None) -> dict[
     station = _load_station_copy(run)
     uut = load_uut(_input_copy(run, "uut"))
     recipe = load_recipe(_input_copy(run, "recipe"), overrides=_manifest_overrides(run.path),
-                         facts=station.facts(frozenset(ANALYSES)))
+                         facts=recipe_facts(station, registry))
     steps = [s for s in expand(recipe).steps
-             if s.kind == "analyze" and s.params.get("analysis") == "distortion"]
+             if isinstance(s, AnalyzeStep) and s.analysis == analysis]
     if not steps:
-        raise ValueError(f"{run.path}: its recipe has no distortion analysis step; nothing to "
+        raise ValueError(f"{run.path}: its recipe has no {analysis} analysis step; nothing to "
                          f"re-analyse")
-    results_dir = Path(out) if out is not None else run.results_dir
-    plots_dir = results_dir / "plots" if out is not None else run.plots_dir
-    results: dict[str, dict[str, Any]] = {}
+    results_dir, plots_dir = _destination(run, Path(out) if out is not None else None, replace)
+    report = Reanalysis(analysis, results_dir, plots_dir)
+    context = AnalysisContext(station, uut, _run_date(run))
     for step in steps:
-        target_dir = results_dir if len(steps) == 1 else results_dir / step.id
-        sink = _ResultsTarget(run.path, target_dir,
-                              plots_dir if len(steps) == 1 else plots_dir / step.id)
-        sink.results_dir.mkdir(parents=True, exist_ok=True)
-        sink.plots_dir.mkdir(parents=True, exist_ok=True)
-        options = dict(step.params.get("options", {}) or {})
-        options["results_dir"] = sink.results_dir
-        rerun = type(step)(id=step.id, kind=step.kind, params={**step.params, "options": options},
-                           source=step.source, context=step.context)
+        sub = "" if len(steps) == 1 else step.id
+        site = FolderSite(run.path, results_dir / sub if sub else results_dir,
+                          plots_dir / sub if sub else plots_dir, run_id=run.path.name,
+                          register=run.register if replace else None)
         try:
-            run_distortion(rerun, ReanalysisContext(run=sink, station=station, uut=uut))
-        except (StepFailed, KeyError, OSError) as exc:
+            outcome = registry[analysis].run(site, step, context)
+        except (AnalysisFailed, KeyError, OSError) as exc:
             raise ValueError(f"{run.path}: step {step.id} ({step.source}) could not be "
                              f"re-analysed: {exc}") from None
-        written = json.loads((sink.results_dir / "distortion.json").read_text(encoding="utf-8"))
-        results[step.id] = _short(written["summary"], written["model"])
-    return next(iter(results.values())) if len(results) == 1 else results
+        report.summaries[step.id] = dict(outcome.summary)
+        report.verdicts.extend(outcome.verdicts)
+        report.files.extend(site.written)
+    if replace:
+        run.close()
+    return report
+
+
+def _run_date(run: RunFolder) -> str:
+    try:
+        info = json.loads((run.path / "run-folder.json").read_text(encoding="utf-8"))
+        return str(info.get("created_utc", ""))[:10]
+    except (OSError, ValueError):
+        return ""
+
+
+def _short(summary: dict[str, JsonValue], model: dict[str, JsonValue]) -> dict[str, JsonValue]:
+    out = {k: summary[k] for k in _SHORT_KEYS if k in summary}
+    for key in ("k1", "k2", "k3", "p1", "p2", "fx_px", "fy_px", "cx_px", "cy_px"):
+        if key in model:
+            out[key] = model[key]
+    return out
 
 
 def read_frame(frame: str | Path, shape: tuple[int, int]) -> np.ndarray:
@@ -169,7 +215,7 @@ def read_frame(frame: str | Path, shape: tuple[int, int]) -> np.ndarray:
 
 
 def analyze_frame_file(frame: str | Path, geometry: str | Path,
-                       out: str | Path) -> dict[str, Any]:
+                       out: str | Path) -> dict[str, JsonValue]:
     """Grid-mode distortion of one TIFF frame described by a geometry file; files go in `out`.
 
     Writes distortion.json, distortion_points.csv and the PNG plots into `out` and returns the

@@ -3,13 +3,16 @@
 from __future__ import annotations
 
 import argparse
+from collections.abc import Mapping
 from pathlib import Path
 
 from rich.console import Console
 
 from drivers.clock import SimClock
 from drivers.errors import InstrumentError
+from analysis.verdicts import FAIL, Verdict
 from station.cli import exitcodes
+from station.cli.results_table import print_results
 from station.engine.abort import OperatorRequests, abort_on_signals
 from station.record.manifest import Manifest
 from station.formatting import format_duration
@@ -40,7 +43,15 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
         manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
     console.print(f"run folder: {run.path}", highlight=False, markup=False)
-    return exitcodes.BY_STATE.get(outcome.state, exitcodes.FAULTED)
+    return _finish(console, outcome.state, outcome.verdicts)
+
+
+def _finish(console: Console, state: str, verdicts: tuple[Verdict, ...]) -> int:
+    """The results table of a completed run, and its exit code (failed unit: its own code)."""
+    if state != "complete":
+        return exitcodes.BY_STATE.get(state, exitcodes.FAULTED)
+    print_results(console, verdicts, "what the run found")
+    return exitcodes.UUT_FAILED if any(v.status == FAIL for v in verdicts) else exitcodes.OK
 
 
 def cmd_check(args: argparse.Namespace, console: Console) -> int:
@@ -50,7 +61,7 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
                          overrides=args.overrides)
     per_step = dict(inputs.estimate.per_step)
-    rows = [(i, s.id, s.kind, _brief(s.params), f"{per_step.get(s.id, 0.0):.1f}")
+    rows = [(i, s.id, s.kind, _brief(s.parameters()), f"{per_step.get(s.id, 0.0):.1f}")
             for i, s in enumerate(inputs.plan.steps)]
     print_table(console, f"plan of {inputs.plan.recipe} on {inputs.station.name}",
                 ["#", "step id", "kind", "parameters", "est. s"], rows)
@@ -124,22 +135,37 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
     from station.analyses.reanalyze import analyze_frame_file, analyze_run_folder
 
     if args.frame is not None:
+        if args.analysis != "distortion":
+            console.print("--frame works with distortion only (one grid frame); other analyses "
+                          "need a RUN_FOLDER")
+            return exitcodes.INVALID
         if args.geometry is None:
             console.print("--frame needs --geometry (a file describing UUT, collimator and "
                           "target; see the README)")
             return exitcodes.INVALID
         out = args.out or Path(args.frame).with_suffix("").parent / "distortion_out"
         summary = analyze_frame_file(args.frame, args.geometry, out)
-    elif args.run_folder is not None:
-        summary = analyze_run_folder(args.run_folder, args.out)
-        out = args.out or Path(args.run_folder) / "results"
-    else:
+        _print_summary(console, summary)
+        console.print(f"results in {out}", highlight=False, markup=False)
+        return exitcodes.OK
+    if args.run_folder is None:
         console.print("give a RUN_FOLDER, or --frame TIFF --geometry FILE")
         return exitcodes.INVALID
+    report = analyze_run_folder(args.run_folder, args.analysis, args.out, args.replace)
+    for step_id, summary in report.summaries.items():
+        if len(report.summaries) > 1:
+            console.print(f"{step_id}:", highlight=False, markup=False)
+        _print_summary(console, summary)
+    console.print(f"results in {report.results_dir}", highlight=False, markup=False)
+    print_results(console, report.verdicts, f"{args.analysis}: what it found")
+    return (exitcodes.UUT_FAILED if any(v.status == FAIL for v in report.verdicts)
+            else exitcodes.OK)
+
+
+def _print_summary(console: Console, summary: Mapping[str, object]) -> None:
     for key, value in summary.items():
-        console.print(f"{key}: {value}", highlight=False, markup=False)
-    console.print(f"results in {out}", highlight=False, markup=False)
-    return exitcodes.OK
+        text = f"{value:.6g}" if isinstance(value, float) else str(value)
+        console.print(f"{key}: {text}", highlight=False, markup=False)
 
 
 def cmd_resume(args: argparse.Namespace, console: Console) -> int:
@@ -149,7 +175,13 @@ def cmd_resume(args: argparse.Namespace, console: Console) -> int:
                                     console=_console_for(console, args.plain))
     console.print(f"run {state}: {cause}", highlight=False, markup=False)
     console.print(f"run folder: {path}", highlight=False, markup=False)
-    return exitcodes.BY_STATE.get(state, exitcodes.FAULTED)
+    verdicts: tuple[Verdict, ...] = ()
+    if state == "complete":
+        from station.record.runfolder import RunFolder
+        from station.record.verdicts_file import verdicts_from_journal
+
+        verdicts = tuple(verdicts_from_journal(RunFolder.open(path).journal.completed()))
+    return _finish(console, state, verdicts)
 
 
 def cmd_verify(args: argparse.Namespace, console: Console) -> int:

@@ -5,7 +5,8 @@
     nightbench recipes                     list built-in recipes
     nightbench bench [--station FILE]      connect to every instrument and show identity and state
     nightbench drivers                     list drivers with kind, package and settings
-    nightbench analyze distortion RUN_FOLDER | --frame TIFF --geometry FILE [--out DIR]
+    nightbench analyze NAME RUN_FOLDER [--out DIR | --replace]   re-run a registered analysis
+    nightbench analyze distortion --frame TIFF --geometry FILE [--out DIR]
     nightbench resume RUN_FOLDER [--force]
     nightbench verify RUN_FOLDER
 
@@ -75,14 +76,20 @@ def build_parser() -> argparse.ArgumentParser:
 
     sub.add_parser("drivers", help="list the drivers this installation knows")
 
-    analyze = sub.add_parser("analyze", help="re-run an analysis")
-    analyze.add_argument("analysis", choices=["distortion"])
+    from station.analyses.builtin import builtin_registry
+
+    analyze = sub.add_parser("analyze", help="re-run an analysis on a finished run (results to "
+                             "a new RUN/reanalysis/<n>/ unless --replace or --out)")
+    analyze.add_argument("analysis", choices=sorted(builtin_registry()))
     analyze.add_argument("run_folder", nargs="?", type=Path, default=None)
     analyze.add_argument("--frame", type=Path, default=None,
                          help="a standalone TIFF frame (with --geometry)")
     analyze.add_argument("--geometry", type=Path, default=None,
                          help="geometry file describing UUT, collimator and target")
-    analyze.add_argument("--out", type=Path, default=None, help="output folder")
+    analyze.add_argument("--out", type=Path, default=None,
+                         help="output folder (outside any run folder)")
+    analyze.add_argument("--replace", action="store_true",
+                         help="write over the run's own results/ and plots/")
 
     resume = sub.add_parser("resume", help="continue an interrupted run")
     resume.add_argument("run_folder", type=Path)

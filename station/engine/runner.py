@@ -5,6 +5,7 @@ This is the glue the command line calls. Everything it needs is passed in explic
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -16,9 +17,12 @@ from drivers.errors import InstrumentError
 from sequences.estimate import Estimate, estimate
 from sequences.library import find_recipe
 from sequences.plan import Plan, expand
+from sequences.plansteps import BlackbodyStep, MoveStep
 from sequences.recipe import load_recipe
 from station.engine.abort import OperatorRequests, abort_on_signals
-from station.analyses.builtin import ANALYSES
+from station.analyses.builtin import builtin_registry
+from station.analyses.plan_check import recipe_facts
+from station.analyses.registry import Registry
 from station.record.atomic import check_free_space
 from station.engine.bench import Bench, open_bench
 from station.formatting import format_duration
@@ -27,6 +31,7 @@ from station.engine.sequencer import PreflightFailed, RunOutcome, Sequencer
 from station.engine.steps import StepContext
 from station.engine.timing import timing_model
 from station.inputs.uut_file import load_uut
+from station.record.verdicts_file import verdicts_from_journal, write_verdicts
 
 DEMO_UUT = BUILTIN_DIR / "demo_uut.yaml"
 DISK_MARGIN_BYTES = 200 * 1024 * 1024
@@ -44,6 +49,7 @@ class Inputs:
     plan: Plan
     estimate: Estimate
     overrides: Mapping[str, Any] = field(default_factory=dict)
+    analyses: Registry = field(default_factory=builtin_registry)
 
 
 def load_inputs(recipe: str | Path, *, station_path: Path | None, uut_path: Path | None,
@@ -53,13 +59,14 @@ def load_inputs(recipe: str | Path, *, station_path: Path | None, uut_path: Path
     uut_file = Path(uut_path) if uut_path is not None else DEMO_UUT
     uut = load_uut(uut_file)
     recipe_path = find_recipe(recipe)
+    registry = builtin_registry()
     parsed = load_recipe(recipe_path, overrides=dict(overrides),
-                         facts=station.facts(frozenset(ANALYSES)))
+                         facts=recipe_facts(station, registry))
     plan = expand(parsed)
     timing = timing_model(station, frame_rate_hz=uut.frame_rate_hz,
                           frame_shape=(uut.height, uut.width))
     return Inputs(station, uut, uut_file, recipe_path, parsed, plan, estimate(plan, timing),
-                  dict(overrides))
+                  dict(overrides), registry)
 
 
 def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
@@ -87,20 +94,20 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
                                   "resume with --force if the replacement is intended")
         bench.identities[role] = identity
         emit("preflight.identity", instrument=role, identity=identity)
-    limits = inputs.station.blackbody_limits
+    limits = inputs.station.limits
     for step in inputs.plan.steps:
-        if step.kind == "blackbody":
-            lo, hi = ((limits.min_c, limits.max_c) if step.params["mode"] == "absolute"
-                      else (limits.min_difference_k, limits.max_difference_k))
-            if not lo <= float(step.params["value"]) <= hi:
-                raise PreflightFailed(f"{step.id}: blackbody setpoint {step.params['value']} "
-                                      f"outside the station limits [{lo}, {hi}]")
-        if step.kind == "move":
-            for axis, value in step.params["position"].items():
-                if axis not in inputs.station.axes or not inputs.station.axes[axis].contains(
-                        float(value)):
-                    raise PreflightFailed(f"{step.id}: stage {axis}={value} outside the soft "
-                                          "limits")
+        refusals = []
+        if isinstance(step, BlackbodyStep):
+            refusals.append(limits.setpoint_problem(step.mode, step.setpoint))
+        elif isinstance(step, MoveStep):
+            refusals.extend(limits.position_problem(a, v) for a, v in step.position.items())
+        for refusal in refusals:
+            if refusal is not None:
+                raise PreflightFailed(f"{step.id} ({step.source}): {refusal.message}; "
+                                      f"{refusal.hint}")
+    for warning in inputs.estimate.warnings:
+        emit("preflight.warning", step=warning.step_id, text=str(warning))
+        console.log("warning", str(warning))
     try:
         check_free_space(run_dir, int(inputs.estimate.bytes), DISK_MARGIN_BYTES)
     except OSError as exc:
@@ -138,7 +145,7 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
                             fault_plan=fault_plan) as bench:
                 ctx = StepContext(bench=bench, station=inputs.station, uut=inputs.uut, run=run,
                                   clock=clock, requests=requests, emit=emit, log=log,
-                                  analyses=ANALYSES)
+                                  analyses=inputs.analyses)
                 sequencer = Sequencer(
                     inputs.plan, ctx, journal=run.journal, console=console,
                     preflight=lambda: preflight(inputs, bench, run.path, emit, console,
@@ -147,6 +154,10 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
                 outcome = sequencer.execute()
                 if manifest is not None:
                     manifest.plan["instruments"] = dict(bench.identities)
+                if outcome.state == "complete":
+                    verdicts = tuple(verdicts_from_journal(run.journal.completed()))
+                    run.register(write_verdicts(run.results_dir, inputs.uut, verdicts))
+                    outcome = dataclasses.replace(outcome, verdicts=verdicts)
                 return outcome
         except InstrumentError as exc:
             emit("state", source="idle", dest="faulted", cause=str(exc))

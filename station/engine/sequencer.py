@@ -19,6 +19,8 @@ from station.engine.machine import RunStatus, build_machine
 from station.engine.safing import make_safe
 from station.engine.steps import STEP_HANDLERS, StepContext, StepHandler
 from station.engine.waiting import StepFailed
+from analysis.verdicts import Verdict
+from sequences.plansteps import PlanStep
 
 RESTORE_KINDS = ("blackbody", "target", "move")
 READINGS_REFRESH_S = 1.0  # real seconds between console readings while a step waits
@@ -35,12 +37,11 @@ class RunOutcome:
     steps_done: int
     steps_total: int
     safing_problems: tuple[str, ...] = ()
+    verdicts: tuple[Verdict, ...] = ()  # every verdict of the run (complete runs only)
 
 
-def describe(step: Any) -> str:
-    params = ", ".join(f"{k}={v}" for k, v in step.params.items()
-                       if k not in ("captures_resolved",))
-    return f"{step.kind} {params}"[:120]
+def describe(step: PlanStep) -> str:
+    return step.describe()[:120]
 
 
 class Sequencer:

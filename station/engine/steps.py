@@ -1,23 +1,41 @@
 """One small handler per kind of plan step, dispatched through a registry.
 
-Each handler takes the step and the run context, does its job through the driver interfaces and
-returns a small dict that goes into the journal (what resume needs to know the step is done).
-A new step kind is a new function here plus its entry in `STEP_HANDLERS` (and its schema in
-sequences/steps.py).
+Each handler takes its typed step (sequences.plansteps) and the run context, does its job through
+the driver interfaces and returns a small dict that goes into the journal (what resume needs to
+know the step is done). A new step kind is a new function here plus its entry in
+`STEP_HANDLERS` (see DEVELOPERS.md for the other places).
 """
 
 from __future__ import annotations
 
+import datetime as _dt
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Protocol
 
+from analysis.uut import UutSpec
+from analysis.verdicts import Verdict
 from drivers.clock import Clock
+from drivers.errors import LimitError
 from drivers.interfaces import Frame
+from sequences.plansteps import (AnalyzeStep, BlackbodyStep, CaptureStep, MoveStep, NoteStep,
+                                 PlanStep, TargetStep, WaitStep)
+from station.analyses.registry import AnalysisContext, AnalysisFailed, Registry
+from station.analyses.site import FolderSite
 from station.engine.abort import OperatorRequests
 from station.engine.bench import Bench
 from station.inputs.config import StationConfig
 from station.engine.waiting import SettleCriterion, StepFailed, wait_settled, wait_until
+from station.record.frame_store import CaptureWriter
+from station.record.runfolder import RunFolder
+
+JournalData = dict[str, object]
+
+
+class Emit(Protocol):
+    """Append one event to the run's log (station.record.events.EventLog.emit)."""
+
+    def __call__(self, type: str, **fields: object) -> object: ...  # noqa: A002
 
 POLL_S = 1.0
 WHEEL_TIMEOUT_S = 120.0
@@ -45,45 +63,52 @@ class StepContext:
 
     bench: Bench
     station: StationConfig
-    uut: Any
-    run: Any  # station.record.runfolder.RunFolder
+    uut: UutSpec
+    run: RunFolder
     clock: Clock
     requests: OperatorRequests
-    emit: Callable[..., None]
+    emit: Emit
     log: Callable[[str, str], None]
     hold: Callable[[str], None] = lambda cause: None      # the sequencer moves to held ...
     release: Callable[[str], None] = lambda cause: None   # ... and back to running
     guard: BlackbodyGuard | None = None
     current_target: str | None = None
     last_counter: int | None = None  # last accepted frame counter, across captures (repeats)
-    analyses: Mapping[str, Callable[..., dict]] = field(default_factory=dict)
+    analyses: Registry = field(default_factory=lambda: Registry([]))
     poll_s: float = POLL_S
     tick: Callable[[], None] = lambda: None  # live-readings refresh while waiting
+    verdicts: list[Verdict] = field(default_factory=list)  # judged by this session's analyses
 
 
-def run_blackbody(step: Any, ctx: StepContext) -> dict:
-    p = step.params
+def _refuse(refusal: object | None) -> None:
+    """Raise LimitError for a refused setpoint or position: nothing has been sent."""
+    if refusal is not None:
+        message = getattr(refusal, "message", str(refusal))
+        hint = getattr(refusal, "hint", "")
+        raise LimitError(f"{message}; nothing was sent" + (f" ({hint})" if hint else ""))
+
+
+def run_blackbody(step: BlackbodyStep, ctx: StepContext) -> JournalData:
+    _refuse(ctx.station.limits.setpoint_problem(step.mode, step.setpoint))
     bb = ctx.bench.blackbody
-    mode = p["mode"]
-    value = float(p["value"])
-    bb.set_mode(mode)
-    if mode == "difference":
-        bb.set_difference(value)
+    bb.set_mode(step.mode)
+    if step.mode == "difference":
+        bb.set_difference(step.setpoint)
     else:
-        bb.set_temperature(value)
-    criterion = SettleCriterion(value, float(p["tolerance"]), float(p["hold"]),
-                                float(p["timeout"]))
-    guard = BlackbodyGuard(mode, criterion)
+        bb.set_temperature(step.setpoint)
+    criterion = SettleCriterion(step.setpoint, step.tolerance_k, step.hold_s, step.timeout_s)
+    guard = BlackbodyGuard(step.mode, criterion)
     reading = wait_settled(ctx.clock, ctx.requests, lambda: guard.reading(ctx.bench), criterion,
-                           poll_s=ctx.poll_s, what=f"blackbody ({mode} {value:g})",
+                           poll_s=ctx.poll_s, what=f"blackbody ({step.mode} {step.setpoint:g})",
                            on_poll=ctx.tick)
     ctx.guard = guard
-    ctx.emit("blackbody.settled", step=step.id, mode=mode, setpoint=value, reading=reading)
-    return {"mode": mode, "setpoint": value, "reading": reading}
+    ctx.emit("blackbody.settled", step=step.id, mode=step.mode, setpoint=step.setpoint,
+             reading=reading)
+    return {"mode": step.mode, "setpoint": step.setpoint, "reading": reading}
 
 
-def run_target(step: Any, ctx: StepContext) -> dict:
-    name = step.params["name"]
+def run_target(step: TargetStep, ctx: StepContext) -> JournalData:
+    name = step.target
     wheel = ctx.bench.wheel
     slot = wheel.select(name)
     wait_until(ctx.clock, ctx.requests, lambda: not wheel.is_moving(),
@@ -97,8 +122,10 @@ def run_target(step: Any, ctx: StepContext) -> dict:
     return {"target": name, "slot": slot}
 
 
-def run_move(step: Any, ctx: StepContext) -> dict:
-    targets = {a: float(v) for a, v in step.params["position"].items()}
+def run_move(step: MoveStep, ctx: StepContext) -> JournalData:
+    targets = {a: float(v) for a, v in step.position.items()}
+    for axis, value in targets.items():
+        _refuse(ctx.station.limits.position_problem(axis, value))
     stage = ctx.bench.stage
     stage.move_to(targets)
     wait_until(ctx.clock, ctx.requests, lambda: not stage.is_moving(),
@@ -112,13 +139,13 @@ def run_move(step: Any, ctx: StepContext) -> dict:
     return {"positions": reached}
 
 
-def run_note(step: Any, ctx: StepContext) -> dict:
-    ctx.log("info", str(step.params["text"]))
+def run_note(step: NoteStep, ctx: StepContext) -> JournalData:
+    ctx.log("info", step.text)
     return {}
 
 
-def run_wait(step: Any, ctx: StepContext) -> dict:
-    seconds = float(step.params["seconds"])
+def run_wait(step: WaitStep, ctx: StepContext) -> JournalData:
+    seconds = step.duration_s
     end = ctx.clock.now() + seconds
     while ctx.clock.now() < end:
         ctx.requests.check()
@@ -153,10 +180,9 @@ def _frame_problem(frame: Frame, shape: tuple[int, int], last: int | None) -> st
     return None
 
 
-def run_capture(step: Any, ctx: StepContext) -> dict:
+def run_capture(step: CaptureStep, ctx: StepContext) -> JournalData:
     """Grab N good frames into the run folder, retaking the whole capture if the guard fails."""
-    p = step.params
-    count = int(p["frames"])
+    count = step.frames
     attempts = 0
     while True:
         attempts += 1
@@ -165,25 +191,25 @@ def run_capture(step: Any, ctx: StepContext) -> dict:
             _wait_for_guard(ctx, step.id, value)
             continue
         writer = ctx.run.new_capture(
-            step.id, p["name"], p.get("keep", "average"), expected_count=count,
-            extra={"group": p.get("group"), "target": ctx.current_target,
+            step.id, step.name, step.keep, expected_count=count,
+            extra={"group": step.group, "target": ctx.current_target,
                    "readings_start": ctx.bench.readings()})
         outcome = _grab_into(step, ctx, writer, count)
         if outcome is None:
             writer.extra["readings_end"] = ctx.bench.readings()
             record = writer.finish()
-            ctx.emit("capture.done", step=step.id, name=p["name"], frames=count,
+            ctx.emit("capture.done", step=step.id, name=step.name, frames=count,
                      attempts=attempts)
-            return {"name": p["name"], "frames": count,
+            return {"name": step.name, "frames": count,
                     "capture": record.to_dict(relative_to=ctx.run.path)}
         writer.abandon(outcome[0])
-        ctx.emit("capture.discarded", step=step.id, name=p["name"], reason=outcome[0])
+        ctx.emit("capture.discarded", step=step.id, name=step.name, reason=outcome[0])
         if attempts > 5:
-            raise StepFailed(f"capture {p['name']} discarded {attempts} times: {outcome[0]}")
+            raise StepFailed(f"capture {step.name} discarded {attempts} times: {outcome[0]}")
         _wait_for_guard(ctx, step.id, outcome[1])
 
 
-def _grab_into(step: Any, ctx: StepContext, writer: Any, count: int
+def _grab_into(step: CaptureStep, ctx: StepContext, writer: CaptureWriter, count: int
                ) -> tuple[str, float | None] | None:
     """Stream frames into `writer`; returns (reason, reading) if the guard failed mid-capture."""
     camera = ctx.bench.camera
@@ -220,24 +246,35 @@ def _grab_into(step: Any, ctx: StepContext, writer: Any, count: int
     return None
 
 
-def run_analyze(step: Any, ctx: StepContext) -> dict:
-    name = step.params["analysis"]
-    func = ctx.analyses.get(name)
-    if func is None:
-        raise StepFailed(f"no analysis named {name!r}; known: {sorted(ctx.analyses)}")
-    summary = func(step, ctx)
-    ctx.emit("analysis.done", step=step.id, analysis=name, summary=summary)
-    return {"analysis": name, "summary": summary}
+def run_analyze(step: AnalyzeStep, ctx: StepContext) -> JournalData:
+    """Run a registered analysis over the run folder; its verdicts go to the journal too, so a
+    resumed run still reports them."""
+    analysis = ctx.analyses.get(step.analysis)
+    if analysis is None:
+        raise StepFailed(f"no analysis named {step.analysis!r}; known: {sorted(ctx.analyses)}")
+    site = FolderSite(ctx.run.path, ctx.run.results_dir, ctx.run.plots_dir,
+                      run_id=ctx.run.path.name, register=ctx.run.register)
+    date = _dt.datetime.fromtimestamp(ctx.clock.now(), tz=_dt.timezone.utc).strftime("%Y-%m-%d")
+    try:
+        outcome = analysis.run(site, step, AnalysisContext(ctx.station, ctx.uut, date))
+    except AnalysisFailed as exc:
+        raise StepFailed(f"analysis {step.analysis}: {exc}") from None
+    ctx.verdicts.extend(outcome.verdicts)
+    summary = dict(outcome.summary)
+    verdicts = [v.to_dict() for v in outcome.verdicts]
+    ctx.emit("analysis.done", step=step.id, analysis=step.analysis, summary=summary,
+             verdicts=verdicts)
+    return {"analysis": step.analysis, "summary": summary, "verdicts": verdicts}
 
 
-StepHandler = Callable[[Any, StepContext], dict]
+StepHandler = Callable[[PlanStep, StepContext], JournalData]
 
-STEP_HANDLERS: Mapping[str, StepHandler] = {
-    "blackbody": run_blackbody,
-    "target": run_target,
-    "move": run_move,
-    "capture": run_capture,
-    "analyze": run_analyze,
-    "note": run_note,
-    "wait": run_wait,
+STEP_HANDLERS: Mapping[str, Callable[..., JournalData]] = {
+    BlackbodyStep.kind: run_blackbody,
+    TargetStep.kind: run_target,
+    MoveStep.kind: run_move,
+    CaptureStep.kind: run_capture,
+    AnalyzeStep.kind: run_analyze,
+    NoteStep.kind: run_note,
+    WaitStep.kind: run_wait,
 }

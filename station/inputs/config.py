@@ -27,7 +27,8 @@ from typing import Any
 from analysis.targets import Target, target_from_mapping
 from drivers.errors import ResourceStringError
 from drivers.interfaces import AxisLimits
-from sequences.facts import StationFacts
+from sequences.facts import PlanCheck, StationFacts
+from station.inputs.limits import StationLimits
 from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, is_number,
                                   load_yaml)
 
@@ -101,15 +102,22 @@ class StationConfig:
     def slot_names(self) -> dict[int, str]:
         return {n: s.name for n, s in self.slots.items()}
 
-    def facts(self, analyses: frozenset[str]) -> StationFacts:
-        """What recipe validation needs to know about this station."""
+    @property
+    def limits(self) -> StationLimits:
+        """The one answer to "is this setpoint / position allowed" for this station."""
         lim = self.blackbody_limits
+        return StationLimits((lim.min_c, lim.max_c), (lim.min_difference_k, lim.max_difference_k),
+                             dict(self.axes))
+
+    def facts(self, analyses: frozenset[str], check_plan: PlanCheck | None = None
+              ) -> StationFacts:
+        """What recipe validation needs to know about this station."""
         return StationFacts(
             targets=frozenset(s.name for s in self.slots.values()),
-            blackbody_absolute_c=(lim.min_c, lim.max_c),
-            blackbody_difference_k=(lim.min_difference_k, lim.max_difference_k),
-            stage_axes={a: (al.minimum, al.maximum) for a, al in self.axes.items()},
+            stage_axes={a: al.unit for a, al in self.axes.items()},
+            limits=self.limits,
             analyses=analyses,
+            check_plan=check_plan,
         )
 
 

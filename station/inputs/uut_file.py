@@ -6,7 +6,11 @@ Layout (see station/data/demo_uut.yaml)::
     format:   {width, height, pixel_pitch_um}
     optics:   {focal_length_mm, f_number, projection}
     band_um: [lo, hi]     frame_rate_hz: ...     bit_depth: ...
-    spec_limits: {name: number, ...}
+    spec_limits: {name: number, name: {limit: number, <condition>: number, ...}, ...}
+
+A spec key names exactly one quantity, the one the analysis that evaluates it declares
+(station/analyses/*.py, `spec_keys`); conditions beside a limit (``source_c``, ``background_c``
+for NETD) say where it is defined, and `nightbench check` compares them with the recipe.
 
 All problems are collected and raised together in one `UutFileError`, so the author fixes the file
 in one pass.
@@ -134,6 +138,7 @@ def load_uut(path: str | Path) -> UutSpec:
     rate = r.number(doc, "frame_rate_hz", "frame_rate_hz")
     bits = r.number(doc, "bit_depth", "bit_depth", integer=True, hi=16)
     limits: dict[str, float] = {}
+    conditions: dict[str, dict[str, float]] = {}
     sl = doc.get("spec_limits", {})
     if sl is None:
         sl = {}
@@ -142,10 +147,15 @@ def load_uut(path: str | Path) -> UutSpec:
               "write one 'name: number' per limit under 'spec_limits:'")
     else:
         for key, v in sl.items():
-            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-                where = sl.ref_of(key) if isinstance(sl, MarkedDict) else doc.ref_of("spec_limits")
+            where = sl.ref_of(key) if isinstance(sl, MarkedDict) else doc.ref_of("spec_limits")
+            if isinstance(v, dict):
+                stated = _limit_with_conditions(r, str(key), v, where)
+                if stated is not None:
+                    limits[str(key)], conditions[str(key)] = stated
+            elif isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
                 r.add(where, f"spec_limits.{key}: expected a number, got {v!r}",
-                      "write the limit as a number in the unit its name states")
+                      "write the limit as a number in the unit its name states, or "
+                      "{limit: <number>, <condition>: <number>, ...}")
             else:
                 limits[str(key)] = float(v)
     if r.problems:
@@ -153,7 +163,42 @@ def load_uut(path: str | Path) -> UutSpec:
     return UutSpec(model=model, serial=serial, width=width, height=height,
                    pixel_pitch_um=pitch, focal_length_mm=focal, f_number=f_number,
                    projection=projection, band_um=band, frame_rate_hz=rate, bit_depth=bits,
-                   spec_limits=limits)
+                   spec_limits=limits, spec_conditions=conditions)
+
+
+def _limit_with_conditions(r: _Reader, key: str, entry: dict[str, Any], where: SourceRef
+                           ) -> tuple[float, dict[str, float]] | None:
+    """``{limit: 50, source_c: 30, background_c: 20}``: the limit and its stated conditions."""
+    ok = True
+    if "limit" not in entry:
+        r.add(where, f"spec_limits.{key}: the mapping has no 'limit'",
+              f"write {key}: {{limit: <number>, <condition>: <number>}}")
+        return None
+    numbers: dict[str, float] = {}
+    for name, value in entry.items():
+        at = entry.ref_of(name) if isinstance(entry, MarkedDict) else where
+        if not is_number(value):
+            r.add(at, f"spec_limits.{key}.{name}: expected a number, got {value!r}",
+                  "conditions are numbers in the unit their name states (source_c: 30)")
+            ok = False
+            continue
+        numbers[str(name)] = float(value)
+    if not ok:
+        return None
+    limit = numbers.pop("limit")
+    return limit, numbers
+
+
+def spec_sources(path: str | Path) -> dict[str, SourceRef]:
+    """Where each spec key of a UUT file is written (for messages naming its line)."""
+    try:
+        doc = load_yaml(path)
+    except SourceError:
+        return {}
+    sl = doc.get("spec_limits") if isinstance(doc, MarkedDict) else None
+    if not isinstance(sl, MarkedDict):
+        return {}
+    return {str(k): sl.key_ref(k) for k in sl}
 
 
 def demo_uut_path() -> Path:

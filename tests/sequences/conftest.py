@@ -5,15 +5,17 @@ from __future__ import annotations
 import pytest
 
 from sequences.facts import StationFacts, TimingModel
+from station.inputs.limits import StationLimits
 
 
 @pytest.fixture
 def facts() -> StationFacts:
     return StationFacts(
         targets=frozenset({"pinhole_grid", "pinhole", "slanted_edge", "open"}),
-        blackbody_absolute_c=(5.0, 100.0),
-        blackbody_difference_k=(-10.0, 40.0),
-        stage_axes={"az": (-45.0, 45.0), "el": (-30.0, 30.0)},
+        stage_axes={"az": "deg", "el": "deg"},
+        limits=StationLimits.from_ranges(absolute_c=(5.0, 100.0), difference_k=(-10.0, 40.0),
+                                         axes={"az": (-45.0, 45.0, "deg"),
+                                               "el": (-30.0, 30.0, "deg")}),
         analyses=frozenset({"distortion", "sitf", "netd", "uniformity"}),
     )
 

@@ -123,7 +123,9 @@ def test_unknown_start_slot_charges_half_a_turn(facts, timing) -> None:
 def test_settle_longer_than_timeout_is_warned(facts, timing) -> None:
     text = "steps:\n  - blackbody: {mode: difference, value: 30, timeout: 100}\n"
     est = estimate(expand(load_recipe("w.yaml", facts=facts, text=text)), timing)
-    assert len(est.warnings) == 1 and "s1.blackbody" in est.warnings[0]
+    (warning,) = est.warnings
+    assert warning.step_id == "s1.blackbody" and warning.exceeds
+    assert warning.where.line == 2 and str(warning).startswith("w.yaml:2:")
 
 
 def test_missing_model_entries_are_named(facts, timing) -> None:

@@ -49,8 +49,8 @@ def test_nested_sweep_and_scan_unroll_fully(facts) -> None:
     assert plan.captures[0] == "spot[diff=2,az=-10,el=-5]"
     assert plan.groups["spot"] == plan.captures
     first_analyze = plan.steps[-2]
-    assert first_analyze.params["instances"] == plan.captures
-    assert plan.steps[-1].params["instances"] == ["spot[diff=5,az=0,el=5]"]
+    assert first_analyze.instances == tuple(plan.captures)
+    assert plan.steps[-1].instances == ("spot[diff=5,az=0,el=5]",)
 
 
 def test_ids_are_structural_and_stable_when_values_change(facts) -> None:
@@ -61,16 +61,16 @@ def test_ids_are_structural_and_stable_when_values_change(facts) -> None:
     assert a.steps[1].id == "s2.sweep[1].s1.blackbody"
     assert a.steps[2].id == "s2.sweep[1].s2.scan[1].move"
     assert a.steps[3].id == "s2.sweep[1].s2.scan[1].s1.capture"
-    assert b.steps[1].params["value"] == 5.0
-    assert b.step("s2.sweep[2].s1.blackbody").params["value"] == 9.0
+    assert b.steps[1].setpoint == 5.0
+    assert b.step("s2.sweep[2].s1.blackbody").setpoint == 9.0
 
 
 def test_references_keep_type_whole_and_interpolate_inside_text(facts) -> None:
     plan = expand(load_recipe("nested.yaml", facts=facts, text=NESTED))
     capture = next(s for s in plan.steps if s.kind == "capture")
-    assert capture.params["frames"] == 8 and isinstance(capture.params["frames"], int)
+    assert capture.frames == 8 and isinstance(capture.frames, int)
     note = next(s for s in plan.steps if s.kind == "note")
-    assert note.params["text"] == "spot at -10,-5 for 2 K"
+    assert note.text == "spot at -10,-5 for 2 K"
     assert note.context == {"diff": 2, "az": -10, "el": -5}
     assert note.source.line == 17
 
@@ -107,7 +107,7 @@ def test_scan_moves_stage_before_inner_steps(facts) -> None:
         if step.kind == "capture":
             move = plan.steps[i - 1]
             assert move.kind == "move"
-            assert move.params["position"] == {"az": step.context["az"], "el": step.context["el"]}
+            assert move.position == {"az": step.context["az"], "el": step.context["el"]}
 
 
 def test_instance_names() -> None:
@@ -129,6 +129,6 @@ def test_builtin_recipes_validate_against_the_bench(name, steps, captures, facts
 
 def test_plan_step_lookup_names_missing_id(facts) -> None:
     plan = expand(load_recipe(find_recipe("distortion-grid"), facts=facts))
-    assert plan.step("s5.capture").params["name"] == "grid"
+    assert plan.step("s5.capture").name == "grid"
     with pytest.raises(KeyError, match="no step with id 's9.capture'"):
         plan.step("s9.capture")

@@ -53,8 +53,9 @@ def test_builtin_simulated_station_gives_the_recipe_facts():
     assert station.simulated
     facts = station.facts(frozenset({"distortion"}))
     assert {"pinhole_grid", "pinhole", "open"} <= facts.targets
-    assert facts.blackbody_difference_k == (-20.0, 60.0)
-    assert facts.stage_axes["az"] == (-40.0, 40.0)
+    assert facts.limits.difference_k == (-20.0, 60.0)
+    assert facts.limits.axes["az"].minimum == -40.0 and facts.limits.axes["az"].maximum == 40.0
+    assert facts.stage_axes["az"] == "deg"
     assert station.collimator_focal_mm == 500.0
 
 

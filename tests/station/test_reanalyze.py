@@ -66,12 +66,17 @@ def test_reanalysis_of_run_folder_reproduces_its_results(grid_run: Path, tmp_pat
         p.name for p in (grid_run / "plots").glob("*.png"))
 
 
-def test_reanalysis_in_place_returns_the_summary(grid_run: Path) -> None:
-    before = _distortion(grid_run / "results")
-    summary = analyze_run_folder(grid_run)
-    assert summary["k1"] == pytest.approx(before["model"]["k1"], abs=SAME)
-    assert summary["classification"] == before["summary"]["classification"]
-    assert _distortion(grid_run / "results")["model"]["k1"] == pytest.approx(summary["k1"], abs=SAME)
+def test_reanalysis_writes_a_new_version_and_leaves_the_run_alone(grid_run: Path) -> None:
+    before = (grid_run / "results" / "distortion.json").read_bytes()
+    report = analyze_run_folder(grid_run, "distortion")
+    summary = report.summary
+    assert report.results_dir == grid_run / "reanalysis" / "1" / "results"
+    original = json.loads(before)
+    assert summary["k1"] == pytest.approx(original["model"]["k1"], abs=SAME)
+    assert summary["classification"] == original["summary"]["classification"]
+    assert _distortion(report.results_dir)["model"]["k1"] == pytest.approx(summary["k1"], abs=SAME)
+    assert (grid_run / "results" / "distortion.json").read_bytes() == before
+    assert analyze_run_folder(grid_run, "distortion").results_dir.parent.name == "2"
 
 
 def test_standalone_frame_gives_the_runs_k1(grid_run: Path, tmp_path: Path) -> None:
