@@ -147,7 +147,7 @@ def ifov_from_slope(angles_deg: Sequence[float], positions_px: Sequence[float],
     if n < 3:
         raise ValueError("IFOV from the slope needs at least three stage angles")
     t = t - t.mean()
-    degree = 3 if n >= 6 else 1
+    degree = 3 if n >= 5 else 1
     a = np.vander(t, degree + 1, increasing=True)
     w = np.ones(n) if sigma_px is None else 1.0 / np.broadcast_to(np.asarray(sigma_px, float), (n,))
     coef, *_ = np.linalg.lstsq(a * w[:, None], x * w, rcond=None)

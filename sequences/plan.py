@@ -31,8 +31,8 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Protocol
 
 from sequences.facts import StationFacts
-from sequences.plansteps import (AnalyzeStep, BlackbodyStep, CaptureStep, LoopValue, MoveStep,
-                                 NoteStep, PlanStep, TargetStep, WaitStep)
+from sequences.plansteps import (AlignStep, AnalyzeStep, BlackbodyStep, CaptureStep, FovScanStep,
+                                 LoopValue, MoveStep, NoteStep, PlanStep, TargetStep, WaitStep)
 from sequences.steps import (NAME_PATTERN, STEP_SPECS, Option, StepNode, axis_problems,
                              coerce_options, coerce_value, station_problems, suggest)
 from sequences.yamlsource import MarkedDict, MarkedList, Problem, SourceError, SourceRef
@@ -268,6 +268,23 @@ class _Expander:
             return
         self.add(MoveStep(f"{step_id}.move", node.where, dict(context), position=position), node)
         self.pose.update(position)
+
+    def do_align(self, node: StepNode, env: dict[str, Any], step_id: str,
+                 context: dict[str, LoopValue]) -> None:
+        p = self.options(node, env)
+        if p is None:
+            return
+        self.add(AlignStep(f"{step_id}.align", node.where, dict(context),
+                           tolerance_px=p["tolerance_px"], max_iterations=p["max_iterations"],
+                           frames=p["frames"], origin=p["origin"]), node)
+
+    def do_fov_scan(self, node: StepNode, env: dict[str, Any], step_id: str,
+                    context: dict[str, LoopValue]) -> None:
+        p = self.options(node, env)
+        if p is None:
+            return
+        self.add(FovScanStep(f"{step_id}.fov_scan", node.where, dict(context),
+                             tolerance_deg=p["tolerance_deg"], frames=p["frames"]), node)
 
     def do_capture(self, node: StepNode, env: dict[str, Any], step_id: str,
                    context: dict[str, LoopValue]) -> None:

@@ -54,7 +54,7 @@ class Option:
     """One option of a step: its value kind, default (or REQUIRED) and bounds.
 
     ``kind`` is one of: ``number`` (int or float, read as float), ``count`` (whole number),
-    ``text`` (any scalar, read as text), ``capture_name``, ``choice``, ``names`` (list of text),
+    ``text`` (any scalar, read as text), ``flag`` (true or false), ``capture_name``, ``choice``, ``names`` (list of text),
     ``mapping``, or ``raw`` (checked by the loop expander itself).
     """
 
@@ -104,6 +104,18 @@ STEP_SPECS: dict[str, StepSpec] = {
         Option("analysis", "text"),
         Option("captures", "names"),
         Option("options", "mapping", {}),
+    ),
+    "align": _spec(
+        "align", "align: {tolerance_px: 0.25, max_iterations: 8, frames: 4}",
+        Option("tolerance_px", "number", 0.25, above=0.0, unit="px"),
+        Option("max_iterations", "count", 8, minimum=1),
+        Option("frames", "count", 4, minimum=1),
+        Option("origin", "flag", True),
+    ),
+    "fov_scan": _spec(
+        "fov_scan", "fov_scan: {tolerance_deg: 0.02, frames: 2}",
+        Option("tolerance_deg", "number", 0.02, above=0.0, unit="deg"),
+        Option("frames", "count", 2, minimum=1),
     ),
     "note": StepSpec("note", 'note: "text for the log"', scalar=Option("note", "text")),
     "wait": StepSpec("wait", "wait: 30", scalar=Option("wait", "number", minimum=0.0, unit="s")),
@@ -276,6 +288,10 @@ def coerce_value(option: Option, value: Any, where: SourceRef, label: str,
         if isinstance(value, bool) or not isinstance(value, int):
             return fail(f"{what} must be a whole number, not {_describe(value)}",
                         "write a plain whole number such as 16")
+    elif kind == "flag":
+        if not isinstance(value, bool):
+            return fail(f"{what} must be true or false, not {_describe(value)}",
+                        "write true or false")
     elif kind == "text":
         if isinstance(value, (dict, list)) or value is None:
             return fail(f"{what} must be text, not {_describe(value)}", "write it as a single value")
