@@ -142,12 +142,14 @@ def aligned_pose(spot_px: Sequence[float], reference_px: Sequence[float],
 def aligned_pose_with_uncertainty(
     spot_px: Sequence[float], spot_sigma_px: Sequence[float], reference_px: Sequence[float],
     pose_deg: Sequence[float], geom: CameraGeometry, *, stage_sigma_deg: float = 0.0,
-    model_scale_sigma_rel: float = 0.0,
+    model_scale_sigma_rel: float = 0.0, model_roll_sigma_deg: float = 0.0,
 ) -> tuple[tuple[float, float], tuple[float, float]]:
     """`aligned_pose` and its 1-sigma (az, el) deg: the centroid's sigma propagated through the
     numerical Jacobian (GUM, JCGM 100:2008, 5.1.2, uncorrelated inputs), the stage reading's
-    sigma and a relative uncertainty of the model's focal length (which scales the correction)
-    added in quadrature."""
+    sigma, and the model's own uncertainty: a relative uncertainty of its focal length (which
+    scales the correction from pose to boresight) and of its roll (which turns the correction),
+    all added in quadrature. The model terms vanish as the spot nears the reference pixel, which
+    is why the closed loop is the reference path."""
     base = np.array(aligned_pose(spot_px, reference_px, pose_deg, geom))
     var = np.zeros(2)
     h = 0.01
@@ -157,7 +159,8 @@ def aligned_pose_with_uncertainty(
         grad = (np.array(aligned_pose(shifted, reference_px, pose_deg, geom)) - base) / h
         var += (grad * float(s)) ** 2
     correction = base - np.asarray(pose_deg, dtype=float)
-    var += (correction * model_scale_sigma_rel) ** 2 + stage_sigma_deg ** 2
+    turned = np.array([-correction[1], correction[0]]) * math.radians(model_roll_sigma_deg)
+    var += (correction * model_scale_sigma_rel) ** 2 + turned ** 2 + stage_sigma_deg ** 2
     return (float(base[0]), float(base[1])), (float(math.sqrt(var[0])), float(math.sqrt(var[1])))
 
 

@@ -150,13 +150,15 @@ def find_pinhole(image: np.ndarray, *, saturation: float | None = None,
 def boresight_from_spot(spot_px: Sequence[float], spot_sigma_px: Sequence[float],
                         geom: CameraGeometry, pose_deg: Sequence[float] = (0.0, 0.0), *,
                         reference_px: Sequence[float] | None = None, stage_sigma_deg: float = 0.0,
-                        model_scale_sigma_rel: float = 0.0, snr: float = float("nan"),
-                        label: str = "") -> BoresightMeasurement:
+                        model_scale_sigma_rel: float = 0.0, model_roll_sigma_deg: float = 0.0,
+                        snr: float = float("nan"), label: str = "") -> BoresightMeasurement:
     """Boresight from a centroid already measured (x, y) px at stage pose (az, el) deg.
 
     `reference_px` defaults to the detector's geometric centre (not the model's principal point:
-    the boresight is where the *detector* looks). `model_scale_sigma_rel` is the relative
-    uncertainty of the model's focal length (it scales the correction from pose to boresight).
+    the boresight is where the *detector* looks). `model_scale_sigma_rel` and
+    `model_roll_sigma_deg` are the model's own uncertainties (a data sheet's focal length and the
+    mounting's roll): they scale and turn the correction from the pose to the boresight, so they
+    matter only when the spot is far from the reference pixel.
 
     >>> g = CameraGeometry(640, 512, 17.0, 25.0)
     >>> m = boresight_from_spot((319.5 + 10.0, 255.5), (0.05, 0.05), g)
@@ -168,7 +170,7 @@ def boresight_from_spot(spot_px: Sequence[float], spot_sigma_px: Sequence[float]
     pose = (float(pose_deg[0]), float(pose_deg[1]))
     (az, el), (saz, sel) = aligned_pose_with_uncertainty(
         spot_px, spot_sigma_px, ref, pose, geom, stage_sigma_deg=stage_sigma_deg,
-        model_scale_sigma_rel=model_scale_sigma_rel)
+        model_scale_sigma_rel=model_scale_sigma_rel, model_roll_sigma_deg=model_roll_sigma_deg)
     return BoresightMeasurement((float(spot_px[0]), float(spot_px[1])),
                                 (float(spot_sigma_px[0]), float(spot_sigma_px[1])), ref, pose,
                                 (az, el), (saz, sel), snr, label)
@@ -178,12 +180,14 @@ def measure_boresight(image: np.ndarray, geom: CameraGeometry,
                       pose_deg: Sequence[float] = (0.0, 0.0), *,
                       reference_px: Sequence[float] | None = None,
                       saturation: float | None = None, stage_sigma_deg: float = 0.0,
-                      model_scale_sigma_rel: float = 0.0, label: str = "") -> BoresightMeasurement:
+                      model_scale_sigma_rel: float = 0.0, model_roll_sigma_deg: float = 0.0,
+                      label: str = "") -> BoresightMeasurement:
     """Find the pinhole in `image` ([row, col]) and turn it into a boresight (see module)."""
     spot = find_pinhole(image, saturation=saturation)
     return boresight_from_spot((spot.x, spot.y), (spot.sigma_x, spot.sigma_y), geom, pose_deg,
                                reference_px=reference_px, stage_sigma_deg=stage_sigma_deg,
-                               model_scale_sigma_rel=model_scale_sigma_rel, snr=spot.snr,
+                               model_scale_sigma_rel=model_scale_sigma_rel,
+                               model_roll_sigma_deg=model_roll_sigma_deg, snr=spot.snr,
                                label=label)
 
 

@@ -162,12 +162,30 @@ def ifov_from_slope(angles_deg: Sequence[float], positions_px: Sequence[float],
     return ifov, ifov * math.sqrt(float(cov[1, 1])) / slope
 
 
+def _without_bad_pixels(img: np.ndarray, bg: Background, saturation: float | None) -> np.ndarray:
+    """Dead pixels (more than 10 sigma below the background: nothing real is darker) and hot ones
+    (at the saturation level, which a measured spot never reaches) set to the background, so
+    they neither add to a flux nor pass for the spot (common practice: bad-pixel masking)."""
+    level = np.broadcast_to(np.asarray(bg.level, dtype=float), img.shape)
+    bad = img < level - 10.0 * bg.noise
+    if saturation is not None:
+        bad |= img >= saturation
+    if not bad.any():
+        return img
+    out = img.copy()
+    out[bad] = level[bad]
+    return out
+
+
 def spot_flux(image: np.ndarray, x: float, y: float, *, half_px: int = 4,
-              background: Background | None = None) -> tuple[float, float]:
+              background: Background | None = None,
+              saturation: float | None = None) -> tuple[float, float]:
     """Background-subtracted signal (DN) in the box of half-size `half_px` around (x, y), clipped
-    to the frame ([row, col] image), and its 1-sigma from the background noise."""
+    to the frame ([row, col] image), and its 1-sigma from the background noise. Dead pixels, and
+    hot ones at `saturation`, count as background."""
     img = np.asarray(image, dtype=float)
     bg = background or estimate_background(img)
+    img = _without_bad_pixels(img, bg, saturation)
     h, w = img.shape
     xi, yi = int(round(x)), int(round(y))
     x0, x1 = max(0, xi - half_px), min(w, xi + half_px + 1)
@@ -180,12 +198,15 @@ def spot_flux(image: np.ndarray, x: float, y: float, *, half_px: int = 4,
 
 
 def spot_flux_near(image: np.ndarray, x: float, y: float, *, search_px: int = 10,
-                   half_px: int = 4, background: Background | None = None) -> tuple[float, float]:
+                   half_px: int = 4, background: Background | None = None,
+                   saturation: float | None = None) -> tuple[float, float]:
     """`spot_flux` around the brightest (3x3-smoothed) pixel within `search_px` of (x, y), the
     search box clipped to the frame: the spot need not be where a model predicts it, and a spot
-    half off the frame is summed over the part that is still on it."""
+    half off the frame is summed over the part that is still on it. Dead pixels, and hot ones at
+    `saturation`, are masked first so they are never taken for the spot."""
     img = np.asarray(image, dtype=float)
     bg = background or estimate_background(img)
+    img = _without_bad_pixels(img, bg, saturation)
     h, w = img.shape
     xi = int(round(min(max(x, 0.0), w - 1.0)))
     yi = int(round(min(max(y, 0.0), h - 1.0)))
@@ -193,7 +214,7 @@ def spot_flux_near(image: np.ndarray, x: float, y: float, *, search_px: int = 10
     y0, y1 = max(0, yi - search_px), min(h, yi + search_px + 1)
     box = ndimage.uniform_filter(img[y0:y1, x0:x1], 3, mode="nearest")
     r, c = np.unravel_index(int(np.argmax(box)), box.shape)
-    return spot_flux(img, x0 + c, y0 + r, half_px=half_px, background=bg)
+    return spot_flux(img, x0 + c, y0 + r, half_px=half_px, background=bg)  # already masked
 
 
 @dataclass(frozen=True)

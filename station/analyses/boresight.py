@@ -17,7 +17,7 @@ from sequences.plansteps import AnalyzeStep, OptionValue
 from station.analyses.common import blackbody_reading, judge_spec, pose_deg, write_result
 from station.analyses.geometry_common import REFERENCE_OPTION, reference_px, step_output
 from station.analyses.registry import (Analysis, AnalysisContext, AnalysisFailed,
-                                       AnalysisOutcome, AnalysisSite, CaptureNeed)
+                                       AnalysisOutcome, AnalysisSite, CaptureNeed, OptionSpec)
 
 NEED = CaptureNeed(targets=frozenset({"single_pinhole"}), keep=frozenset({"average", "both"}),
                    first_keep=frozenset({"average", "both"}), min_captures=1,
@@ -25,13 +25,18 @@ NEED = CaptureNeed(targets=frozenset({"single_pinhole"}), keep=frozenset({"avera
 
 
 def _measure(site: AnalysisSite, name: str, context: AnalysisContext,
-             reference: tuple[float, float]) -> BoresightMeasurement:
+             reference: tuple[float, float], options: Mapping[str, OptionValue]
+             ) -> BoresightMeasurement:
     info = site.capture_info(name)
     pose = pose_deg(info, name, context.station)
     try:
         return measure_boresight(site.load_average(name), context.uut.nominal_geometry(), pose,
                                  reference_px=reference,
-                                 saturation=float(context.uut.full_scale_counts), label=name)
+                                 saturation=float(context.uut.full_scale_counts),
+                                 model_scale_sigma_rel=float(options["focal_tolerance_percent"])
+                                 / 100.0,
+                                 model_roll_sigma_deg=float(options["roll_tolerance_deg"]),
+                                 label=name)
     except PinholeNotFound as exc:
         raise AnalysisFailed(f"boresight, capture {name}: {exc}") from None
 
@@ -51,7 +56,7 @@ def run(site: AnalysisSite, step: AnalyzeStep, context: AnalysisContext) -> Anal
     """Boresight of every capture; shift and spread when there are several; verdicts."""
     options = ANALYSIS.options_of(step)
     reference = reference_px(options["reference"], context.uut)
-    ms = [_measure(site, n, context, reference) for n in step.instances]
+    ms = [_measure(site, n, context, reference, options) for n in step.instances]
     shift = boresight_shift(ms) if len(ms) >= 2 else None
     worst = max(ms, key=lambda m: m.error_mrad)
     try:
@@ -122,7 +127,15 @@ ANALYSIS = Analysis(
     description="where the UUT looks: the on-axis pinhole against the reference pixel, as stage "
                 "angles through the UUT model; shift between captures",
     run=run,
-    options={"reference": REFERENCE_OPTION},
+    options={"reference": REFERENCE_OPTION,
+             "focal_tolerance_percent": OptionSpec(
+                 "focal_tolerance_percent", "number", 1.0,
+                 "1-sigma of the UUT file's focal length, %: a capture far from the aligned pose "
+                 "is converted through it", minimum=0.0),
+             "roll_tolerance_deg": OptionSpec(
+                 "roll_tolerance_deg", "number", 0.25,
+                 "1-sigma of the UUT's mounting roll, deg (the UUT file assumes none)",
+                 minimum=0.0)},
     needs=needs,
     spec_keys=BORESIGHT_SPEC_KEYS,
     result_files=("boresight.json",),

@@ -182,7 +182,8 @@ def run_fov_scan(step: FovScanStep, ctx: Any) -> dict[str, Any]:
     except PinholeNotFound as exc:
         raise StepFailed(f"fov_scan: the pinhole is not seen at the start pose: {exc} "
                          f"({_blackbody_note(ctx)}); align first") from None
-    ref_flux, ref_sigma = spot_flux_near(image, spot.x, spot.y)
+    full_scale = float(ctx.uut.full_scale_counts)
+    ref_flux, ref_sigma = spot_flux_near(image, spot.x, spot.y, saturation=full_scale)
     if not ref_flux > 0:
         raise StepFailed("fov_scan: the pinhole's flux is not above the background")
     # Where the model expects the spot at another pose: the nominal camera's displacement from
@@ -198,7 +199,7 @@ def run_fov_scan(step: FovScanStep, ctx: Any) -> dict[str, Any]:
         guess = project(nominal, rel)[0] + seen_at_centre
         x = float(np.clip(guess[0], 0, nominal.width - 1)) if np.isfinite(guess[0]) else 0.0
         y = float(np.clip(guess[1], 0, nominal.height - 1)) if np.isfinite(guess[1]) else 0.0
-        f, s = spot_flux_near(img, x, y)
+        f, s = spot_flux_near(img, x, y, saturation=full_scale)
         frac = f / ref_flux
         ctx.emit("fov_scan.look", step=step.id, n=next(looks), pose_deg=list(pose),
                  fraction=frac, sigma=s / ref_flux)
