@@ -29,11 +29,11 @@ import numpy as np
 
 from analysis.alignment import aligned_pose_with_uncertainty, axis_direction_at
 from analysis.centroid import Spot, SpotFlag, centroid_at, detect_spots
-from analysis.geometry import CameraGeometry
+from analysis.geometry import CameraGeometry, project
 from analysis.verdicts import SpecKey, Verdict
 
 __all__ = ["BORESIGHT_SPEC_KEYS", "BoresightMeasurement", "BoresightShift", "find_pinhole",
-           "boresight_from_spot", "measure_boresight", "boresight_shift", "angle_between_poses_mrad",
+           "boresight_from_spot", "boresight_from_model", "measure_boresight", "boresight_shift", "angle_between_poses_mrad",
            "boresight_verdicts", "PinholeNotFound"]
 
 BORESIGHT_SPEC_KEYS: Mapping[str, SpecKey] = {
@@ -174,6 +174,25 @@ def boresight_from_spot(spot_px: Sequence[float], spot_sigma_px: Sequence[float]
     return BoresightMeasurement((float(spot_px[0]), float(spot_px[1])),
                                 (float(spot_sigma_px[0]), float(spot_sigma_px[1])), ref, pose,
                                 (az, el), (saz, sel), snr, label)
+
+
+def boresight_from_model(geom: CameraGeometry, principal_point_sigma_px: Sequence[float],
+                         pose_deg: Sequence[float] = (0.0, 0.0), *,
+                         reference_px: Sequence[float] | None = None,
+                         label: str = "") -> BoresightMeasurement:
+    """Boresight from a camera model fitted at stage pose `pose_deg` (a pinhole grid at one pose,
+    or a pinhole scan with the pose of its origin): where the fitted model puts the collimator
+    axis, converted through that same model. The principal point's sigmas stand for the spot's
+    (the fit places the axis through them).
+
+    >>> g = CameraGeometry(640, 512, 17.0, 25.0, cx=329.5, cy=255.5)
+    >>> round(boresight_from_model(g, (0.01, 0.01)).boresight_mrad[0], 3)
+    6.8
+    """
+    axis = axis_direction_at(float(pose_deg[0]), float(pose_deg[1]))[None, :]
+    spot = project(geom, axis, include_defects=False)[0]
+    return boresight_from_spot(spot, principal_point_sigma_px, geom, pose_deg,
+                               reference_px=reference_px, label=label)
 
 
 def measure_boresight(image: np.ndarray, geom: CameraGeometry,

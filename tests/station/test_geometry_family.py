@@ -50,7 +50,7 @@ steps:
   - move: {az: 0.0, el: 0.0}
   - capture: {name: aligned, frames: 2}
   - analyze: {analysis: boresight, captures: [mounted, aligned]}
-  - fov_scan: {tolerance_deg: 0.01, frames: 1}
+  - fov_scan: {tolerance_deg: 0.02, frames: 1}
   - analyze: {analysis: fov, captures: [aligned], options: {source: scan}}
 """
 
