@@ -162,3 +162,35 @@ def test_alignment_faults_cleanly_with_the_cause(tmp_path: Path, recipe: str, ca
     # Safed: the stage parked and the blackbody sent to its safe setpoint.
     kinds = {e["type"] for e in events}
     assert any(k.startswith("safing") or k.startswith("safe") for k in kinds), kinds
+
+
+def test_align_options_are_checked_with_their_line(tmp_path: Path) -> None:
+    from sequences.plan import expand
+    from sequences.recipe import load_recipe
+    from sequences.yamlsource import SourceError
+
+    path = tmp_path / "bad.yaml"
+    path.write_text("recipe: bad\nsteps:\n  - target: pinhole\n"
+                    "  - align: {tolerance_px: 0, max_iterations: 2.5, origin: maybe}\n",
+                    encoding="utf-8")
+    with pytest.raises(SourceError) as err:
+        expand(load_recipe(path))
+    text = str(err.value)
+    assert "bad.yaml:4:" in text
+    assert "tolerance_px must be greater than 0" in text
+    assert "max_iterations must be a whole number" in text
+    assert "origin must be true or false" in text
+
+
+def test_resume_restores_the_aligned_origin_from_the_journal() -> None:
+    from types import SimpleNamespace
+
+    from station.engine.steps import JOURNAL_RESTORERS
+
+    seen = []
+    ctx = SimpleNamespace(origin={}, emit=lambda kind, **f: seen.append((kind, f)))
+    record = {"kind": "align", "data": {"boresight_deg": [0.09, 0.06],
+                                        "origin": {"az": 0.09, "el": 0.06}}}
+    JOURNAL_RESTORERS["align"](record, ctx)
+    assert ctx.origin == {"az": 0.09, "el": 0.06}
+    assert seen and seen[0][0] == "stage.origin"
