@@ -60,7 +60,22 @@ def plot_boresight_scatter(points_mrad: Sequence[tuple[float, float]],
     ax.set_xlabel("azimuth (mrad)")
     ax.set_ylabel("elevation (mrad)")
     ax.set_title(title + "\n(error bars: 2 sigma)")
-    ax.legend(fontsize=7, loc="best")
+    ax.legend(fontsize=7, loc="lower left")
+    if points_mrad:
+        # Inset around the measurements: their spread and error bars at a readable scale.
+        pts = [p for p in points_mrad]
+        ca = sum(p[0] for p in pts) / len(pts)
+        ce = sum(p[1] for p in pts) / len(pts)
+        half = max([abs(p[0] - ca) for p in pts] + [abs(p[1] - ce) for p in pts]
+                   + [4 * max(s) for s in sigmas_mrad] + [1e-3]) * 1.3
+        inset = ax.inset_axes([0.6, 0.02, 0.38, 0.38])
+        for (a, e), (sa, se) in zip(points_mrad, sigmas_mrad):
+            inset.errorbar([a], [e], xerr=[2 * sa], yerr=[2 * se], fmt="o", ms=3, capsize=2)
+        inset.set_xlim(ca - half, ca + half)
+        inset.set_ylim(ce - half, ce + half)
+        inset.set_aspect("equal")
+        inset.tick_params(labelsize=6)
+        inset.set_title("zoom", fontsize=7)
     try:
         return _save(fig, path)
     finally:
@@ -113,13 +128,21 @@ def plot_fov_edges(scan: Any, path: Path | str) -> Path:
         ax.axhline(0.5, color="0.6", ls=":")
         ax.axvline(edge.angle_deg, color="tab:red", ls="--",
                    label=f"edge {edge.angle_deg:.4f} ± {edge.sigma_deg:.4f} deg")
+        # Inset: the last bracket, where the edge is decided.
+        near = [p for p in probes if abs(p.angle_deg - edge.angle_deg) < 0.2] or probes
+        inset = ax.inset_axes([0.36, 0.3, 0.3, 0.4])
+        inset.errorbar([p.angle_deg for p in near], [p.fraction for p in near],
+                       yerr=[2 * p.sigma for p in near], fmt="o", ms=2, capsize=1)
+        inset.axhline(0.5, color="0.6", ls=":")
+        inset.axvline(edge.angle_deg, color="tab:red", ls="--")
+        inset.tick_params(labelsize=6)
         ax.set_title(f"{name} edge ({'azimuth' if name in ('left', 'right') else 'elevation'})")
         ax.set_xlabel("stage angle (deg)")
         ax.set_ylabel("flux fraction on the detector")
         ax.legend(fontsize=7)
     fov = scan.fov
     fig.suptitle(f"Field of view by edge bisection: H {fov.h_deg:.3f} ± {fov.sigma_h_deg:.3f}, "
-                 f"V {fov.v_deg:.3f} ± {fov.sigma_v_deg:.3f}, D {fov.d_deg:.3f} deg")
+                 f"V {fov.v_deg:.3f} ± {fov.sigma_v_deg:.3f} deg (D {fov.d_deg:.3f} deg, derived)")
     fig.tight_layout()
     try:
         return _save(fig, path)
