@@ -39,7 +39,8 @@ import numpy as np
 
 from analysis.geometry import (CameraGeometry, gimbal_rotation, undistort_normalized)
 
-__all__ = ["pixel_to_direction", "inverse_radial", "axis_direction_at", "pose_seeing_axis_at", "aligned_pose",
+__all__ = ["pixel_to_direction", "inverse_radial", "axis_direction_at", "pose_seeing_axis_at",
+           "aligned_pose",
            "aligned_pose_with_uncertainty", "AlignmentIteration", "AlignmentDecision",
            "next_decision", "converged_boresight", "ConvergedPose",
            "AlignmentFault", "align"]
@@ -71,7 +72,8 @@ def pixel_to_direction(geom: CameraGeometry, pixels: np.ndarray) -> np.ndarray:
 
     >>> g = CameraGeometry(640, 512, 17.0, 25.0)
     >>> d = pixel_to_direction(g, np.array([[g.principal_point[0] + 100.0, g.principal_point[1]]]))
-    >>> round(math.degrees(math.atan2(d[0, 0], d[0, 2])), 6) == round(math.degrees(math.atan(100 * 0.017 / 25)), 6)
+    >>> angle = math.degrees(math.atan2(d[0, 0], d[0, 2]))
+    >>> round(angle, 6) == round(math.degrees(math.atan(100 * 0.017 / 25)), 6)
     True
     """
     p = np.asarray(pixels, dtype=float).reshape(-1, 2)

@@ -33,7 +33,8 @@ from analysis.geometry import CameraGeometry, project
 from analysis.verdicts import SpecKey, Verdict
 
 __all__ = ["BORESIGHT_SPEC_KEYS", "BoresightMeasurement", "BoresightShift", "find_pinhole",
-           "boresight_from_spot", "boresight_from_model", "measure_boresight", "boresight_shift", "angle_between_poses_mrad",
+           "boresight_from_spot", "boresight_from_model", "measure_boresight", "boresight_shift",
+           "angle_between_poses_mrad",
            "boresight_verdicts", "PinholeNotFound"]
 
 BORESIGHT_SPEC_KEYS: Mapping[str, SpecKey] = {
@@ -275,5 +276,6 @@ def boresight_verdicts(limits: Mapping[str, float], measurement: BoresightMeasur
     if key in limits and shift is not None:
         out.append(BORESIGHT_SPEC_KEYS[key].judge(shift.max_shift_mrad, shift.sigma_mrad,
                                                   float(limits[key]),
-                                                  {**(conditions or {}), "measurements": shift.count}))
+                                                  {**(conditions or {}),
+                                                   "measurements": shift.count}))
     return tuple(out)

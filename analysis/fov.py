@@ -8,10 +8,11 @@ focal length f with N pixels of pitch p across sees ``2 atan(N p / 2 f)``; an eq
 Three ways, each with its uncertainty:
 
 * **From a camera model** (`fov_from_model`): the sum of the field angles (from the optical
-  axis) of the lines of sight through the outer *edges* of the outer pixels (x = -0.5 and W - 0.5 on the principal point's row for the
-  horizontal FOV, likewise vertically, opposite corners for the diagonal), through the exact
-  inverse of the model (`analysis.alignment.pixel_to_direction`). Works for a fitted model with
-  distortion; the uncertainty comes from the focal length's.
+  axis) of the lines of sight through the outer *edges* of the outer pixels (x = -0.5 and
+  W - 0.5 on the principal point's row for the horizontal FOV, likewise vertically, opposite
+  corners for the diagonal), through the exact inverse of the model
+  (`analysis.alignment.pixel_to_direction`). Works for a fitted model with distortion; the
+  uncertainty comes from the focal length's.
 * **Directly, in scan mode** (`find_edge`, `fov_from_edge_poses`): the on-axis pinhole is stepped
   outwards with the stage until its image leaves the active area; the edge is where half of the
   spot's flux is still on the detector (for a symmetric spot, its centre is then on the outer
@@ -42,7 +43,8 @@ from analysis.geometry import CameraGeometry, _radial_map
 from analysis.verdicts import SpecKey, Verdict
 
 __all__ = ["FOV_SPEC_KEYS", "FieldOfView", "fov_from_model", "ifov_from_slope", "spot_flux",
-           "spot_flux_near", "EdgeProbe", "EdgeSearch", "find_edge", "fov_from_edge_poses", "fov_verdicts", "ScanFov", "scan_fov",
+           "spot_flux_near", "EdgeProbe", "EdgeSearch", "find_edge", "fov_from_edge_poses",
+           "fov_verdicts", "ScanFov", "scan_fov",
            "line_of_sight_angle_deg"]
 
 _AXES = {"h": "horizontal", "v": "vertical", "d": "diagonal"}

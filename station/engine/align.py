@@ -47,7 +47,8 @@ def _check_gimbal(ctx: Any, what: str) -> tuple[tuple[float, float], tuple[float
     for a in ANGULAR_AXES:
         if axes[a].unit not in _DEG_UNITS:
             raise StepFailed(f"{what} needs az and el in degrees; {a} is in {axes[a].unit!r}")
-    return tuple((axes[a].minimum, axes[a].maximum) for a in ANGULAR_AXES)  # type: ignore[return-value]
+    az, el = (axes[a] for a in ANGULAR_AXES)
+    return (az.minimum, az.maximum), (el.minimum, el.maximum)
 
 
 def _check_pinhole(ctx: Any, what: str) -> SinglePinhole:

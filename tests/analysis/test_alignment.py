@@ -7,7 +7,6 @@ the nominal model (the data sheet) and the rendered frames.
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from analysis.alignment import (AlignmentFault, AlignmentIteration, align, next_decision)
