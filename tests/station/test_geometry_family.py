@@ -137,31 +137,63 @@ def test_fov_by_bisection_matches_the_true_camera(family) -> None:
     assert (run / "plots" / "boresight_scatter.png").stat().st_size > 10_000
 
 
-@pytest.mark.parametrize("recipe, cause", [
-    ("""\
+NO_PINHOLE = """\
 recipe: no-pinhole
 steps:
   - target: pinhole_grid
   - blackbody: {mode: difference, value: 30, tolerance: 0.05, hold: 5, timeout: 120}
   - align: {}
-""", "needs the single pinhole in the beam; the wheel shows 'pinhole_grid'"),
-    ("""\
+"""
+
+BLACKBODY_OFF = """\
 recipe: blackbody-off
 steps:
   - target: pinhole
   - blackbody: {mode: difference, value: 0, tolerance: 0.05, hold: 5, timeout: 120}
   - align: {}
-""", "pinhole not found"),
-])
-def test_alignment_faults_cleanly_with_the_cause(tmp_path: Path, recipe: str, cause: str) -> None:
-    outcome, run, events = run_recipe(tmp_path, recipe)
+"""
+
+
+def test_alignment_without_the_pinhole_in_the_beam_is_refused_before_anything_moves(
+        tmp_path: Path) -> None:
+    from sequences.yamlsource import SourceError
+
+    with pytest.raises(SourceError) as err:
+        run_recipe(tmp_path, NO_PINHOLE)
+    assert "recipe.yaml:5:" in str(err.value)
+    assert "align needs the single pinhole in the beam; the plan has 'pinhole_grid'" in str(
+        err.value)
+    assert not (tmp_path / "runs").exists() or not any((tmp_path / "runs").iterdir())
+
+
+def test_alignment_with_the_wrong_target_at_run_time_faults_with_the_cause() -> None:
+    # The wheel can disagree with the plan (a slot table edited, a wheel homed by hand): the
+    # step checks what is in the beam itself.
+    from types import SimpleNamespace
+
+    from sequences.plansteps import AlignStep
+    from sequences.yamlsource import SourceRef
+    from station.engine.align import run_align
+    from station.engine.waiting import StepFailed
+    from station.inputs.config import load_station
+
+    path = Path(__file__).resolve().parents[2] / "station" / "data" / "sim_station.yaml"
+    station = load_station(path)
+    ctx = SimpleNamespace(station=station, current_target="pinhole_grid")
+    with pytest.raises(StepFailed, match="needs the single pinhole in the beam; the wheel "
+                                         "shows 'pinhole_grid'"):
+        run_align(AlignStep("s1.align", SourceRef("r.yaml", 1, 1), {}), ctx)
+
+
+def test_alignment_with_the_blackbody_off_faults_cleanly_with_the_cause(tmp_path: Path) -> None:
+    outcome, run, events = run_recipe(tmp_path, BLACKBODY_OFF)
     assert outcome.state == "faulted"
-    assert cause in outcome.cause and "align" in outcome.cause
-    if "blackbody" in recipe.split("\n")[0]:
-        assert "K above its reference" in outcome.cause   # the blackbody reading is named
+    assert "pinhole not found" in outcome.cause and "align" in outcome.cause
+    assert "K above its reference" in outcome.cause   # the blackbody reading is named
     # Safed: the stage parked and the blackbody sent to its safe setpoint.
-    kinds = {e["type"] for e in events}
-    assert any(k.startswith("safing") or k.startswith("safe") for k in kinds), kinds
+    safed = {e["type"]: e for e in events if e["type"].startswith("safing.")}
+    assert safed["safing.blackbody"]["ok"] and safed["safing.stage"]["ok"]
+    assert all(abs(v) < 0.01 for v in safed["safing.stage"]["positions"].values())  # park: 0
 
 
 def test_align_options_are_checked_with_their_line(tmp_path: Path) -> None:
