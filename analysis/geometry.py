@@ -163,6 +163,10 @@ def collimator_directions(points_mm: np.ndarray, focal_length_mm: float) -> np.n
 
     The collimator inverts the plate (see module docstring): ``d = (-x, -y, F) / norm``, so the
     field angle of a point is ``atan(r / F)`` (paraxial collimator, W. J. Smith).
+
+    >>> d = collimator_directions(np.array([[10.0, 0.0]]), 500.0)
+    >>> round(float(np.degrees(field_angles(d)[0])), 4)   # atan(10 / 500)
+    1.1458
     """
     if not focal_length_mm > 0:
         raise ValueError(f"collimator focal length must be > 0 mm, got {focal_length_mm}")
@@ -245,7 +249,11 @@ def ideal_normalized(geom: CameraGeometry, directions: np.ndarray) -> np.ndarray
 
 
 def apply_brown_conrady(xy_norm: np.ndarray, d: BrownConrady) -> np.ndarray:
-    """Normalized (x', y') -> distorted (x'', y''), OpenCV calib3d formula (Brown 1966)."""
+    """Normalized (x', y') -> distorted (x'', y''), OpenCV calib3d formula (Brown 1966).
+
+    >>> apply_brown_conrady(np.array([[0.5, 0.0]]), BrownConrady(k1=-0.1)).tolist()
+    [[0.4875, 0.0]]
+    """
     p = _as_points(xy_norm, 2, "xy_norm")
     x, y = p[:, 0], p[:, 1]
     r2 = x * x + y * y
@@ -292,7 +300,18 @@ def defect_displacement(pixels: np.ndarray, defects: tuple[LocalDefect, ...]) ->
 
 def project(geom: CameraGeometry, directions_cam: np.ndarray, *,
             include_defects: bool = True) -> np.ndarray:
-    """Camera-frame directions (N, 3) -> pixel positions (N, 2) as (x, y) = (column, row)."""
+    """Camera-frame directions (N, 3) -> pixel positions (N, 2) as (x, y) = (column, row).
+
+    The optical axis lands on the principal point, by default the detector's geometric centre
+    ((W - 1) / 2, (H - 1) / 2); one degree of azimuth moves a rectilinear image by f tan(1 deg)
+    / pitch (here 25 mm / 17 um: 25.67 px), towards lower columns for a positive azimuth.
+
+    >>> geom = CameraGeometry(640, 512, 17.0, 25.0)
+    >>> project(geom, np.array([[0.0, 0.0, 1.0]])).tolist()
+    [[319.5, 255.5]]
+    >>> project(geom, to_camera_frame(np.array([[0.0, 0.0, 1.0]]), 1.0, 0.0)).round(3).tolist()
+    [[293.831, 255.5]]
+    """
     xy = ideal_normalized(geom, directions_cam)
     if not geom.distortion.is_zero:
         xy = apply_brown_conrady(xy, geom.distortion)

@@ -28,7 +28,11 @@ _SMALL_X = 0.05
 
 def spectral_radiance(wavelength_um: float | np.ndarray, temperature_k: float | np.ndarray
                       ) -> np.ndarray:
-    """Planck's law, W m^-2 sr^-1 um^-1 (broadcasts over wavelength and temperature)."""
+    """Planck's law, W m^-2 sr^-1 um^-1 (broadcasts over wavelength and temperature).
+
+    >>> round(float(spectral_radiance(10.0, 300.0)), 3)   # near the 300 K peak (Wien: 9.66 um)
+    9.924
+    """
     lam = np.asarray(wavelength_um, dtype=float) * 1e-6
     t = np.asarray(temperature_k, dtype=float)
     x = H * C / (lam * K_B * t)
@@ -76,6 +80,9 @@ def band_radiance(temperature_k: float | np.ndarray, band_um: tuple[float, float
     """Radiance of a blackbody between ``band_um = (lo, hi)`` micrometres, W m^-2 sr^-1.
 
     ``(0, inf)`` gives ``sigma T^4 / pi`` (Stefan-Boltzmann).
+
+    >>> round(band_radiance(300.0, (0, math.inf)), 3), round(stefan_boltzmann_radiance(300.0), 3)
+    (146.2, 146.2)
     """
     t = np.asarray(temperature_k, dtype=float)
     x1, x2 = _band_x(np.atleast_1d(t), band_um)
@@ -114,5 +121,9 @@ def stefan_boltzmann_radiance(temperature_k: float) -> float:
 
 
 def celsius_to_kelvin(celsius: float) -> float:
-    """Degrees Celsius (the bench's unit) to kelvin (Planck's)."""
+    """Degrees Celsius (the bench's unit) to kelvin (Planck's).
+
+    >>> celsius_to_kelvin(20.0)
+    293.15
+    """
     return float(celsius) + sc.zero_Celsius

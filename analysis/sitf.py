@@ -35,7 +35,11 @@ class NetdResult:
 
 
 def central_mean(image: np.ndarray, fraction: float = 0.5) -> float:
-    """Mean of the central `fraction` of the frame (rows and columns), away from edge effects."""
+    """Mean of the central `fraction` of the frame (rows and columns), away from edge effects.
+
+    >>> central_mean(np.arange(16.0).reshape(4, 4))   # the middle 2 x 2: 5, 6, 9, 10
+    7.5
+    """
     rows, cols = image.shape[-2:]
     r0 = int(rows * (1 - fraction) / 2)
     c0 = int(cols * (1 - fraction) / 2)
@@ -43,7 +47,12 @@ def central_mean(image: np.ndarray, fraction: float = 0.5) -> float:
 
 
 def fit_sitf(delta_t_k: Sequence[float], signal_counts: Sequence[float]) -> SitfResult:
-    """Least-squares line of signal against temperature difference (needs two or more points)."""
+    """Least-squares line of signal against temperature difference (needs two or more points).
+
+    >>> fit = fit_sitf([1.0, 2.0, 3.0], [110.0, 120.0, 130.0])
+    >>> round(fit.sitf_counts_per_k, 9), round(fit.r_squared, 9)
+    (10.0, 1.0)
+    """
     x = np.asarray(delta_t_k, dtype=float)
     y = np.asarray(signal_counts, dtype=float)
     if x.size < 2 or np.ptp(x) == 0:
@@ -60,6 +69,10 @@ def temporal_noise(stack: np.ndarray) -> float:
     """RMS temporal noise: sqrt of the per-pixel temporal variance averaged over the frame.
 
     `stack` is (frames, rows, cols). Uses the unbiased variance (ddof=1) per pixel.
+
+    >>> two = np.stack([np.zeros((4, 4)), np.full((4, 4), 2.0)])   # each pixel: 0 then 2
+    >>> round(temporal_noise(two), 6)                              # sqrt(var) = sqrt(2)
+    1.414214
     """
     if stack.ndim != 3 or stack.shape[0] < 2:
         raise ValueError("temporal noise needs a stack of two or more frames (frames, rows, cols)")
@@ -68,7 +81,12 @@ def temporal_noise(stack: np.ndarray) -> float:
 
 
 def netd(stack: np.ndarray, sitf_counts_per_k: float) -> NetdResult:
-    """NETD = temporal noise / SiTF."""
+    """NETD = temporal noise / SiTF.
+
+    >>> two = np.stack([np.zeros((4, 4)), np.full((4, 4), 2.0)])
+    >>> round(netd(two, 10.0).netd_k, 6)                          # 1.414 counts / 10 counts/K
+    0.141421
+    """
     if sitf_counts_per_k == 0:
         raise ValueError("SiTF is zero: the camera shows no response to the blackbody")
     noise = temporal_noise(stack)

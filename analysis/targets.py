@@ -31,7 +31,11 @@ class PinholeGrid:
     kind: str = field(default="pinhole_grid", init=False)
 
     def points_mm(self) -> np.ndarray:
-        """(N, 2) plate coordinates (x, y) mm, row-major."""
+        """(N, 2) plate coordinates (x, y) mm, row-major.
+
+        >>> PinholeGrid(rows=3, cols=3, pitch_mm=10.0, diameter_mm=1.0).points_mm()[:2].tolist()
+        [[-10.0, -10.0], [0.0, -10.0]]
+        """
         if self.points is not None:
             return np.array(self.points, dtype=float).reshape(-1, 2)
         c = (np.arange(self.cols) - (self.cols - 1) / 2.0) * self.pitch_mm + self.offset_mm[0]

@@ -36,7 +36,13 @@ class UutSpec:
             raise ValueError(f"projection {self.projection!r} unknown; use one of {PROJECTIONS}")
 
     def nominal_geometry(self) -> CameraGeometry:
-        """The ideal camera: nominal focal length, centred principal point, no distortion."""
+        """The ideal camera: nominal focal length, centred principal point, no distortion.
+
+        >>> uut = UutSpec("cam", "SN1", 640, 512, 17.0, 25.0, 1.0, "rectilinear", (8.0, 12.0),
+        ...               30.0, 14)
+        >>> uut.nominal_geometry().principal_point
+        (319.5, 255.5)
+        """
         return CameraGeometry(width=self.width, height=self.height,
                               pixel_pitch_um=self.pixel_pitch_um,
                               focal_length_mm=self.focal_length_mm, projection=self.projection)

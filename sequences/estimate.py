@@ -26,7 +26,7 @@ from sequences.facts import TimingModel
 from sequences.plan import Plan
 from sequences.plansteps import (AlignStep, BlackbodyStep, CaptureStep, FovScanStep, MoveStep,
                                  TargetStep, WaitStep)
-from sequences.yamlsource import SourceRef
+from sequences.yamlsource import Problem, SourceRef
 
 __all__ = ["Estimate", "TimeoutWarning", "estimate", "blackbody_settle_s", "wheel_travel_s",
            "trapezoid_s", "slots_between", "NEAR_TIMEOUT_FRACTION"]
@@ -52,13 +52,17 @@ class TimeoutWarning:
     def exceeds(self) -> bool:
         return self.needed_s > self.timeout_s
 
+    def as_problem(self) -> Problem:
+        """The warning as a located message with its fix (printed like any input problem)."""
+        how = "times out after" if self.exceeds else "comes within 10 % of its timeout of"
+        return Problem(self.where, f"{self.step_id}: the blackbody needs about "
+                                   f"{self.needed_s:.0f} s to settle and hold but {how} "
+                                   f"{self.timeout_s:g} s",
+                       f"raise its timeout above {self.needed_s * 1.25:.0f} s, or approach the "
+                       "setpoint in smaller steps")
+
     def __str__(self) -> str:
-        how = ("times out after" if self.exceeds
-               else "is within 10 % of its timeout of")
-        fix = (f"raise its timeout above {self.needed_s * 1.25:.0f} s or approach the setpoint "
-               "in smaller steps")
-        return (f"{self.where}: {self.step_id}: the blackbody needs about {self.needed_s:.0f} s "
-                f"to settle and hold but {how} {self.timeout_s:g} s. {fix.capitalize()}.")
+        return str(self.as_problem())
 
 
 @dataclass(frozen=True)
@@ -188,13 +192,13 @@ def estimate(plan: Plan, timing: TimingModel) -> Estimate:
             seconds = step.duration_s
         elif isinstance(step, AlignStep):
             # Typically three looks (the loop converges quadratically), each a short move and
-            # the frames; the bound is max_iterations (common practice: estimate the usual case).
+            # the frames; the bound is max_iterations (the usual case is estimated).
             looks = min(3, step.max_iterations)
             seconds = looks * (ALIGN_MOVE_S + step.frames / timing.frame_rate_hz)
             frames += looks * step.frames
         elif isinstance(step, FovScanStep):
-            # Four edges, ~log2(field / tolerance) + 3 looks each, a move of about half the field
-            # and back for each.
+            # Four edges, ~log2(field / tolerance) + 3 looks each, a move of a few degrees and
+            # its settle for each.
             looks = 4 * (int(math.log2(max(2.0, 20.0 / step.tolerance_deg))) + 3)
             seconds = looks * (FOV_MOVE_S + step.frames / timing.frame_rate_hz)
             frames += looks * step.frames

@@ -31,8 +31,8 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Protocol
 
 from sequences.facts import StationFacts
-from sequences.plansteps import (AlignStep, AnalyzeStep, BlackbodyStep, CaptureStep, FovScanStep,
-                                 LoopValue, MoveStep, NoteStep, PlanStep, TargetStep, WaitStep)
+from sequences.plansteps import (AnalyzeStep, CaptureStep, LoopValue, MoveStep, PlanStep,
+                                 TargetStep)
 from sequences.steps import (NAME_PATTERN, STEP_SPECS, Option, StepNode, axis_problems,
                              coerce_options, coerce_value, station_problems, suggest)
 from sequences.yamlsource import MarkedDict, MarkedList, Problem, SourceError, SourceRef
@@ -198,7 +198,11 @@ class _Expander:
             step_id = f"{prefix}s{node.index}"
             count = len(self.steps)
             if node.valid:
-                getattr(self, f"do_{node.kind}")(node, env, step_id, context)
+                special = getattr(self, f"do_{node.kind}", None)
+                if special is not None:
+                    special(node, env, step_id, context)
+                else:
+                    self.do_typed(node, env, step_id, context)
             if not node.valid or (len(self.steps) == count and node.kind in ("capture", "sweep",
                                                                               "scan")):
                 self.forget(node)
@@ -216,41 +220,36 @@ class _Expander:
         assert spec.scalar is not None
         return coerce_value(spec.scalar, value, node.body_ref, "", self.problems)
 
+    def do_typed(self, node: StepNode, env: dict[str, Any], step_id: str,
+                 context: dict[str, LoopValue]) -> PlanStep | None:
+        """Any kind declared with a ``step_type``: its checked options fill the typed step."""
+        spec = STEP_SPECS[node.kind]
+        assert spec.step_type is not None, f"step kind {node.kind} declares no step_type"
+        if spec.scalar is not None:
+            ok, value = self.scalar(node, env)
+            if not ok:
+                return None
+            values = {spec.scalar.field_name: value}
+        else:
+            options = self.options(node, env)
+            if options is None:
+                return None
+            values = {spec.options[k].field_name: v for k, v in options.items()}
+        step = spec.step_type(f"{step_id}.{node.kind}", node.where, dict(context), **values)
+        self.add(step, node)  # type: ignore[arg-type]
+        return step  # type: ignore[return-value]
+
     def do_target(self, node: StepNode, env: dict[str, Any], step_id: str,
                   context: dict[str, LoopValue]) -> None:
-        ok, value = self.scalar(node, env)
-        if ok:
-            self.add(TargetStep(f"{step_id}.target", node.where, dict(context), target=value),
-                     node)
-            self.target = value
-
-    def do_note(self, node: StepNode, env: dict[str, Any], step_id: str,
-                context: dict[str, LoopValue]) -> None:
-        ok, value = self.scalar(node, env)
-        if ok:
-            self.add(NoteStep(f"{step_id}.note", node.where, dict(context), text=value), node)
-
-    def do_wait(self, node: StepNode, env: dict[str, Any], step_id: str,
-                context: dict[str, LoopValue]) -> None:
-        ok, value = self.scalar(node, env)
-        if ok:
-            self.add(WaitStep(f"{step_id}.wait", node.where, dict(context), duration_s=value),
-                     node)
+        step = self.do_typed(node, env, step_id, context)
+        if isinstance(step, TargetStep):
+            self.target = step.target  # what the plan puts in the beam from here on
 
     def options(self, node: StepNode, env: dict[str, Any]) -> dict[str, Any] | None:
         ok, values = substitute(node.body, env, node.body_ref, self.problems)
         if not ok:
             return None
         return coerce_options(STEP_SPECS[node.kind], values, self.refs_of(node), self.problems)
-
-    def do_blackbody(self, node: StepNode, env: dict[str, Any], step_id: str,
-                     context: dict[str, LoopValue]) -> None:
-        p = self.options(node, env)
-        if p is None:
-            return
-        self.add(BlackbodyStep(f"{step_id}.blackbody", node.where, dict(context), mode=p["mode"],
-                               setpoint=p["value"], tolerance_k=p["tolerance"],
-                               hold_s=p["hold"], timeout_s=p["timeout"]), node)
 
     def do_move(self, node: StepNode, env: dict[str, Any], step_id: str,
                 context: dict[str, LoopValue]) -> None:
@@ -268,23 +267,6 @@ class _Expander:
             return
         self.add(MoveStep(f"{step_id}.move", node.where, dict(context), position=position), node)
         self.pose.update(position)
-
-    def do_align(self, node: StepNode, env: dict[str, Any], step_id: str,
-                 context: dict[str, LoopValue]) -> None:
-        p = self.options(node, env)
-        if p is None:
-            return
-        self.add(AlignStep(f"{step_id}.align", node.where, dict(context),
-                           tolerance_px=p["tolerance_px"], max_iterations=p["max_iterations"],
-                           frames=p["frames"], origin=p["origin"]), node)
-
-    def do_fov_scan(self, node: StepNode, env: dict[str, Any], step_id: str,
-                    context: dict[str, LoopValue]) -> None:
-        p = self.options(node, env)
-        if p is None:
-            return
-        self.add(FovScanStep(f"{step_id}.fov_scan", node.where, dict(context),
-                             tolerance_deg=p["tolerance_deg"], frames=p["frames"]), node)
 
     def do_capture(self, node: StepNode, env: dict[str, Any], step_id: str,
                    context: dict[str, LoopValue]) -> None:

@@ -17,7 +17,8 @@ from collections.abc import Mapping
 from typing import Any, Callable
 
 from sequences.facts import StationFacts
-from sequences.plansteps import AnalyzeStep, BlackbodyStep, MoveStep, PlanStep, TargetStep
+from sequences.plansteps import (AlignStep, AnalyzeStep, BlackbodyStep, FovScanStep, MoveStep,
+                                 NoteStep, PlanStep, StepBase, TargetStep, WaitStep)
 from sequences.yamlsource import MarkedDict, MarkedList, Problem, SourceRef, ref_in
 
 __all__ = [
@@ -65,33 +66,44 @@ class Option:
     minimum: float | None = None
     above: float | None = None
     unit: str = ""
+    field: str = ""  # the typed step's field this option fills ("" : the option's own name)
+
+    @property
+    def field_name(self) -> str:
+        return self.field or self.name
 
 
 @dataclass(frozen=True)
 class StepSpec:
-    """A kind of step: its options (a mapping body) or its single value (a scalar body)."""
+    """A kind of step: its options (a mapping body) or its single value (a scalar body), and the
+    typed plan step it becomes (``step_type``: each option fills the field its ``field`` names).
+    A kind with a ``step_type`` and no special expansion needs nothing else in the expander."""
 
     kind: str
     example: str
     options: dict[str, Option] = field(default_factory=dict)
     scalar: Option | None = None
     is_loop: bool = False
+    step_type: type[StepBase] | None = None
 
 
-def _spec(kind: str, example: str, *options: Option, is_loop: bool = False) -> StepSpec:
-    return StepSpec(kind, example, {o.name: o for o in options}, None, is_loop)
+def _spec(kind: str, example: str, *options: Option, is_loop: bool = False,
+          step_type: type[StepBase] | None = None) -> StepSpec:
+    return StepSpec(kind, example, {o.name: o for o in options}, None, is_loop, step_type)
 
 
 STEP_SPECS: dict[str, StepSpec] = {
     "blackbody": _spec(
         "blackbody", "blackbody: {mode: difference, value: 10}",
         Option("mode", "choice", choices=("absolute", "difference")),
-        Option("value", "number", unit="C or K"),
-        Option("tolerance", "number", 0.02, above=0.0, unit="K"),
-        Option("hold", "number", 10.0, minimum=0.0, unit="s"),
-        Option("timeout", "number", 900.0, above=0.0, unit="s"),
+        Option("value", "number", unit="C or K", field="setpoint"),
+        Option("tolerance", "number", 0.02, above=0.0, unit="K", field="tolerance_k"),
+        Option("hold", "number", 10.0, minimum=0.0, unit="s", field="hold_s"),
+        Option("timeout", "number", 900.0, above=0.0, unit="s", field="timeout_s"),
+        step_type=BlackbodyStep,
     ),
-    "target": StepSpec("target", "target: pinhole", scalar=Option("target", "text")),
+    "target": StepSpec("target", "target: pinhole", scalar=Option("target", "text"),
+                       step_type=TargetStep),
     "move": StepSpec("move", "move: {az: 10.0, el: -5.0}"),
     "capture": _spec(
         "capture", "capture: {name: flat, frames: 64}",
@@ -111,14 +123,18 @@ STEP_SPECS: dict[str, StepSpec] = {
         Option("max_iterations", "count", 8, minimum=1),
         Option("frames", "count", 4, minimum=1),
         Option("origin", "flag", True),
+        step_type=AlignStep,
     ),
     "fov_scan": _spec(
         "fov_scan", "fov_scan: {tolerance_deg: 0.02, frames: 2}",
         Option("tolerance_deg", "number", 0.02, above=0.0, unit="deg"),
         Option("frames", "count", 2, minimum=1),
+        step_type=FovScanStep,
     ),
-    "note": StepSpec("note", 'note: "text for the log"', scalar=Option("note", "text")),
-    "wait": StepSpec("wait", "wait: 30", scalar=Option("wait", "number", minimum=0.0, unit="s")),
+    "note": StepSpec("note", 'note: "text for the log"',
+                     scalar=Option("note", "text", field="text"), step_type=NoteStep),
+    "wait": StepSpec("wait", "wait: 30", scalar=Option("wait", "number", minimum=0.0, unit="s",
+                                                       field="duration_s"), step_type=WaitStep),
     "sweep": _spec(
         "sweep", "sweep: {over: diff, values: [2, 5, 10], steps: [...]}",
         Option("over", "raw"), Option("values", "raw"), Option("steps", "raw"),
@@ -297,6 +313,10 @@ def coerce_value(option: Option, value: Any, where: SourceRef, label: str,
             return fail(f"{what} must be text, not {_describe(value)}", "write it as a single value")
         value = str(value)
     elif kind == "capture_name":
+        if isinstance(value, str) and ("/" in value or "\\" in value):
+            return fail(f"capture name '{value}' contains a path separator",
+                        "a capture name becomes a file name inside the run folder's frames/: "
+                        "use letters, digits, '_', '-' or '.' only")
         if not isinstance(value, str) or not CAPTURE_NAME_PATTERN.match(value):
             return fail(f"capture name {_describe(value)} is not a plain name",
                         "use letters, digits, '_', '-' or '.', starting with a letter; loop values "

@@ -7,7 +7,6 @@ duration or a reading the same way without importing each other.
 from __future__ import annotations
 
 from collections.abc import Mapping
-from typing import Any
 
 __all__ = ["format_duration", "format_value", "format_measurement"]
 
@@ -20,7 +19,7 @@ def format_duration(seconds: float | None) -> str:
     return f"{total // 3600}:{total % 3600 // 60:02d}:{total % 60:02d}"
 
 
-def format_value(value: Any, unit: str = "") -> str:
+def format_value(value: object, unit: str = "") -> str:
     """Readings as an operator reads them: 3 decimals for floats, axes as name=value."""
     if isinstance(value, Mapping):
         return "  ".join(f"{k}={format_value(v)}" for k, v in value.items())

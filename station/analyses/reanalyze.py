@@ -6,7 +6,9 @@ folder's inputs/, so the answer does not drift when the originals are edited lat
 touches an instrument. It runs the registered analysis (station.analyses.registry), the same code
 a live run takes, over a site whose captures are the run's and whose results go to a new version
 (RUN/reanalysis/<n>/results and plots) so the run's own results stay as they were recorded;
-``replace`` writes over them instead, ``out`` writes to a folder outside any run folder.
+``replace`` writes over them instead (the run's manifest is not rewritten, so `verify` then
+reports those files as altered: the record shows the run was re-analysed in place), ``out``
+writes to a folder outside any run folder.
 """
 
 from __future__ import annotations
@@ -157,8 +159,7 @@ def analyze_run_folder(path: str | Path, analysis: str = "distortion",
     for step in steps:
         sub = "" if len(steps) == 1 else step.id
         site = FolderSite(run.path, results_dir / sub if sub else results_dir,
-                          plots_dir / sub if sub else plots_dir, run_id=run.path.name,
-                          register=run.register if replace else None)
+                          plots_dir / sub if sub else plots_dir, run_id=run.path.name)
         try:
             outcome = registry[analysis].run(site, step, context)
         except (AnalysisFailed, KeyError, OSError) as exc:
@@ -167,8 +168,6 @@ def analyze_run_folder(path: str | Path, analysis: str = "distortion",
         report.summaries[step.id] = dict(outcome.summary)
         report.verdicts.extend(outcome.verdicts)
         report.files.extend(site.written)
-    if replace:
-        run.close()
     return report
 
 

@@ -281,10 +281,8 @@ class Registry(Mapping[str, Analysis]):
             if not isinstance(step, AnalyzeStep) or step.analysis not in self._by_name:
                 continue
             analysis = self._by_name[step.analysis]
-            options, found = analysis.check_options(step)
+            options, found = analysis.check_options(step)  # bad options: their defaults
             problems.extend(found)
-            if found:
-                continue
             need = analysis.needs(options)
             given = [captures[n] for n in step.instances if n in captures]
             problems.extend(_need_problems(analysis, step, need, given, target_kind,

@@ -8,7 +8,8 @@ from pathlib import Path
 
 from rich.console import Console
 
-from drivers.clock import SimClock
+from drivers.clock import Clock, SimClock
+from station.cli.console import RunConsole
 from drivers.errors import InstrumentError
 from analysis.verdicts import FAIL, Verdict
 from station.cli import exitcodes
@@ -20,10 +21,8 @@ from station.engine.runner import (execute, load_inputs, make_clock, new_run_fol
                             plan_summary)
 
 
-def _console_for(console: Console, plain: bool, clock=None):
+def _console_for(console: Console, plain: bool, clock: Clock | None = None) -> RunConsole:
     """The live display (plain lines when not a terminal); times in the run's clock."""
-    from station.cli.console import RunConsole
-
     return RunConsole(console, plain=True if plain else None, clock=clock)
 
 
@@ -75,10 +74,15 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
         except InstrumentError as exc:
             console.print(f"[red]instrument not answering:[/] {exc}", highlight=False)
             return exitcodes.INSTRUMENT
+    if inputs.warnings:
+        console.print("[bold yellow]Warnings:[/]", highlight=False)
+        for warning in inputs.warnings:
+            console.print(f"  {warning}", highlight=False, markup=False)
     console.print(f"{len(inputs.plan.steps)} steps, {inputs.estimate.frames} frames, "
                   f"{inputs.estimate.bytes / 1e6:.1f} MB; estimated real duration "
                   f"{format_duration(inputs.estimate.total_s)}", highlight=False)
-    console.print("check passed: nothing was moved", highlight=False)
+    note = f" with {len(inputs.warnings)} warning(s)" if inputs.warnings else ""
+    console.print(f"check passed{note}: nothing was moved", highlight=False)
     return exitcodes.OK
 
 

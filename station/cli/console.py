@@ -25,7 +25,7 @@ from __future__ import annotations
 import logging
 import threading
 from collections import deque
-from collections.abc import Mapping
+from collections.abc import Sequence, Mapping
 from typing import Any
 
 from rich.console import Console, Group
@@ -261,7 +261,7 @@ class RunConsole:
 
 
 def print_table(console: Console, title: str, columns: list[str] | tuple[str, ...],
-                rows: list[Any] | tuple[Any, ...]) -> None:
+                rows: Sequence[Sequence[object]]) -> None:
     """A titled table of plain cells (every cell shown with str())."""
     table = Table(title=title)
     for c in columns:

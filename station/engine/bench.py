@@ -11,12 +11,17 @@ from collections.abc import Callable, Iterator
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from drivers.clock import Clock
 from drivers.errors import InstrumentError
 from drivers.interfaces import Blackbody, FrameGrabber, Instrument, MotionStage, TargetWheel
 from station.inputs.config import StationConfig
+
+if TYPE_CHECKING:
+    from simulators.bench import SimBench
+    from simulators.camera_truth import CameraTruth
+    from simulators.faults import FaultPlan
 
 EventSink = Callable[[dict[str, Any]], None]
 
@@ -30,7 +35,7 @@ class Bench:
     stage: MotionStage
     camera: FrameGrabber
     clock: Clock
-    simulation: Any = None  # simulators.bench.SimBench when simulated
+    simulation: SimBench | None = None  # the simulated bench behind the drivers, if any
     identities: dict[str, str] = field(default_factory=dict)
 
     def instruments(self) -> dict[str, Instrument]:
@@ -54,13 +59,12 @@ def _sim_resource(resource: str, port: int) -> str:
     return f"TCPIP::127.0.0.1::{port}::SOCKET"
 
 
-def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_rate: float,
-                      seed: int) -> FrameGrabber:
-    from simulators.camera_grabber import SimFrameGrabber
+def _simulated_scene(station: StationConfig, sim: SimBench, clock: Clock,
+                     uut_frame_rate: float, seed: int) -> dict[str, object]:
+    """What the simulated camera driver finds on its 'cable': renderer, scene, clock, rate."""
     from simulators.camera_render import CameraRenderer, SceneState
 
-    truth = camera_truth(station)
-    renderer = CameraRenderer(truth, seed=seed)
+    renderer = CameraRenderer(camera_truth(station), seed=seed)
 
     def scene() -> SceneState:
         slot = sim.slot_in_beam()
@@ -70,11 +74,11 @@ def _simulated_camera(station: StationConfig, sim: Any, clock: Clock, uut_frame_
                           az_deg=angles.get("az", 0.0), el_deg=angles.get("el", 0.0),
                           collimator_focal_mm=station.collimator_focal_mm)
 
-    return SimFrameGrabber(renderer, scene, clock, frame_rate_hz=uut_frame_rate, name="camera",
-                           faults=sim.faults)
+    return {"renderer": renderer, "scene": scene, "clock": clock,
+            "frame_rate_hz": uut_frame_rate, "faults": sim.faults}
 
 
-def camera_truth(station: StationConfig) -> Any:
+def camera_truth(station: StationConfig) -> CameraTruth:
     """The simulated camera's truth, from the file named in the station's simulation section."""
     import yaml
 
@@ -96,7 +100,7 @@ def camera_truth(station: StationConfig) -> Any:
 @contextmanager
 def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None = None,
                frame_rate_hz: float = 30.0, seed: int = 1,
-               fault_plan: Any = None) -> Iterator[Bench]:
+               fault_plan: FaultPlan | None = None) -> Iterator[Bench]:
     """Connect every instrument; close them (and stop simulators) on the way out."""
     from drivers.recovery import RetryPolicy
     from drivers.registry import find_driver
@@ -129,13 +133,11 @@ def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None
             cls = find_driver(entry.driver)
             built[role] = cls(transport, name=role, settings=entry.settings)
         cam_entry = station.instruments["camera"]
-        if cam_entry.resource.startswith("sim"):
-            camera = _simulated_camera(station, sim, clock, frame_rate_hz, seed)
-        else:
-            camera = find_driver(cam_entry.driver)(None, name="camera",
-                                                   settings={**cam_entry.settings,
-                                                             "resource": cam_entry.resource,
-                                                             "base_dir": str(station.base_dir)})
+        settings = {**cam_entry.settings, "resource": cam_entry.resource,
+                    "base_dir": str(station.base_dir)}
+        if cam_entry.resource.startswith("sim") and sim is not None:
+            settings.update(_simulated_scene(station, sim, clock, frame_rate_hz, seed))
+        camera = find_driver(cam_entry.driver)(None, name="camera", settings=settings)
         stack.callback(camera.close)
         bench = Bench(blackbody=built["blackbody"], wheel=built["wheel"],  # type: ignore[arg-type]
                       stage=built["stage"], camera=camera, clock=clock,  # type: ignore[arg-type]

@@ -22,7 +22,6 @@ import socket
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 from drivers.clock import Clock, RealClock, SimClock
 from station.record.atomic import sha256_file
@@ -31,6 +30,11 @@ from station.record.journal import JournalError
 from station.record.manifest import RUNNING, Manifest, ManifestError, load_manifest
 from station.record.runfolder import RunFolder, RunFolderError
 from station.engine.runner import Inputs, execute, load_inputs
+from station.engine.ports import Console
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from simulators.faults import FaultPlan
 
 ROLES = ("station", "uut", "recipe")
 BUILT_IN = "(built in)"
@@ -53,7 +57,7 @@ class InputChange:
     problem: str
 
 
-def check_sources(inputs_index: Mapping[str, Mapping[str, Any]]) -> list[InputChange]:
+def check_sources(inputs_index: Mapping[str, Mapping[str, object]]) -> list[InputChange]:
     """Compare each original input file (its recorded `source`) with the recorded SHA-256.
 
     Built-in inputs (no file on disk) are not compared. A missing original counts as a change:
@@ -175,8 +179,8 @@ def resume_clock(inputs: Inputs, start: float) -> Clock:
 
 
 def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None,
-               console: Any, clock: Clock | None = None,
-               fault_plan: Any = None) -> tuple[str, str, Path]:
+               console: Console, clock: Clock | None = None,
+               fault_plan: FaultPlan | None = None) -> tuple[str, str, Path]:
     """Continue the run in `path` at its first step not in the journal.
 
     Returns (end state, cause, run folder). Raises ResumeRefused (a ValueError) when the folder,

@@ -10,7 +10,7 @@ import datetime as dt
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+
 
 from drivers.clock import Clock, PacedClock, RealClock, SimClock
 from drivers.errors import InstrumentError
@@ -30,8 +30,20 @@ from station.inputs.config import BUILTIN_DIR, StationConfig, load_station
 from station.engine.sequencer import PreflightFailed, RunOutcome, Sequencer
 from station.engine.steps import StepContext
 from station.engine.timing import timing_model
-from station.inputs.uut_file import load_uut
+from station.inputs.uut_file import load_uut, spec_sources
+from station.analyses.spec_check import spec_findings
+from sequences.yamlsource import Problem, SourceError, SourceRef
 from station.record.verdicts_file import verdicts_from_journal, write_verdicts
+from station.record.manifest import Manifest
+from station.record.runfolder import RunFolder
+from station.engine.ports import Console, Emit, EventSink
+from analysis.uut import UutSpec
+from sequences.recipe import Recipe
+from collections.abc import Callable
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from simulators.faults import FaultPlan
 
 DEMO_UUT = BUILTIN_DIR / "demo_uut.yaml"
 DISK_MARGIN_BYTES = 200 * 1024 * 1024
@@ -42,18 +54,19 @@ class Inputs:
     """Validated inputs of one run: nothing has been opened or moved yet."""
 
     station: StationConfig
-    uut: Any
+    uut: UutSpec
     uut_path: Path
     recipe_path: Path
-    recipe: Any
+    recipe: Recipe
     plan: Plan
     estimate: Estimate
-    overrides: Mapping[str, Any] = field(default_factory=dict)
+    overrides: Mapping[str, object] = field(default_factory=dict)
     analyses: Registry = field(default_factory=builtin_registry)
+    warnings: list[Problem] = field(default_factory=list)  # shown by check and preflight
 
 
 def load_inputs(recipe: str | Path, *, station_path: Path | None, uut_path: Path | None,
-                overrides: Mapping[str, Any]) -> Inputs:
+                overrides: Mapping[str, object]) -> Inputs:
     """Load and validate station, UUT and recipe; raises SourceError (all problems) if bad."""
     station = load_station(station_path)
     uut_file = Path(uut_path) if uut_path is not None else DEMO_UUT
@@ -63,10 +76,20 @@ def load_inputs(recipe: str | Path, *, station_path: Path | None, uut_path: Path
     parsed = load_recipe(recipe_path, overrides=dict(overrides),
                          facts=recipe_facts(station, registry))
     plan = expand(parsed)
+    problems, warnings = spec_findings(uut, spec_sources(uut_file),
+                                       SourceRef(str(uut_file), 1, 1), plan.steps, registry)
+    if problems:
+        raise SourceError(problems)
     timing = timing_model(station, frame_rate_hz=uut.frame_rate_hz,
                           frame_shape=(uut.height, uut.width))
-    return Inputs(station, uut, uut_file, recipe_path, parsed, plan, estimate(plan, timing),
-                  dict(overrides), registry)
+    planned = estimate(plan, timing)
+    warnings.extend(w.as_problem() for w in planned.warnings)
+    return Inputs(station, uut, uut_file, recipe_path, parsed, plan, planned,
+                  dict(overrides), registry, sorted(warnings, key=_place))
+
+
+def _place(problem: Problem) -> tuple[str, int, int]:
+    return (problem.where.file, problem.where.line, problem.where.column)
 
 
 def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
@@ -78,7 +101,7 @@ def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
     return SimClock()
 
 
-def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: Any,
+def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Emit, console: Console,
               expected_identities: Mapping[str, str] | None = None) -> None:
     """Before anything moves: instruments answer (the same ones, when resuming), setpoints
     within limits, disk is enough."""
@@ -105,8 +128,8 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
             if refusal is not None:
                 raise PreflightFailed(f"{step.id} ({step.source}): {refusal.message}; "
                                       f"{refusal.hint}")
-    for warning in inputs.estimate.warnings:
-        emit("preflight.warning", step=warning.step_id, text=str(warning))
+    for warning in inputs.warnings:
+        emit("preflight.warning", text=str(warning))
         console.log("warning", str(warning))
     try:
         check_free_space(run_dir, int(inputs.estimate.bytes), DISK_MARGIN_BYTES)
@@ -118,7 +141,7 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Any, console: A
                 f"{inputs.estimate.frames} frames, estimated {format_duration(inputs.estimate.total_s)}")
 
 
-def plan_summary(inputs: Inputs, seed: int) -> dict[str, Any]:
+def plan_summary(inputs: Inputs, seed: int) -> dict[str, object]:
     """What the manifest records about the plan (resume reads it back)."""
     return {"recipe": inputs.plan.recipe, "station": inputs.station.name,
             "uut_serial": inputs.uut.serial, "overrides": dict(inputs.overrides), "seed": seed,
@@ -126,9 +149,9 @@ def plan_summary(inputs: Inputs, seed: int) -> dict[str, Any]:
             "estimate_s": inputs.estimate.total_s, "simulated": inputs.station.simulated}
 
 
-def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
-            completed: Mapping[str, Any] | None = None, fault_plan: Any = None,
-            manifest: Any = None,
+def execute(inputs: Inputs, run: RunFolder, clock: Clock, console: Console, *, seed: int,
+            completed: Mapping[str, object] | None = None,
+            fault_plan: FaultPlan | None = None, manifest: Manifest | None = None,
             expected_identities: Mapping[str, str] | None = None) -> RunOutcome:
     """Open the bench and run the plan into `run` (a RunFolder). Always leaves the bench safe."""
     requests = OperatorRequests()
@@ -165,19 +188,17 @@ def execute(inputs: Inputs, run: Any, clock: Clock, console: Any, *, seed: int,
                               len(inputs.plan.steps))
 
 
-def io_sink(events: Any) -> Any:
+def io_sink(events: EventSink) -> Callable[[dict[str, object]], None]:
     """Adapt the transports' event dicts to the run's event log."""
 
-    def sink(event: dict[str, Any]) -> None:
+    def sink(event: dict[str, object]) -> None:
         fields = {("at" if k == "t" else k): v for k, v in event.items() if k != "type"}
         events.emit(str(event.get("type", "io")), **fields)
 
     return sink
 
 
-def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> Any:
-    from station.record.runfolder import RunFolder
-
+def new_run_folder(inputs: Inputs, runs_root: Path, clock: Clock) -> RunFolder:
     utc = dt.datetime.fromtimestamp(clock.now(), tz=dt.timezone.utc)
     run = RunFolder.create(Path(runs_root).resolve(), uut_serial=inputs.uut.serial,
                            recipe_name=inputs.plan.recipe, utc=utc, clock=clock)

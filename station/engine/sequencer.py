@@ -11,7 +11,6 @@ import time
 import traceback
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from typing import Any
 
 from drivers.errors import InstrumentError, LimitError
 from station.engine.abort import RunInterrupted
@@ -20,7 +19,9 @@ from station.engine.safing import make_safe
 from station.engine.steps import JOURNAL_RESTORERS, STEP_HANDLERS, StepContext, StepHandler
 from station.engine.waiting import StepFailed
 from analysis.verdicts import Verdict
+from sequences.plan import Plan
 from sequences.plansteps import PlanStep
+from station.engine.ports import Console, JournalWriter
 
 RESTORE_KINDS = ("blackbody", "target", "move")
 READINGS_REFRESH_S = 1.0  # real seconds between console readings while a step waits
@@ -47,8 +48,9 @@ def describe(step: PlanStep) -> str:
 class Sequencer:
     """Execute `plan` against `ctx`; the console and journal are told everything."""
 
-    def __init__(self, plan: Any, ctx: StepContext, *, journal: Any, console: Any,
-                 preflight: Callable[[], None], completed: Mapping[str, Any] | None = None,
+    def __init__(self, plan: Plan, ctx: StepContext, *, journal: JournalWriter,
+                 console: Console, preflight: Callable[[], None],
+                 completed: Mapping[str, object] | None = None,
                  handlers: Mapping[str, StepHandler] = STEP_HANDLERS) -> None:
         self.plan = plan
         self.ctx = ctx
@@ -64,7 +66,7 @@ class Sequencer:
         ctx.tick = self._refresh_readings
         self._last_refresh = 0.0
         self.steps_done = len(self.completed)
-        self.current_step: Any = None
+        self.current_step: PlanStep | None = None
 
     def _on_transition(self, source: str, dest: str, trigger: str, cause: str) -> None:
         self.ctx.emit("state", source=source, dest=dest, trigger=trigger, cause=cause)
@@ -130,7 +132,7 @@ class Sequencer:
             return
         first_open = next((i for i, s in enumerate(self.plan.steps)
                            if s.id not in self.completed), len(self.plan.steps))
-        latest: dict[str, Any] = {}
+        latest: dict[str, PlanStep] = {}
         for step in self.plan.steps[:first_open]:
             restorer = JOURNAL_RESTORERS.get(step.kind)
             if restorer is not None and step.id in self.completed:
@@ -145,9 +147,8 @@ class Sequencer:
                 self.handlers[kind](step, self.ctx)
 
     @staticmethod
-    def plan_source(step: Any) -> str:
-        where = getattr(step, "source", None)
-        return f"recipe line {where.line}" if where is not None else "recipe"
+    def plan_source(step: PlanStep) -> str:
+        return f"recipe line {step.source.line}"
 
     def _pause_point(self) -> None:
         if not self.ctx.requests.pause_requested:

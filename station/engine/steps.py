@@ -11,7 +11,6 @@ from __future__ import annotations
 import datetime as _dt
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Protocol
 
 from analysis.uut import UutSpec
 from analysis.verdicts import Verdict
@@ -25,18 +24,13 @@ from station.analyses.site import FolderSite
 from station.engine.abort import OperatorRequests
 from station.engine.align import restore_align_origin, run_align, run_fov_scan
 from station.engine.bench import Bench
+from station.engine.ports import Emit
 from station.inputs.config import StationConfig
 from station.engine.waiting import SettleCriterion, StepFailed, wait_settled, wait_until
 from station.record.frame_store import CaptureWriter
 from station.record.runfolder import RunFolder
 
 JournalData = dict[str, object]
-
-
-class Emit(Protocol):
-    """Append one event to the run's log (station.record.events.EventLog.emit)."""
-
-    def __call__(self, type: str, **fields: object) -> object: ...  # noqa: A002
 
 POLL_S = 1.0
 WHEEL_TIMEOUT_S = 120.0

@@ -64,7 +64,7 @@ def _human(n: int) -> str:
     return f"{n} B"
 
 
-def to_jsonable(obj: Any) -> Any:
+def to_jsonable(obj: object) -> object:
     """Convert numpy scalars/arrays, paths, datetimes, sets and dataclasses to plain JSON values.
 
     Non-finite floats become None: RFC 8259 (JSON) has no NaN or Infinity, and other tools must be
@@ -96,7 +96,7 @@ def to_jsonable(obj: Any) -> Any:
     raise TypeError(f"cannot store a {type(obj).__name__} in JSON: {obj!r}")
 
 
-def dumps_json(obj: Any, *, indent: int | None = 2) -> str:
+def dumps_json(obj: object, *, indent: int | None = 2) -> str:
     """JSON text with sorted keys (stable checksums, readable diffs) and plain values only."""
     separators = None if indent is not None else (",", ":")
     return json.dumps(to_jsonable(obj), sort_keys=True, indent=indent, allow_nan=False,
@@ -161,7 +161,7 @@ def write_text_atomic(path: Path | str, text: str, encoding: str = "utf-8") -> P
     return write_bytes_atomic(path, text.encode(encoding))
 
 
-def write_json_atomic(path: Path | str, obj: Any) -> Path:
+def write_json_atomic(path: Path | str, obj: object) -> Path:
     """Atomic JSON write: sorted keys, indent 2, numpy values converted, trailing newline."""
     return write_text_atomic(path, dumps_json(obj) + "\n")
 

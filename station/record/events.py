@@ -3,24 +3,27 @@
 Why append-only JSON lines: a kill -9 or a power cut can at worst tear the last line, every earlier
 line stays readable, and the file can be followed live (`tail -f`) or loaded with any JSON reader.
 Lines are flushed to the operating system at once; fsync (to the disk) happens every
-`fsync_every` events and at once for important types such as state changes, so a power cut loses
-at most a few routine lines and never a state change.
+`fsync_every` events and at once for the types :class:`Event` marks flush-at-once (state
+changes, step boundaries, captures ...), so a power cut loses at most a few routine lines and
+never a state change. Every event type is a member of :class:`Event`; the log refuses others.
 
 Example::
 
     log = EventLog(run / "events.jsonl", clock)
-    log.emit("state", name="running", cause="preflight passed")
+    log.emit(Event.STATE, name="running", cause="preflight passed")
     events = read_events(run / "events.jsonl")
 """
 
 from __future__ import annotations
 
 import datetime as _dt
+import difflib
 import json
 import os
 import threading
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
+from enum import Enum
 from pathlib import Path
 from typing import Any
 
@@ -30,10 +33,75 @@ from station.record.atomic import dumps_json, fsync_dir
 RESERVED_KEYS = frozenset({"t", "utc", "type", "seq"})
 """Keys every event carries; `emit` refuses fields with these names."""
 
-DEFAULT_SYNC_TYPES = frozenset({
-    "state", "run_start", "run_end", "step_start", "step_done", "fault", "abort",
-    "capture_done", "capture_abandoned", "recovery", "error", "log_repaired",
-})
+class Event(str, Enum):
+    """Every kind of event a run writes, each marked flush-at-once (``True``: on the disk before
+    the run goes on) or buffered (synced every ``fsync_every`` events).
+
+    At once: what resume, the post-mortem or the operator must find after a power cut (state
+    changes, step boundaries, finished or abandoned captures, safing, recoveries, analysis
+    results). Buffered: the routine traffic (every command and reply, readings, notes).
+
+    >>> Event("step.done").flush, Event.IO.flush
+    (True, False)
+    """
+
+    flush: bool
+
+    def __new__(cls, name: str, flush: bool) -> "Event":
+        member = str.__new__(cls, name)
+        member._value_ = name
+        member.flush = flush
+        return member
+
+    STATE = ("state", True)
+    STEP_START = ("step.start", True)
+    STEP_DONE = ("step.done", True)
+    CAPTURE_STORED = ("capture.stored", True)        # the capture's files are closed and synced
+    CAPTURE_DONE = ("capture.done", True)            # the step accepted the capture
+    CAPTURE_ABANDONED = ("capture.abandoned", True)  # files set aside (see frames/abandoned/)
+    CAPTURE_DISCARDED = ("capture.discarded", True)  # guard failed mid-capture: retaken
+    FRAME_GAP = ("frame.gap", False)
+    FRAME_REJECTED = ("frame.rejected", False)
+    BLACKBODY_SETTLED = ("blackbody.settled", False)
+    ANALYSIS_DONE = ("analysis.done", True)
+    ALIGN_ITERATION = ("align.iteration", True)      # one look of the closed loop
+    ALIGN_DONE = ("align.done", True)
+    STAGE_ORIGIN = ("stage.origin", True)            # the aligned pose became the origin
+    FOV_SCAN_LOOK = ("fov_scan.look", False)         # one probe of an edge bisection
+    FOV_SCAN_DONE = ("fov_scan.done", True)
+    FILE_WRITTEN = ("file_written", True)
+    PREFLIGHT_IDENTITY = ("preflight.identity", False)
+    PREFLIGHT_WARNING = ("preflight.warning", False)
+    PREFLIGHT_PASSED = ("preflight.passed", True)
+    RESUME_START = ("resume.start", True)
+    RESUME_RESTORE = ("resume.restore", True)
+    SAFING_BLACKBODY = ("safing.blackbody", True)
+    SAFING_STAGE = ("safing.stage", True)
+    INTERNAL_ERROR = ("internal_error", True)
+    LOG = ("log", False)
+    LOG_REPAIRED = ("log_repaired", True)
+    IO = ("io", False)                               # one command and its reply
+    TRANSPORT_RETRY = ("transport.retry", False)
+    TRANSPORT_RECONNECT = ("transport.reconnect", True)
+    TRANSPORT_RECONNECT_FAILED = ("transport.reconnect_failed", True)
+    TRANSPORT_GIVE_UP = ("transport.give_up", True)
+
+
+def event_type(name: "Event | str") -> Event:
+    """The enumeration member of an event name; ValueError naming the closest known one."""
+    if isinstance(name, Event):
+        return name
+    try:
+        return Event(name)
+    except ValueError:
+        known = [e.value for e in Event]
+        close = difflib.get_close_matches(str(name), known, n=1, cutoff=0.6)
+        hint = f"did you mean '{close[0]}'?" if close else f"known: {', '.join(known)}"
+        raise ValueError(f"unknown event type {name!r} (events are station.record.events."
+                         f"Event members); {hint}") from None
+
+
+DEFAULT_SYNC_TYPES = frozenset(e.value for e in Event if e.flush)
 """Event types written through to the disk at once (they matter for resume and post-mortem)."""
 
 Subscriber = Callable[[dict[str, Any]], None]
@@ -79,8 +147,12 @@ class EventLog:
                       why="the previous session ended in the middle of writing this line")
 
     # -- writing ---------------------------------------------------------------------------------
-    def emit(self, type: str, **fields: Any) -> dict[str, Any]:  # noqa: A002 - the field is "type"
-        """Append one event; returns the record as written (also given to subscribers)."""
+    def emit(self, type: Event | str, **fields: Any) -> dict[str, Any]:  # noqa: A002
+        """Append one event; returns the record as written (also given to subscribers).
+
+        ``type`` must be an :class:`Event` (or its name): an unknown name is refused.
+        """
+        kind = event_type(type)
         clash = RESERVED_KEYS.intersection(fields)
         if clash:
             raise ValueError(f"event fields may not be named {sorted(clash)} (reserved)")
@@ -89,7 +161,7 @@ class EventLog:
                 raise ValueError(f"event log {self.path} is closed; reopen it with EventLog(...)")
             now = self.clock.now()
             record: dict[str, Any] = {"seq": self._seq + 1, "t": round(now, 6),
-                                      "utc": utc_iso(now), "type": str(type)}
+                                      "utc": utc_iso(now), "type": kind.value}
             record.update(fields)
             try:
                 line = dumps_json(record, indent=None) + "\n"
@@ -100,7 +172,7 @@ class EventLog:
             self._fh.write(line.encode("utf-8"))
             self._fh.flush()
             self._since_sync += 1
-            if type in self.sync_types or self._since_sync >= self.fsync_every:
+            if kind.value in self.sync_types or self._since_sync >= self.fsync_every:
                 os.fsync(self._fh.fileno())
                 self._since_sync = 0
             for fn in list(self._subscribers):

@@ -36,7 +36,7 @@ import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Literal
+from typing import Any, Literal, Protocol, Union
 
 import numpy as np
 import tifffile
@@ -181,7 +181,7 @@ def abandon_files(frames_dir: Path, step_id: str, files: list[Path], reason: str
         "frames_added": frames_added, "files": listing,
         "note": "set aside; never mixed with the frames of the capture that replaced it"})
     if events is not None:
-        events.emit("capture_abandoned", step=step_id, reason=reason,
+        events.emit("capture.abandoned", step=step_id, reason=reason,
                     folder=target.relative_to(frames_dir.parent).as_posix(),
                     files=sorted(listing), frames_added=frames_added)
     return target
@@ -383,7 +383,7 @@ class CaptureWriter:
             average_path=self.files["average"] if "average" in record_files else None,
             checksums=checksums, sizes=sizes)
         if self.events is not None:
-            self.events.emit("capture_done", step=self.step_id, name=self.name,
+            self.events.emit("capture.stored", step=self.step_id, name=self.name,
                              count=self.count, counter_gaps=gaps, repeated_counters=repeats,
                              files=sorted(checksums))
         return record
@@ -420,13 +420,22 @@ class CaptureWriter:
             self.abandon(why)
 
 
+class _HasPath(Protocol):
+    @property
+    def path(self) -> Path: ...
+
+
+RunLocation = Union[Path, str, _HasPath]
+"""A run folder (anything with a ``path``, e.g. RunFolder) or its path."""
+
+
 # -- reading back ----------------------------------------------------------------------------------
-def _frames_dir(run: Any) -> Path:
-    root = Path(getattr(run, "path", run))
+def _frames_dir(run: RunLocation) -> Path:
+    root = Path(run) if isinstance(run, (str, Path)) else Path(run.path)
     return root / "frames"
 
 
-def load_metadata(run: Any, name: str) -> dict[str, Any]:
+def load_metadata(run: RunLocation, name: str) -> dict[str, Any]:
     """The metadata of a finished capture; `run` is a RunFolder or a run folder path."""
     path = capture_files(_frames_dir(run), safe_name(name))["metadata"]
     if not path.exists():
@@ -439,7 +448,7 @@ def load_metadata(run: Any, name: str) -> dict[str, Any]:
             from None
 
 
-def _load_tiff(run: Any, name: str, role: str) -> np.ndarray:
+def _load_tiff(run: RunLocation, name: str, role: str) -> np.ndarray:
     meta = load_metadata(run, name)
     if role not in meta.get("files", {}):
         raise FrameStoreError(f"capture {name!r} kept {meta.get('keep')!r}, so it has no {role}; "
@@ -448,18 +457,18 @@ def _load_tiff(run: Any, name: str, role: str) -> np.ndarray:
     return tifffile.imread(path)
 
 
-def load_average(run: Any, name: str) -> np.ndarray:
+def load_average(run: RunLocation, name: str) -> np.ndarray:
     """The float32 average image (rows, cols) of a finished capture."""
     return _load_tiff(run, name, "average")
 
 
-def load_stack(run: Any, name: str) -> np.ndarray:
+def load_stack(run: RunLocation, name: str) -> np.ndarray:
     """The uint16 stack (frames, rows, cols) of a finished capture."""
     stack = _load_tiff(run, name, "stack")
     return stack[np.newaxis] if stack.ndim == 2 else stack
 
 
-def list_captures(run: Any) -> list[str]:
+def list_captures(run: RunLocation) -> list[str]:
     """Names of the finished captures of a run, sorted."""
     frames = _frames_dir(run)
     names = []

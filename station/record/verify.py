@@ -140,10 +140,19 @@ def _check_manifest(root: Path, report: VerifyReport) -> None:
         rel = file.relative_to(root).as_posix()
         if rel == MANIFEST_NAME or rel in listed:
             continue
+        if rel.startswith(REANALYSIS_PREFIX):  # written after the run by `nightbench analyze`
+            version = rel.split("/")[1] if rel.count("/") > 1 else ""
+            note = f"re-analysis {version} (reanalysis/{version}/) is not part of the run record"
+            if note not in report.notes:
+                report.notes.append(note)
+            continue
         if file.name.endswith(TEMP_SUFFIX):
             report.temporary.append(rel)
         elif not file.name.endswith(".partial"):
             report.extra.append(rel)
+
+
+REANALYSIS_PREFIX = "reanalysis/"
 
 
 def _check_partials_and_abandoned(root: Path, report: VerifyReport) -> None:

@@ -96,7 +96,7 @@ def check_frames(run: Path, inputs) -> list[str]:
     """Planned captures against frames on disk: one each, exact counts, no repeats, no gaps
     between what the metadata lists and what the stack holds."""
     problems = []
-    planned = {s.params["name"]: int(s.params["frames"]) for s in inputs.plan.steps
+    planned = {s.name: s.frames for s in inputs.plan.steps
                if s.kind == "capture"}
     found = {}
     for meta_path in (run / "frames").glob("*.json"):

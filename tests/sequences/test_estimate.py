@@ -139,3 +139,16 @@ def test_overnight_soak_is_at_least_eight_hours(facts, timing) -> None:
     est = estimate(expand(load_recipe(find_recipe("overnight-soak"), facts=facts)), timing)
     assert est.total_s >= 8 * 3600
     assert est.frames == 5 * 64 + 21 * 11 * 8   # five flat fields, then the field scan
+
+
+def test_settle_within_ten_percent_of_timeout_is_warned(facts, timing) -> None:
+    # 20 C -> 21 C difference 1 K: no slew phase (1 K < S tau = 3 K), decay 60 ln(1/0.02) s
+    # = 234.7 s, plus the 10 s hold: 244.7 s. A 260 s timeout leaves 6 %: warned, not exceeded.
+    needed = 60.0 * math.log(1.0 / 0.02) + 10.0
+    text = "steps:\n  - blackbody: {mode: difference, value: 1, timeout: 260}\n"
+    est = estimate(expand(load_recipe("n.yaml", facts=facts, text=text)), timing)
+    (warning,) = est.warnings
+    assert warning.needed_s == pytest.approx(needed, rel=1e-12)
+    assert not warning.exceeds and "within 10 %" in str(warning)
+    text = "steps:\n  - blackbody: {mode: difference, value: 1, timeout: 300}\n"
+    assert estimate(expand(load_recipe("n.yaml", facts=facts, text=text)), timing).warnings == []

@@ -54,6 +54,7 @@ CASES = [
     ("timeout_shorter_than_hold.yaml", "timeout 30 s is not longer than its hold time 60 s", 7),
     ("loop_variable_hides_parameter.yaml", "loop variable 'd' hides a parameter", 5),
     ("duplicate_key.yaml", "key 'frames' appears twice", 6),
+    ("capture_name_path.yaml", "capture name '../../etc/flat' contains a path separator", 4),
 ]
 
 

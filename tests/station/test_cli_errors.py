@@ -60,6 +60,26 @@ CASES = [
      "capture name 'flat' is already used"),
     ("empty-sweep", "  - sweep:\n      over: d\n      values: []\n      steps:\n"
      "        - note: never\n", "values", "sweep values must not be empty"),
+    # the analysis registry's checks (station/analyses): options, targets, poses
+    ("misspelt-analysis-option", "  - target: pinhole_grid\n  - capture: {name: g, frames: 4}\n"
+     "  - analyze: {analysis: distortion, captures: [g], options: {mod: scan}}\n", "mod: scan",
+     "unknown option 'mod' for analysis distortion. did you mean 'mode'?"),
+    ("option-naming-a-folder", "  - target: pinhole_grid\n  - capture: {name: g, frames: 4}\n"
+     "  - analyze: {analysis: distortion, captures: [g],\n"
+     "              options: {mode: grid, results_dir: /tmp/elsewhere}}\n", "results_dir",
+     "option 'results_dir' of distortion names a place on disk"),
+    ("grid-analysis-on-pinhole", "  - target: pinhole\n  - capture: {name: spot, frames: 4}\n"
+     "  - analyze: {analysis: distortion, captures: [spot], options: {mode: grid}}\n",
+     "analyze", "distortion (grid mode) needs a pinhole_grid target in the beam; capture 'spot' "
+     "(line 7) has 'pinhole' (single_pinhole)"),
+    ("scan-analysis-without-angular-axes",
+     "  - target: pinhole\n  - sweep:\n      over: d\n      values: [1, 2, 3, 4, 5, 6]\n"
+     "      steps:\n        - capture: {name: spot, frames: 4}\n"
+     "  - analyze: {analysis: distortion, captures: [spot], options: {mode: scan}}\n",
+     "analyze", "distortion (scan mode) needs each capture taken at a stage pose with angular "
+     "axes az and el; capture 'spot[d=1]' (line 11) is at axes: none"),
+    ("capture-name-with-path-separator", "  - capture: {name: ../flat, frames: 4}\n", "../flat",
+     "capture name '../flat' contains a path separator"),
 ]
 
 
@@ -128,3 +148,76 @@ def test_override_of_undeclared_parameter(capsys, monkeypatch) -> None:
     assert code == exitcodes.INVALID
     assert "override of 'frams': the recipe declares no such parameter" in out
     assert "did you mean 'frames'?" in out
+
+
+def test_blackbody_timeout_shorter_than_its_settling_is_warned(tmp_path, capsys,
+                                                              monkeypatch) -> None:
+    # The simulated bench's blackbody (sim_station.yaml: slew 0.1 K/s, tau 60 s) needs minutes
+    # to go 40 K up; a 100 s timeout cannot be met. check warns with the line, before anything
+    # moves, and still passes (the model may be pessimistic).
+    text = HEAD + "  - blackbody: {mode: difference, value: 40, timeout: 100}\n"
+    path = tmp_path / "slow.yaml"
+    path.write_text(text, encoding="utf-8")
+    code, out = check(capsys, monkeypatch, str(path))
+    assert code == exitcodes.OK
+    (line,) = [x.strip() for x in out.splitlines() if "times out after 100 s" in x]
+    assert line.startswith(f"{path}:6:") and "s2.blackbody: the blackbody needs about" in line
+    needed = float(line.split("needs about ")[1].split(" s")[0])
+    assert needed > 300  # slew alone: (40 - 0.1 * 60) / 0.1 = 340 s
+
+
+def test_netd_condition_mismatch_is_warned_with_the_recipe_line(capsys, monkeypatch) -> None:
+    # sitf-sweep's NETD stack is the first flat, at a 2 K difference near the lab reference;
+    # the demo UUT states NETD at 30 C over 20 C (10 K).
+    from sequences.library import find_recipe
+
+    recipe = find_recipe("sitf-sweep")
+    line = 1 + next(i for i, x in enumerate(recipe.read_text().splitlines())
+                    if "analysis: netd" in x)
+    code, out = check(capsys, monkeypatch, "sitf-sweep")
+    assert code == exitcodes.OK
+    (warning,) = [x.strip() for x in out.splitlines() if "measures 'netd_mk'" in x]
+    assert warning.startswith(f"{recipe}:{line}:")
+    assert "a 2 K blackbody difference" in warning and "the spec's is 10 K" in warning
+    assert "source_c = 30, background_c = 20" in warning
+
+
+def test_unknown_spec_key_in_the_uut_file_is_refused(tmp_path, capsys, monkeypatch) -> None:
+    from station.inputs.uut_file import demo_uut_path
+
+    text = demo_uut_path().read_text(encoding="utf-8").replace(
+        "max_roll_deg:", "max_rol_deg:")
+    uut = tmp_path / "uut.yaml"
+    uut.write_text(text, encoding="utf-8")
+    line = 1 + next(i for i, x in enumerate(text.splitlines()) if "max_rol_deg" in x)
+    code, out = check(capsys, monkeypatch, "distortion-grid", "--uut", str(uut))
+    assert code == exitcodes.INVALID
+    (problem,) = [x.strip() for x in out.splitlines() if "max_rol_deg" in x]
+    assert problem.startswith(f"{uut}:{line}:") and "did you mean 'max_roll_deg'?" in problem
+
+
+def test_scan_over_a_linear_axis_is_refused_for_a_scan_analysis(tmp_path, capsys,
+                                                                monkeypatch) -> None:
+    # A station whose stage is one linear axis in mm: a scan over it has no angular pose, so
+    # the distortion scan (which needs az and el in degrees) is refused at check.
+    from tests.station.fast_bench import fast_station_yaml
+
+    text = fast_station_yaml("linear-bench", timeout_s=1.0).replace(
+        "      az: {min: -40.0, max: 40.0, park: 0.0, unit: deg}\n"
+        "      el: {min: -30.0, max: 30.0, park: 0.0, unit: deg}\n",
+        "      x: {min: -50.0, max: 50.0, park: 0.0, unit: mm}\n")
+    text = text.replace("pinhole_grid, target: {kind: pinhole_grid, rows: 11, cols: 15, "
+                        "pitch_mm: 12.0,\n           diameter_mm: 1.0}",
+                        "pinhole, target: {kind: single_pinhole, diameter_mm: 1.0}")
+    station = tmp_path / "linear.yaml"
+    station.write_text(text, encoding="utf-8")
+    recipe = tmp_path / "scan.yaml"
+    recipe.write_text("recipe: linear-scan\nsteps:\n  - target: pinhole\n  - scan:\n"
+                      "      axes: {x: {from: -25, to: 25, step: 5}}\n      steps:\n"
+                      "        - capture: {name: spot, frames: 2}\n"
+                      "  - analyze: {analysis: distortion, captures: [spot], "
+                      "options: {mode: scan}}\n", encoding="utf-8")
+    code, out = check(capsys, monkeypatch, str(recipe), "--station", str(station))
+    assert code == exitcodes.INVALID, out
+    (line,) = [x.strip() for x in out.splitlines() if "angular axes az and el" in x]
+    assert line.startswith(f"{recipe}:8:") and "is at axes: x (mm)" in line

@@ -108,7 +108,7 @@ def test_event_log_and_logging_feed_the_same_console(tmp_path) -> None:  # type:
     with EventLog(tmp_path / "e.jsonl", clock) as log:
         log.subscribe(ui.on_event)
         log.emit("state", name="paused", cause="operator pressed pause")
-        log.emit("reply", command="TEMP?", reply="25.001")  # routine: file only in plain mode
+        log.emit("io", command="TEMP?", reply="25.001")  # routine: file only in plain mode
     logger = logging.getLogger("nightbench.test_console")
     logger.propagate = False
     handler = ui.logging_handler()

@@ -41,7 +41,7 @@ def test_four_threads_lose_and_interleave_nothing(tmp_path: Path) -> None:
 
     def writer(k: int) -> None:
         for i in range(500):
-            log.emit("reading", thread=k, i=i, pad="y" * 300)
+            log.emit("io", thread=k, i=i, pad="y" * 300)
 
     threads = [threading.Thread(target=writer, args=(k,)) for k in range(4)]
     for th in threads:
@@ -65,7 +65,7 @@ def test_fsync_every_n_events_and_at_once_for_state_changes(tmp_path: Path,
     monkeypatch.setattr(events_mod, "fsync_dir", lambda path: None)  # count file syncs only
     log = EventLog(tmp_path / "e.jsonl", SimClock(), fsync_every=10)
     for i in range(25):
-        log.emit("reply", i=i)
+        log.emit("io", i=i)
     assert len(calls) == 2  # after events 10 and 20
     log.emit("state", name="held")
     assert len(calls) == 3  # a state change goes to the disk at once
@@ -77,14 +77,14 @@ def test_torn_last_line_is_tolerated_then_cut_on_reopen(tmp_path: Path) -> None:
     clock = SimClock()
     with EventLog(path, clock) as log:
         for i in range(5):
-            log.emit("reply", i=i)
-    torn = b'{"seq": 6, "t": 1.0, "type": "rep'
+            log.emit("io", i=i)
+    torn = b'{"seq": 6, "t": 1.0, "type": "i'
     with open(path, "ab") as fh:
         fh.write(torn)
     scan = scan_events(path)
     assert (len(scan.events), scan.torn_tail, scan.bad_lines) == (5, True, [])
     with EventLog(path, clock) as log:
-        log.emit("reply", i=5)
+        log.emit("io", i=5)
     events = read_events(path)
     assert [e["seq"] for e in events] == [1, 2, 3, 4, 5, 6, 7]
     assert events[5]["type"] == "log_repaired" and events[5]["dropped_bytes"] == len(torn)
@@ -104,11 +104,11 @@ def test_subscribers_see_each_event_and_a_broken_one_does_not_stop_the_log(tmp_p
     log = EventLog(tmp_path / "e.jsonl", SimClock())
     stop = log.subscribe(lambda e: seen.append(e["type"]))
     log.subscribe(lambda e: 1 / 0)
-    log.emit("a")
+    log.emit("log")
     stop()
-    log.emit("b")
+    log.emit("io")
     log.close()
-    assert seen == ["a"]
+    assert seen == ["log"]
     assert log.subscriber_errors == 2
     assert len(read_events(tmp_path / "e.jsonl")) == 2
 
@@ -116,16 +116,16 @@ def test_subscribers_see_each_event_and_a_broken_one_does_not_stop_the_log(tmp_p
 def test_reserved_field_names_and_closed_log_are_refused(tmp_path: Path) -> None:
     log = EventLog(tmp_path / "e.jsonl", SimClock())
     with pytest.raises(ValueError, match="reserved"):
-        log.emit("x", t=1.0)
+        log.emit("log", t=1.0)
     log.close()
     with pytest.raises(ValueError, match="closed"):
-        log.emit("x")
+        log.emit("log")
     assert read_events(tmp_path / "e.jsonl") == []
 
 
 def test_unserialisable_value_is_kept_as_text(tmp_path: Path) -> None:
     with EventLog(tmp_path / "e.jsonl", SimClock()) as log:
-        log.emit("reply", obj=object(), n=3)
+        log.emit("io", obj=object(), n=3)
     (event,) = read_events(tmp_path / "e.jsonl")
     assert event["obj"].startswith("<object object") and event["n"] == 3
 
@@ -137,7 +137,7 @@ def test_kill_9_keeps_every_acknowledged_event(tmp_path: Path) -> None:
         from station.record.events import EventLog
         log = EventLog({str(path)!r}, SimClock(), fsync_every=25)
         for i in range(1, 1000000):
-            log.emit("reply", i=i, pad="z" * 500)
+            log.emit("io", i=i, pad="z" * 500)
             if i % 20 == 0:
                 print(i, flush=True)
     """)
@@ -156,3 +156,19 @@ def test_kill_9_keeps_every_acknowledged_event(tmp_path: Path) -> None:
     assert seqs == list(range(1, len(seqs) + 1))  # nothing lost before the last whole line
     assert len(seqs) >= acknowledged
     assert all(json.dumps(e) for e in scan.events)
+
+
+def test_unknown_event_names_are_refused_with_the_closest_known(tmp_path: Path) -> None:
+    log = EventLog(tmp_path / "e.jsonl", SimClock())
+    with pytest.raises(ValueError, match="did you mean 'capture.done'"):
+        log.emit("capture_done", step="s1")
+    log.close()
+    assert read_events(tmp_path / "e.jsonl") == []
+
+
+def test_each_member_is_marked_and_the_sync_set_follows_the_marks() -> None:
+    from station.record.events import DEFAULT_SYNC_TYPES, Event
+
+    assert {e.value for e in Event if e.flush} == set(DEFAULT_SYNC_TYPES)
+    assert {"state", "step.done", "capture.stored", "capture.done"} <= DEFAULT_SYNC_TYPES
+    assert "io" not in DEFAULT_SYNC_TYPES

@@ -119,7 +119,7 @@ def test_abandon_moves_partials_aside_with_reason(tmp_path: Path) -> None:
     assert reason["step_id"] == "sweep[2].capture" and reason["frames_added"] == 7
     assert reason["files"]["flat.stack.tif.partial"]["readable_pages"] == 7
     assert np.array_equal(tifffile.imread(folder / "flat.stack.tif.partial")[6], frames(7)[6].data)
-    (event,) = read_events(tmp_path / "events.jsonl", "capture_abandoned")
+    (event,) = read_events(tmp_path / "events.jsonl", "capture.abandoned")
     assert event["frames_added"] == 7
     log.close()
 

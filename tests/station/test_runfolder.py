@@ -91,7 +91,7 @@ def test_capture_and_registered_result_are_logged(tmp_path: Path) -> None:
         folder.register(tmp_path / "elsewhere.txt")
     folder.close()
     kinds = [e["type"] for e in read_events(folder.events_path)]
-    assert kinds == ["capture_done", "file_written"]
+    assert kinds == ["capture.stored", "file_written"]
     # The mean of 100, 101, 102 is exactly 101 (float32 holds it exactly).
     from station.record.frame_store import load_average
     assert float(load_average(folder, "flat").mean()) == 101.0
@@ -108,6 +108,6 @@ def test_resume_sets_unfinished_captures_aside(tmp_path: Path) -> None:
     again = RunFolder.open(folder.path, clock=clock)
     (aside,) = again.set_aside_partials()
     assert aside.relative_to(again.path).as_posix() == "frames/abandoned/scan-2-.capture-1"
-    (event,) = read_events(again.events_path, "capture_abandoned")
+    (event,) = read_events(again.events_path, "capture.abandoned")
     assert event["frames_added"] == 4 and event["step"] == "scan[2].capture"
     again.close()

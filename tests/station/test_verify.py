@@ -48,7 +48,7 @@ def test_a_sound_run_passes(tmp_path: Path) -> None:
     assert report.ok, report.format()
     # run-folder.json, inputs.json, recipe copy, events, journal, 2 x (stack, avg, json), result
     assert report.files_checked == 12
-    # events: state running, 2 x capture_done, file_written, state complete
+    # events: state running, 2 x capture.stored, file_written, state complete
     assert (report.captures_checked, report.journal_entries, report.events_count) == (2, 2, 5)
     assert report.state == "complete"
     assert "verdict: OK" in report.format()

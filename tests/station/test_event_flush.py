@@ -1,0 +1,88 @@
+"""Flush-at-once events are on the disk before the next instrument command is sent.
+
+How it is proven: every fsync of the run's events.jsonl records the file size synced; before
+every command a transport sends (its `_exchange`), the test reads the log and checks that each
+flush-at-once event written so far (station.record.events.Event members marked True) ends at or
+before the synced size. A power cut just before that command would therefore keep them all.
+POSIX fsync semantics (data of the file flushed to the device when it returns) is the reference;
+common practice for write-ahead logs.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+import pytest
+
+from drivers.transport import Transport
+from station.cli.main import main
+from station.record import events as events_mod
+from station.record.events import DEFAULT_SYNC_TYPES
+from tests.station.fast_bench import fast_station_yaml
+
+RECIPE = """\
+recipe: flush-order
+steps:
+  - target: open
+  - move: {az: 1.0, el: 0.5}
+  - blackbody: {mode: difference, value: 2, tolerance: 0.05, hold: 2, timeout: 120}
+  - capture: {name: flat, frames: 2, keep: both}
+  - note: between
+  - blackbody: {mode: difference, value: 4, tolerance: 0.05, hold: 2, timeout: 120}
+  - capture: {name: hot, frames: 2, keep: both}
+  - analyze: {analysis: sitf, captures: [flat, hot]}
+  - move: {az: 0.0, el: 0.0}
+"""
+
+
+def test_each_flush_at_once_event_is_synced_before_the_next_command(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    synced: dict[str, int] = {}
+    real_fsync = os.fsync
+
+    def fsync(fd: int) -> None:
+        real_fsync(fd)
+        target = os.readlink(f"/proc/self/fd/{fd}")
+        if target.endswith("events.jsonl"):
+            synced[target] = os.fstat(fd).st_size
+
+    monkeypatch.setattr(events_mod.os, "fsync", fsync)
+    checked = {"commands": 0, "urgent": 0}
+    real_exchange = {cls: cls.__dict__["_exchange"] for cls in Transport.__subclasses__()
+                     if "_exchange" in cls.__dict__}
+    runs = tmp_path / "runs"
+
+    def check_before(command: str) -> None:
+        logs = list(runs.glob("*/events.jsonl"))
+        if not logs:
+            return
+        path = str(logs[0].resolve())
+        data = logs[0].read_bytes()
+        end = 0
+        urgent = 0
+        for line in data.splitlines(keepends=True):
+            end += len(line)
+            if json.loads(line)["type"] in DEFAULT_SYNC_TYPES:
+                urgent += 1
+                assert end <= synced.get(path, 0), (
+                    f"flush-at-once event {line[:80]!r} not on disk before command {command!r}")
+        checked["commands"] += 1
+        checked["urgent"] = urgent
+
+    for cls, original in real_exchange.items():
+        def wrapped(self, command, expect_reply, _original=original):
+            check_before(command)
+            return _original(self, command, expect_reply)
+        monkeypatch.setattr(cls, "_exchange", wrapped)
+
+    station = tmp_path / "station.yaml"
+    station.write_text(fast_station_yaml("flush-bench", timeout_s=1.0), encoding="utf-8")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text(RECIPE, encoding="utf-8")
+    code = main(["run", str(recipe), "--station", str(station), "--runs", str(runs), "--plain"])
+    assert code == 0
+    # Every command after the log opened was checked, and the urgent events were many.
+    assert checked["commands"] > 20
+    assert checked["urgent"] >= 20
