@@ -31,9 +31,9 @@ DEFAULTS: dict[str, Any] = {
                "velocity": 10.0, "acceleration": 20.0, "start": 0.0},
     }},
     "identity": {
-        "blackbody": "Nightbench Sim,BB-100,SIM0001,1.0",
-        "wheel": "Nightbench Sim,TW-6,SIM0002,1.0",
-        "stage": "Nightbench Sim,GS-2,SIM0003,1.0",
+        "blackbody": "nightbench simulator,simulated blackbody,NB-SIM-BB,1.0",
+        "wheel": "nightbench simulator,simulated target wheel,NB-SIM-TW,1.0",
+        "stage": "nightbench simulator,simulated gimbal,NB-SIM-GS,1.0",
     },
 }
 

@@ -109,7 +109,7 @@ class RunConsole:
                         f"[{frac * 100:.0f}%, about {format_duration(left)} left]")
         self._refresh()
 
-    def readings(self, values: Mapping[str, Any]) -> None:
+    def readings(self, values: Mapping[str, object]) -> None:
         """New instrument readings; in plain mode printed at most every `readings_every_s`."""
         now = self.clock.now()
         with self._lock:
@@ -161,7 +161,7 @@ class RunConsole:
         self.stop()
 
     # -- hooks for the event log and logging -------------------------------------------------------
-    def on_event(self, record: Mapping[str, Any]) -> None:
+    def on_event(self, record: Mapping[str, object]) -> None:
         """EventLog subscriber: state events update the state; others go to the recent lines
         on the live display only (in plain mode the event log file already holds them)."""
         kind = str(record.get("type", ""))

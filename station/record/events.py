@@ -147,7 +147,7 @@ class EventLog:
                       why="the previous session ended in the middle of writing this line")
 
     # -- writing ---------------------------------------------------------------------------------
-    def emit(self, type: Event | str, **fields: Any) -> dict[str, Any]:  # noqa: A002
+    def emit(self, type: Event | str, **fields: object) -> dict[str, Any]:  # noqa: A002
         """Append one event; returns the record as written (also given to subscribers).
 
         ``type`` must be an :class:`Event` (or its name): an unknown name is refused.

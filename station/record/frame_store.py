@@ -193,7 +193,7 @@ class CaptureWriter:
     def __init__(self, frames_dir: Path | str, step_id: str, name: str, keep: Keep = "both", *,
                  expected_count: int | None = None, clock: Clock | None = None,
                  events: EventLog | None = None, min_free_bytes: int = DEFAULT_MIN_FREE,
-                 extra: Mapping[str, Any] | None = None) -> None:
+                 extra: Mapping[str, object] | None = None) -> None:
         if keep not in KEEP_MODES:
             raise FrameStoreError(f"capture {name!r}: keep must be one of {KEEP_MODES}, not {keep!r}")
         if expected_count is not None and expected_count < 1:
@@ -248,7 +248,7 @@ class CaptureWriter:
                       events=self.events)
 
     # -- streaming -----------------------------------------------------------------------------
-    def add(self, frame: Frame, readings: Mapping[str, Any] | None = None) -> int:
+    def add(self, frame: Frame, readings: Mapping[str, object] | None = None) -> int:
         """Append one frame (and the instrument readings at its time); returns frames so far."""
         if self._closed:
             raise FrameStoreError(f"capture {self.name!r} is already finished or abandoned")

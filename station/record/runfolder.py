@@ -211,7 +211,7 @@ class RunFolder:
     # -- captures and results ----------------------------------------------------------------------
     def new_capture(self, step_id: str, name: str, keep: Keep = "both", *,
                     expected_count: int | None = None, min_free_bytes: int = DEFAULT_MIN_FREE,
-                    extra: Mapping[str, Any] | None = None) -> CaptureWriter:
+                    extra: Mapping[str, object] | None = None) -> CaptureWriter:
         """A writer for one capture step, logging to this run's events."""
         return CaptureWriter(self.frames_dir, step_id, name, keep, expected_count=expected_count,
                              clock=self.clock, events=self.events, min_free_bytes=min_free_bytes,

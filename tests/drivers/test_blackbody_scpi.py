@@ -26,7 +26,7 @@ def bb(sim):
 
 
 def test_identity_and_step_follow_first_order_with_slew_limit(sim, bb):
-    assert bb.identify().split(",")[1] == "BB-100"
+    assert bb.identify().split(",")[1] == "simulated blackbody"
     bb.set_temperature(35.0)
     assert bb.mode() == "absolute" and bb.setpoint() == pytest.approx(35.0)
     # Closed form (first-order lag with slew limit r, time constant tau; e0 = 13 K > r*tau = 6 K):

@@ -136,7 +136,7 @@ def test_io_events_record_command_reply_and_clock_time(sim):
     drv.identify()
     io = sim.of_type("io")[-1]
     assert io == {"type": "io", "instrument": "blackbody", "command": "*IDN?",
-                  "reply": "Nightbench Sim,BB-100,SIM0001,1.0", "t": sim.clock.now()}
+                  "reply": "nightbench simulator,simulated blackbody,NB-SIM-BB,1.0", "t": sim.clock.now()}
     drv.close()
 
 

@@ -19,7 +19,7 @@ GEOM = CameraGeometry(width=64, height=48, pixel_pitch_um=17.0, focal_length_mm=
 
 
 def _grabber(scene_holder: list[SceneState], clock: SimClock) -> SimFrameGrabber:
-    truth = CameraTruth(geometry=GEOM, model="Owlet LW640")
+    truth = CameraTruth(geometry=GEOM, model="nightbench demo imager LW-640")
     return SimFrameGrabber(CameraRenderer(truth), lambda: scene_holder[0], clock, 30.0)
 
 
@@ -36,7 +36,7 @@ def test_frames_carry_counter_and_clock_time() -> None:
     assert clock.now() - t0 == pytest.approx(10 / 30.0, abs=2e-6)
     assert frames[0].data.shape == g.shape == (48, 64) and frames[0].data.dtype == np.uint16
     assert g.bit_depth == 14 and g.frame_rate == 30.0
-    assert g.identify() == "nightbench simulated camera, Owlet LW640"
+    assert g.identify() == "nightbench simulated camera, nightbench demo imager LW-640"
     assert list(g.grab(1))[0].counter == 11
 
 

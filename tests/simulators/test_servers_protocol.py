@@ -40,7 +40,7 @@ def _talk(port: int, payload: bytes, lines: int) -> list[str]:
 
 def test_crlf_and_lf_each_get_one_reply(servers):
     replies = _talk(servers.ports["blackbody"], b"*IDN?\r\nSOUR:TEMP 30\nSOUR:SETP?\r\n", 3)
-    assert replies == ["Nightbench Sim,BB-100,SIM0001,1.0", "OK", "30.0000"]
+    assert replies == ["nightbench simulator,simulated blackbody,NB-SIM-BB,1.0", "OK", "30.0000"]
 
 
 def test_out_of_limit_move_refused_with_error_reply(servers):

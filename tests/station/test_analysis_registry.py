@@ -144,6 +144,12 @@ def test_run_ends_with_the_results_table_and_the_failed_unit_code(recorded) -> N
     assert verdicts["uut"]["serial"] == "OW-0042"
     keys = {v["key"]: v for v in verdicts["verdicts"]}
     assert {"netd_mk", "max_bad_pixel_percent", "max_distortion_percent"} <= set(keys)
+    # the estimate's and the spec's warnings reach the run's log before anything moves
+    events = [json.loads(x) for x in (folder / "events.jsonl").read_text().splitlines()]
+    warned = [e["text"] for e in events if e["type"] == "preflight.warning"]
+    assert any("measures 'netd_mk' at a 2 K blackbody difference" in w for w in warned)
+    assert max(i for i, e in enumerate(events) if e["type"] == "preflight.warning") < next(
+        i for i, e in enumerate(events) if e["type"] == "step.start")
     netd = keys["netd_mk"]
     assert netd["conditions"]["spec_source_c"] == 30.0
     assert netd["conditions"]["difference_k"] == pytest.approx(2.0, abs=0.1)

@@ -11,7 +11,7 @@ from station.inputs.uut_file import UutFileError, demo_uut_path, load_uut
 
 def test_demo_uut_loads_with_the_data_sheet_values() -> None:
     uut = load_uut(demo_uut_path())
-    assert (uut.model, uut.serial) == ("Owlet LW640", "OW-0042")
+    assert (uut.model, uut.serial) == ("nightbench demo imager LW-640", "DEMO-0042")
     assert (uut.width, uut.height, uut.bit_depth) == (640, 512, 14)
     assert uut.band_um == (8.0, 12.0)
     assert uut.spec_limits["netd_mk"] == 50.0
