@@ -119,8 +119,10 @@ def run_target(step: TargetStep, ctx: StepContext) -> JournalData:
 
 
 def run_move(step: MoveStep, ctx: StepContext) -> JournalData:
-    # Positions are relative to the stage origin an align step set (none: absolute).
-    targets = {a: float(v) + ctx.origin.get(a, 0.0) for a, v in step.position.items()}
+    # Positions are relative to the stage origin an align step set (none: absolute). A light
+    # context without the field (tests, tools) moves in absolute positions.
+    origin: Mapping[str, float] = getattr(ctx, "origin", None) or {}
+    targets = {a: float(v) + origin.get(a, 0.0) for a, v in step.position.items()}
     for axis, value in targets.items():
         _refuse(ctx.station.limits.position_problem(axis, value))
     stage = ctx.bench.stage
@@ -133,8 +135,8 @@ def run_move(step: MoveStep, ctx: StepContext) -> JournalData:
         if abs(reached[axis] - want) > STAGE_POSITION_TOLERANCE:
             raise StepFailed(f"stage axis {axis} stopped at {reached[axis]:.4f}, asked "
                              f"{want:.4f}; check for a stall or a limit switch")
-    if ctx.origin:
-        return {"positions": reached, "origin": dict(ctx.origin)}
+    if origin:
+        return {"positions": reached, "origin": dict(origin)}
     return {"positions": reached}
 
 
