@@ -44,7 +44,7 @@ from analysis.verdicts import SpecKey, Verdict
 
 __all__ = ["FOV_SPEC_KEYS", "FieldOfView", "fov_from_model", "ifov_from_slope", "spot_flux",
            "spot_flux_near", "EdgeProbe", "EdgeSearch", "find_edge", "fov_from_edge_poses",
-           "fov_verdicts", "ScanFov", "scan_fov",
+           "fov_verdicts", "ScanFov", "scan_fov", "CornerSearch", "find_corner",
            "line_of_sight_angle_deg"]
 
 _AXES = {"h": "horizontal", "v": "vertical", "d": "diagonal"}
@@ -246,15 +246,17 @@ class EdgeSearch:
 
 def find_edge(fraction_at: Callable[[float], tuple[float, float]], inside_deg: float,
               outside_deg: float, *, tolerance_deg: float, max_probes: int = 30,
-              stage_sigma_deg: float = 0.0) -> EdgeSearch:
-    """Bisection on the stage for the angle where the flux fraction crosses one half.
+              stage_sigma_deg: float = 0.0, level: float = 0.5) -> EdgeSearch:
+    """Bisection on the stage for the angle where the flux fraction crosses `level` (one half:
+    a symmetric spot centred on an edge; one quarter: centred on a corner).
 
     `fraction_at(angle)` moves the stage, takes a frame and returns (fraction, sigma) of the
-    spot's reference flux still on the detector. `inside_deg` must see the spot (fraction > 1/2),
-    `outside_deg` must not. Bisection until the bracket is narrower than `tolerance_deg`, then
-    linear interpolation of the fraction across the bracket; sigma combines the fraction's noise
-    through that slope, the interpolation's worst case (a quarter of the bracket, as a uniform
-    error: /sqrt(3)) and the stage's own sigma (GUM, JCGM 100:2008).
+    spot's reference flux still on the detector. `inside_deg` must see more than `level` of the
+    spot, `outside_deg` less. Bisection until the bracket is narrower than `tolerance_deg`; the
+    edge is then the knife-edge fit over every probe of the transition (`_knife_edge_fit`), or,
+    with too few of them, the linear interpolation across the last bracket (sigma: the
+    fraction's noise through that slope and the interpolation's worst case, a quarter of the
+    bracket as a uniform error). The stage's own sigma is added (GUM, JCGM 100:2008).
     """
     probes: list[EdgeProbe] = []
 
@@ -265,10 +267,10 @@ def find_edge(fraction_at: Callable[[float], tuple[float, float]], inside_deg: f
         return p
 
     lo, hi = probe(inside_deg), probe(outside_deg)
-    if not lo.fraction > 0.5:
+    if not lo.fraction > level:
         raise ValueError(f"the spot is not on the detector at the inside angle {inside_deg:g} deg "
                          f"(flux fraction {lo.fraction:.2f}); align first")
-    if not hi.fraction < 0.5:
+    if not hi.fraction < level:
         raise ValueError(f"the spot is still on the detector at {outside_deg:g} deg (flux "
                          f"fraction {hi.fraction:.2f}); widen the search range")
     while abs(hi.angle_deg - lo.angle_deg) > tolerance_deg:
@@ -276,17 +278,131 @@ def find_edge(fraction_at: Callable[[float], tuple[float, float]], inside_deg: f
             raise ValueError(f"edge search used {max_probes} probes without narrowing to "
                              f"{tolerance_deg:g} deg; is the flux stable?")
         mid = probe(0.5 * (lo.angle_deg + hi.angle_deg))
-        if mid.fraction > 0.5:
+        if mid.fraction > level:
             lo = mid
         else:
             hi = mid
+    outward = 1.0 if hi.angle_deg > lo.angle_deg else -1.0
+    fitted = _knife_edge_fit(probes, outward) if level == 0.5 else None
+    if fitted is not None:
+        angle, sigma_fit, slope = fitted
+        # The fit treats the probes as independent; the fixed-pattern part of each fraction's
+        # noise is not (the same pixels at every probe of an edge), so one probe's fraction
+        # sigma through the slope is added as a fully correlated term (conservative).
+        common = float(np.median([p.sigma for p in probes])) / abs(slope)
+        sigma = math.sqrt(sigma_fit ** 2 + common ** 2 + stage_sigma_deg ** 2)
+        return EdgeSearch(float(angle), float(sigma), tuple(probes), float(slope))
     slope = (hi.fraction - lo.fraction) / (hi.angle_deg - lo.angle_deg)
-    angle = lo.angle_deg + (0.5 - lo.fraction) / slope
+    angle = lo.angle_deg + (level - lo.fraction) / slope
     frac_sigma = math.hypot(lo.sigma, hi.sigma) / math.sqrt(2.0)
     width = abs(hi.angle_deg - lo.angle_deg)
     sigma = math.sqrt((frac_sigma / abs(slope)) ** 2 + (width / 4.0) ** 2 / 3.0
                       + stage_sigma_deg ** 2)
     return EdgeSearch(float(angle), float(sigma), tuple(probes), float(slope))
+
+
+def _knife_edge_fit(probes: Sequence[EdgeProbe], outward: float
+                    ) -> tuple[float, float, float] | None:
+    """Edge angle, its 1-sigma and the slope there from a fit of the knife-edge profile
+    ``f = Phi(outward (a0 - a) / s)`` to the probes in the transition (0.03 < f < 0.97).
+
+    The profile of a Gaussian spot crossing a straight edge is an error function (the knife-edge
+    method, e.g. ISO 11146-1 for beam widths); weighted least squares with the probes' sigmas,
+    the covariance scaled by the reduced chi-square when above 1 (common practice). Using every
+    probe of the transition, not only the last bracket, keeps the noise of two points from
+    deciding the answer. None when too few probes are in the transition.
+    """
+    from scipy import optimize, special
+
+    near = [p for p in probes if 0.03 < p.fraction < 0.97 and p.sigma > 0]
+    if len(near) < 4 or len({round(p.angle_deg, 9) for p in near}) < 3:
+        return None
+    a = np.array([p.angle_deg for p in near])
+    f = np.array([p.fraction for p in near])
+    s = np.array([p.sigma for p in near])
+    centre = float(a[np.argmin(np.abs(f - 0.5))])
+    width0 = max(float(np.ptp(a)) / 2.0, 1e-6)
+
+    def model(x: np.ndarray, a0: float, w: float) -> np.ndarray:
+        return special.ndtr(outward * (a0 - x) / w)
+
+    try:
+        popt, pcov = optimize.curve_fit(model, a, f, p0=(centre, width0), sigma=s,
+                                        absolute_sigma=True, bounds=([-np.inf, 1e-9],
+                                                                     [np.inf, np.inf]))
+    except (RuntimeError, ValueError):
+        return None
+    dof = len(a) - 2
+    chi2 = float(np.sum(((f - model(a, *popt)) / s) ** 2)) / dof if dof > 0 else 1.0
+    var = float(pcov[0, 0]) * max(1.0, chi2)
+    if not (np.isfinite(var) and var >= 0 and a.min() - width0 <= popt[0] <= a.max() + width0):
+        return None
+    slope = -outward / (math.sqrt(2.0 * math.pi) * float(popt[1]))
+    return float(popt[0]), math.sqrt(var), slope
+
+
+@dataclass(frozen=True)
+class CornerSearch:
+    """The pose (az, el) deg at which the spot's centre sits on a corner of the active area, its
+    1-sigma per axis, and the edge searches it came from."""
+
+    pose_deg: tuple[float, float]
+    sigma_deg: tuple[float, float]
+    searches: tuple[EdgeSearch, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"pose_deg": list(self.pose_deg), "sigma_deg": list(self.sigma_deg),
+                "searches": [s.to_dict() for s in self.searches]}
+
+
+def _edge_with_margin(at: Callable[[float], tuple[float, float]], edge: float, sign: float,
+                      margin: float, tolerance_deg: float, stage_sigma_deg: float) -> EdgeSearch:
+    """`find_edge` bracketing ``edge -/+ margin``, the bracket doubled once if it misses."""
+    try:
+        return find_edge(at, edge - sign * margin, edge + sign * margin,
+                         tolerance_deg=tolerance_deg, stage_sigma_deg=stage_sigma_deg)
+    except ValueError:
+        return find_edge(at, edge - 2 * sign * margin, edge + 2 * sign * margin,
+                         tolerance_deg=tolerance_deg, stage_sigma_deg=stage_sigma_deg)
+
+
+PoseOf = Callable[[tuple[float, float]], tuple[float, float]]
+
+
+def find_corner(fraction_at_pose: Callable[[tuple[float, float]], tuple[float, float]],
+                corner_px: tuple[float, float], pose_of: PoseOf, *, px_deg: float,
+                tolerance_deg: float, stage_sigma_deg: float = 0.0, inward_px: float = 3.0,
+                margin_px: float = 6.0) -> CornerSearch:
+    """The stage pose that puts the spot's centre on the corner `corner_px` of the active area
+    (for example (-0.5, -0.5), the outer corner of the top-left pixel).
+
+    `pose_of(pixel)` is the pose at which the UUT's model expects the spot at that pixel (through
+    `analysis.alignment.aligned_pose` from the spot seen at the centre pose). The model's corner
+    pose is corrected by what the model gets wrong near that corner, measured on the two edges
+    that meet there: the azimuth edge is bisected (half flux) on the row `inward_px` pixels
+    inside the corner, where the other edge takes none of the flux, and compared with the
+    model's pose for that edge point; the elevation edge likewise on the column `inward_px`
+    inside. The model's error changes slowly along an edge, so the two offsets carry over to the
+    corner. Sigma per axis: its edge search's (GUM, JCGM 100:2008).
+    """
+    cx, cy = float(corner_px[0]), float(corner_px[1])
+    inward_x = 1.0 if cx < 0 else -1.0   # toward the detector's inside
+    inward_y = 1.0 if cy < 0 else -1.0
+    model_corner = pose_of((cx, cy))
+    on_row = pose_of((cx, cy + inward_y * inward_px))      # azimuth edge, a few rows inside
+    on_col = pose_of((cx + inward_x * inward_px, cy))      # elevation edge, a few columns in
+    inside = pose_of((cx + inward_x * 10.0, cy + inward_y * 10.0))
+    sign_az = 1.0 if model_corner[0] > inside[0] else -1.0   # outward along azimuth
+    sign_el = 1.0 if model_corner[1] > inside[1] else -1.0
+    margin = margin_px * px_deg
+    s_az = _edge_with_margin(lambda a: fraction_at_pose((a, on_row[1])), on_row[0], sign_az,
+                             margin, tolerance_deg, stage_sigma_deg)
+    s_el = _edge_with_margin(lambda e: fraction_at_pose((on_col[0], e)), on_col[1], sign_el,
+                             margin, tolerance_deg, stage_sigma_deg)
+    pose = (model_corner[0] + (s_az.angle_deg - on_row[0]),
+            model_corner[1] + (s_el.angle_deg - on_col[1]))
+    return CornerSearch((float(pose[0]), float(pose[1])), (s_az.sigma_deg, s_el.sigma_deg),
+                        (s_az, s_el))
 
 
 def line_of_sight_angle_deg(pose_a: Sequence[float], pose_b: Sequence[float]) -> float:
@@ -343,10 +459,12 @@ class ScanFov:
     fov: FieldOfView
     edges: Mapping[str, EdgeSearch]
     centre_pose_deg: tuple[float, float]
+    corners: Mapping[str, CornerSearch] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         return {"fov": self.fov.to_dict(), "centre_pose_deg": list(self.centre_pose_deg),
-                "edges": {k: v.to_dict() for k, v in self.edges.items()}}
+                "edges": {k: v.to_dict() for k, v in self.edges.items()},
+                "corners": {k: v.to_dict() for k, v in self.corners.items()}}
 
 
 def scan_fov(fraction_at_pose: Callable[[tuple[float, float]], tuple[float, float]],
@@ -354,9 +472,13 @@ def scan_fov(fraction_at_pose: Callable[[tuple[float, float]], tuple[float, floa
              tolerance_deg: float = 0.02, stage_sigma_deg: float = 0.0,
              reference_rel_sigma: float = 0.0,
              limits_deg: Sequence[tuple[float, float]] | None = None,
-             ifov: tuple[float, float] = (float("nan"), float("nan"))) -> ScanFov:
+             ifov: tuple[float, float] = (float("nan"), float("nan")),
+             pose_of: PoseOf | None = None) -> ScanFov:
     """FOV in scan mode: from the aligned pose, step the pinhole out along azimuth (elevation
     held) and along elevation (azimuth held), each way, bisecting for the edge (`find_edge`).
+    With `pose_of` (the model's pose for a pixel, see `find_corner`) the diagonal is measured
+    too: the top-left and bottom-right corner poses and the angle between their lines of sight;
+    without, it is derived from H and V through the projection law.
 
     The first outside guess is 1.25 x the nominal half field beyond the centre, widened to 1.6 and
     2 x if the spot is still seen, never beyond `limits_deg` ((az_lo, az_hi), (el_lo, el_hi)).
@@ -411,7 +533,38 @@ def scan_fov(fraction_at_pose: Callable[[tuple[float, float]], tuple[float, floa
                               sigma_az_deg=with_c(edges["left"], edges["right"]),
                               sigma_el_deg=with_c(edges["top"], edges["bottom"]),
                               projection=nominal.projection, ifov=ifov)
-    return ScanFov(fov, edges, (az0, el0))
+    if pose_of is None:
+        return ScanFov(fov, edges, (az0, el0))
+    px_deg = math.degrees(nominal.ifov_mrad / 1000.0)
+    w, h = nominal.width - 0.5, nominal.height - 0.5
+    found = {name: find_corner(fraction_at_pose, px, pose_of, px_deg=px_deg,
+                               tolerance_deg=tolerance_deg, stage_sigma_deg=stage_sigma_deg)
+             for name, px in (("top_left", (-0.5, -0.5)), ("bottom_right", (w, h)))}
+    d, sd = _diagonal_from_corners(found["top_left"], found["bottom_right"], reference_rel_sigma)
+    fov = FieldOfView(fov.h_deg, fov.v_deg, d, fov.sigma_h_deg, fov.sigma_v_deg, sd,
+                      fov.ifov_mrad, fov.sigma_ifov_mrad, "scan",
+                      ("diagonal between the top-left and bottom-right corner poses",))
+    return ScanFov(fov, edges, (az0, el0), found)
+
+
+def _diagonal_from_corners(a: CornerSearch, b: CornerSearch, reference_rel_sigma: float
+                           ) -> tuple[float, float]:
+    """Angle between the corners' lines of sight and its sigma: the four corner angles' sigmas
+    through numerical partial derivatives, plus the reference flux's (it moves both corners
+    outward or inward together: linear over the two, as for the edges)."""
+    base = line_of_sight_angle_deg(a.pose_deg, b.pose_deg)
+    var = 0.0
+    eps = 1e-4
+    for which in (0, 1):
+        for k in (0, 1):
+            pa, pb = list(a.pose_deg), list(b.pose_deg)
+            (pa if which == 0 else pb)[k] += eps
+            grad = (line_of_sight_angle_deg(pa, pb) - base) / eps
+            var += (grad * (a if which == 0 else b).sigma_deg[k]) ** 2
+    # Each corner moves by ~0.5 sigma_ref / slope on each axis, both corners outward together.
+    slopes = [abs(s.slope_per_deg) for s in (*a.searches, *b.searches)]
+    shift = sum(0.5 * reference_rel_sigma / s for s in slopes if s > 0) / math.sqrt(2.0)
+    return base, math.sqrt(var + shift ** 2)
 
 
 def fov_verdicts(limits: Mapping[str, float], fov: FieldOfView,

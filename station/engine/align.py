@@ -21,7 +21,8 @@ from typing import Any
 
 import numpy as np
 
-from analysis.alignment import AlignmentFault, AlignmentIteration, align, axis_direction_at
+from analysis.alignment import (AlignmentFault, AlignmentIteration, align, aligned_pose,
+                                axis_direction_at)
 from analysis.boresight import PinholeNotFound, find_pinhole
 from analysis.fov import scan_fov, spot_flux_near
 from analysis.geometry import project
@@ -206,9 +207,14 @@ def run_fov_scan(step: FovScanStep, ctx: Any) -> dict[str, Any]:
                  fraction=frac, sigma=s / ref_flux)
         return frac, s / ref_flux
 
+    def pose_of(px: tuple[float, float]) -> tuple[float, float]:
+        """Where the model expects the spot at pixel px, from where it is seen now."""
+        return aligned_pose((spot.x, spot.y), px, centre, nominal)
+
     try:
         res = scan_fov(fraction, centre, nominal, tolerance_deg=step.tolerance_deg,
-                       reference_rel_sigma=ref_sigma / ref_flux, limits_deg=limits)
+                       reference_rel_sigma=ref_sigma / ref_flux, limits_deg=limits,
+                       pose_of=pose_of)
     except ValueError as exc:
         raise StepFailed(f"fov_scan: {exc}") from None
     _move(ctx, centre, "fov_scan back to the start pose")

@@ -12,6 +12,8 @@ import math
 import numpy as np
 import pytest
 
+from analysis.alignment import aligned_pose
+from analysis.boresight import find_pinhole
 from analysis.centroid import centroid_at
 from analysis.fov import (fov_from_model, fov_verdicts, ifov_from_slope, scan_fov,
                           spot_flux_near)
@@ -56,7 +58,12 @@ def run_scan(geom: CameraGeometry, nominal: CameraGeometry, pinhole_mm: float, s
     count = iter(range(100_000))
     centre = spot_at(geom, 0.0, 0.0)
     hole = SinglePinhole(diameter_mm=pinhole_mm)
-    ref_flux, ref_sigma = spot_flux_near(frame(r, 0.0, 0.0, source_c=90.0, target=hole), *centre)
+    ref_img = frame(r, 0.0, 0.0, source_c=90.0, target=hole)
+    ref_flux, ref_sigma = spot_flux_near(ref_img, *centre)
+    seen = find_pinhole(ref_img)
+
+    def pose_of(px):   # where the model expects the spot at pixel px (the corner searches)
+        return aligned_pose((seen.x, seen.y), px, (0.0, 0.0), nominal)
 
     def fraction(pose):
         img = frame(r, pose[0], pose[1], source_c=90.0, target=hole, index=next(count))
@@ -65,7 +72,7 @@ def run_scan(geom: CameraGeometry, nominal: CameraGeometry, pinhole_mm: float, s
                               float(np.clip(guess[1], 0, geom.height - 1)))
         return f / ref_flux, s / ref_flux
     return scan_fov(fraction, (0.0, 0.0), nominal, tolerance_deg=0.01,
-                    reference_rel_sigma=ref_sigma / ref_flux)
+                    reference_rel_sigma=ref_sigma / ref_flux, pose_of=pose_of)
 
 
 @pytest.mark.parametrize("projection, f_mm, pinhole_mm, formula", [

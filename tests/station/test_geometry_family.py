@@ -129,6 +129,9 @@ def test_fov_by_bisection_matches_the_true_camera(family) -> None:
     # the principal point's row exactly (roll 0.15 deg, principal point 1.6 px off the centre).
     assert abs(fov["h_deg"] - truth.h_deg) < 2 * fov["sigma_h_deg"] + 0.002
     assert abs(fov["v_deg"] - truth.v_deg) < 2 * fov["sigma_v_deg"] + 0.002
+    # The diagonal measured at the corners sees the barrel distortion (the true camera's corners
+    # reach further out than a distortion-free lens of the same H and V).
+    assert abs(fov["d_deg"] - truth.d_deg) < 2 * fov["sigma_d_deg"] + 0.002
     assert fov["sigma_h_deg"] < 0.01
     looks = [e for e in events if e["type"] == "fov_scan.look"]
     assert 8 <= len(looks) <= 4 * 20   # four bounded bisections
