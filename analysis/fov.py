@@ -18,8 +18,10 @@ Three ways, each with its uncertainty:
   spot's flux is still on the detector (for a symmetric spot, its centre is then on the outer
   pixel edge). The edge pose is bracketed by bisection on the stage and the last bracket is
   interpolated linearly in the flux fraction. The FOV is the angle between the lines of sight of
-  the two edge poses of an axis (exact for the az-over-el gimbal); the diagonal is derived from
-  H and V through the projection law.
+  the two edge poses of an axis (exact for the az-over-el gimbal). The diagonal is the angle
+  between the top-left and bottom-right corner poses (`find_corner`: the model's corner pose
+  corrected by the two edges measured next to it), or, without a model, derived from H and V
+  through the projection law.
 * **IFOV at the centre** (`ifov_from_slope`): the slope of the centroid's position against the
   stage angle around the boresight, fitted with a cubic term so the projection's curvature does
   not bias it.

@@ -141,8 +141,10 @@ def plot_fov_edges(scan: Any, path: Path | str) -> Path:
         ax.set_ylabel("flux fraction on the detector")
         ax.legend(fontsize=7)
     fov = scan.fov
+    diagonal = (f"D {fov.d_deg:.3f} ± {fov.sigma_d_deg:.3f} deg (corners)"
+                if getattr(scan, "corners", None) else f"D {fov.d_deg:.3f} deg (derived)")
     fig.suptitle(f"Field of view by edge bisection: H {fov.h_deg:.3f} ± {fov.sigma_h_deg:.3f}, "
-                 f"V {fov.v_deg:.3f} ± {fov.sigma_v_deg:.3f} deg (D {fov.d_deg:.3f} deg, derived)")
+                 f"V {fov.v_deg:.3f} ± {fov.sigma_v_deg:.3f} deg, {diagonal}")
     fig.tight_layout()
     try:
         return _save(fig, path)
