@@ -229,3 +229,20 @@ def test_resume_restores_the_aligned_origin_from_the_journal() -> None:
     JOURNAL_RESTORERS["align"](record, ctx)
     assert ctx.origin == {"az": 0.09, "el": 0.06}
     assert seen and seen[0][0] == "stage.origin"
+
+
+def test_uut_file_may_state_the_boresight_reference_pixel(tmp_path: Path) -> None:
+    from station.analyses.geometry_common import reference_px
+    from station.inputs.uut_file import UutFileError, load_uut
+
+    uut = yaml.safe_load((REPO / "station" / "data" / "demo_uut.yaml").read_text())
+    uut["format"]["reference_px"] = [329.5, 250.0]
+    (tmp_path / "uut.yaml").write_text(yaml.safe_dump(uut, sort_keys=False), encoding="utf-8")
+    loaded = load_uut(tmp_path / "uut.yaml")
+    assert loaded.reference_px == (329.5, 250.0)
+    assert reference_px("centre", loaded) == (329.5, 250.0)   # the UUT's own reference
+    assert reference_px("300,200", loaded) == (300.0, 200.0)   # the recipe's option wins
+    uut["format"]["reference_px"] = [700, 10]                  # off the 640-wide detector
+    (tmp_path / "bad.yaml").write_text(yaml.safe_dump(uut, sort_keys=False), encoding="utf-8")
+    with pytest.raises(UutFileError, match=r"bad.yaml:\d+:\d+: format.reference_px"):
+        load_uut(tmp_path / "bad.yaml")
