@@ -3,8 +3,9 @@ at every stage pose of a scan). The computation is analysis.distortion_frames; t
 loads the captures, checks they are what the mode needs, writes the files and turns the result's
 verdicts into the common Verdict.
 
-The spec keys are declared from analysis.distortion's own table, so a key added or redefined
-there is declared here with no edit (its unit is read from the key's suffix).
+The spec keys are declared from analysis.distortion's own table (SpecKey objects, or the older
+key -> description table whose unit is read from the key's suffix), so a key added or redefined
+there is declared here with no edit.
 """
 
 from __future__ import annotations
@@ -36,8 +37,9 @@ def _spec_key(key: str, text: object) -> SpecKey:
     return SpecKey(key, str(text).split(",")[0], unit, sense, str(text))
 
 
-SPEC_KEYS: Mapping[str, SpecKey] = {k: _spec_key(k, v)
-                                    for k, v in getattr(_distortion, "_SPEC_KEYS", {}).items()}
+_DECLARED = (getattr(_distortion, "DISTORTION_SPEC_KEYS", None)
+             or getattr(_distortion, "_SPEC_KEYS", {}))
+SPEC_KEYS: Mapping[str, SpecKey] = {k: _spec_key(k, v) for k, v in _DECLARED.items()}
 
 OPTIONS = {"mode": OptionSpec("mode", "choice", "grid", "grid: one frame of the pinhole grid; "
                               "scan: one pinhole at every pose of a stage scan",

@@ -141,7 +141,7 @@ def test_run_ends_with_the_results_table_and_the_failed_unit_code(recorded) -> N
     verdicts = _json(folder / "results" / "verdicts.json")
     assert verdicts["outcome"] == "FAILED" and verdicts["failed"] == 1
     assert verdicts["judged"] == 5
-    assert verdicts["uut"]["serial"] == "OW-0042"
+    assert verdicts["uut"]["serial"] == "DEMO-0042"
     keys = {v["key"]: v for v in verdicts["verdicts"]}
     assert {"netd_mk", "max_bad_pixel_percent", "max_distortion_percent"} <= set(keys)
     # the estimate's and the spec's warnings reach the run's log before anything moves
