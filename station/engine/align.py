@@ -81,16 +81,31 @@ def _pose_now(ctx: Any) -> tuple[float, float]:
 
 
 def _average(ctx: Any, frames: int) -> np.ndarray:
-    """The mean of `frames` frames (float64, [row, col]); frames are probes, not kept."""
+    """The mean of `frames` frames (float64, [row, col]); frames are probes, not kept. Frames of
+    the wrong shape or with a repeated counter are skipped (as a capture does), and the last
+    counter is handed on so the next capture sees no false gap."""
     camera = ctx.bench.camera
+    shape = tuple(camera.shape)
     total = None
-    taken = 0
-    for frame in camera.grab(frames):
-        ctx.requests.check()
-        data = np.asarray(frame.data, dtype=np.float64)
-        total = data if total is None else total + data
-        taken += 1
-    if total is None or taken == 0:
+    taken = bad = 0
+    while taken < frames:
+        before = taken + bad
+        for frame in camera.grab(frames - taken):
+            ctx.requests.check()
+            last = getattr(ctx, "last_counter", None)
+            if frame.data.shape != shape or (last is not None and frame.counter <= last):
+                bad += 1
+                if bad > 20:
+                    raise StepFailed(f"camera: {bad} bad frames while pointing; check the "
+                                     "grabber and cable")
+                continue
+            ctx.last_counter = frame.counter
+            data = np.asarray(frame.data, dtype=np.float64)
+            total = data if total is None else total + data
+            taken += 1
+        if taken + bad == before:
+            raise StepFailed("camera gave no frame while pointing; check the grabber")
+    if total is None:
         raise StepFailed("camera gave no frame; check the grabber")
     return total / taken
 
