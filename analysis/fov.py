@@ -373,38 +373,55 @@ PoseOf = Callable[[tuple[float, float]], tuple[float, float]]
 
 def find_corner(fraction_at_pose: Callable[[tuple[float, float]], tuple[float, float]],
                 corner_px: tuple[float, float], pose_of: PoseOf, *, px_deg: float,
-                tolerance_deg: float, stage_sigma_deg: float = 0.0, inward_px: float = 3.0,
-                margin_px: float = 6.0) -> CornerSearch:
+                tolerance_deg: float, stage_sigma_deg: float = 0.0,
+                inward_px: tuple[float, float] = (3.0, 6.0), margin_px: float = 6.0
+                ) -> CornerSearch:
     """The stage pose that puts the spot's centre on the corner `corner_px` of the active area
     (for example (-0.5, -0.5), the outer corner of the top-left pixel).
 
     `pose_of(pixel)` is the pose at which the UUT's model expects the spot at that pixel (through
     `analysis.alignment.aligned_pose` from the spot seen at the centre pose). The model's corner
     pose is corrected by what the model gets wrong near that corner, measured on the two edges
-    that meet there: the azimuth edge is bisected (half flux) on the row `inward_px` pixels
-    inside the corner, where the other edge takes none of the flux, and compared with the
-    model's pose for that edge point; the elevation edge likewise on the column `inward_px`
-    inside. The model's error changes slowly along an edge, so the two offsets carry over to the
-    corner. Sigma per axis: its edge search's (GUM, JCGM 100:2008).
+    that meet there: the azimuth edge is bisected (half flux) on two rows `inward_px` pixels
+    inside the corner, where the other edge takes none of the flux (3 px: > 3 spot sigmas), and
+    compared with the model's pose for those edge points; the elevation edge likewise on two
+    columns. The model's error changes along an edge (distortion grows toward the corner), so
+    each offset is extrapolated linearly from its two samples to the corner. Sigma per axis:
+    the two searches' sigmas through that extrapolation (GUM, JCGM 100:2008).
     """
     cx, cy = float(corner_px[0]), float(corner_px[1])
     inward_x = 1.0 if cx < 0 else -1.0   # toward the detector's inside
     inward_y = 1.0 if cy < 0 else -1.0
     model_corner = pose_of((cx, cy))
-    on_row = pose_of((cx, cy + inward_y * inward_px))      # azimuth edge, a few rows inside
-    on_col = pose_of((cx + inward_x * inward_px, cy))      # elevation edge, a few columns in
     inside = pose_of((cx + inward_x * 10.0, cy + inward_y * 10.0))
     sign_az = 1.0 if model_corner[0] > inside[0] else -1.0   # outward along azimuth
     sign_el = 1.0 if model_corner[1] > inside[1] else -1.0
     margin = margin_px * px_deg
-    s_az = _edge_with_margin(lambda a: fraction_at_pose((a, on_row[1])), on_row[0], sign_az,
-                             margin, tolerance_deg, stage_sigma_deg)
-    s_el = _edge_with_margin(lambda e: fraction_at_pose((on_col[0], e)), on_col[1], sign_el,
-                             margin, tolerance_deg, stage_sigma_deg)
-    pose = (model_corner[0] + (s_az.angle_deg - on_row[0]),
-            model_corner[1] + (s_el.angle_deg - on_col[1]))
-    return CornerSearch((float(pose[0]), float(pose[1])), (s_az.sigma_deg, s_el.sigma_deg),
-                        (s_az, s_el))
+    n1, n2 = inward_px
+    w1, w2 = n2 / (n2 - n1), -n1 / (n2 - n1)     # linear extrapolation of two samples to 0
+    searches: list[EdgeSearch] = []
+    offsets, sigmas = [], []
+    for axis in ("az", "el"):
+        samples = []
+        for n in (n1, n2):
+            if axis == "az":
+                model = pose_of((cx, cy + inward_y * n))    # on a row n pixels inside
+                found = _edge_with_margin(lambda a, e=model[1]: fraction_at_pose((a, e)),
+                                          model[0], sign_az, margin, tolerance_deg,
+                                          stage_sigma_deg)
+                samples.append((found.angle_deg - model[0], found.sigma_deg))
+            else:
+                model = pose_of((cx + inward_x * n, cy))    # on a column n pixels inside
+                found = _edge_with_margin(lambda e, a=model[0]: fraction_at_pose((a, e)),
+                                          model[1], sign_el, margin, tolerance_deg,
+                                          stage_sigma_deg)
+                samples.append((found.angle_deg - model[1], found.sigma_deg))
+            searches.append(found)
+        offsets.append(w1 * samples[0][0] + w2 * samples[1][0])
+        sigmas.append(math.hypot(w1 * samples[0][1], w2 * samples[1][1]))
+    pose = (model_corner[0] + offsets[0], model_corner[1] + offsets[1])
+    return CornerSearch((float(pose[0]), float(pose[1])), (sigmas[0], sigmas[1]),
+                        tuple(searches))
 
 
 def line_of_sight_angle_deg(pose_a: Sequence[float], pose_b: Sequence[float]) -> float:
