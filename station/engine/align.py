@@ -164,8 +164,8 @@ def run_align(step: AlignStep, ctx: Any) -> dict[str, Any]:
             "boresight_error_mrad": result.error_mrad, "reference_px": list(reference),
             "start_deg": list(start), "tolerance_px": step.tolerance_px,
             "iterations": [i.to_dict() for i in result.iterations]}
-    files = [_write(ctx, "alignment.json", data)]
-    files.extend(_plot_alignment(ctx, data))
+    _write(ctx, "alignment.json", data)
+    _plot_alignment(ctx, data)
     origin: dict[str, float] = {}
     if step.origin:
         origin = {"az": result.az_deg, "el": result.el_deg}
@@ -235,8 +235,8 @@ def run_fov_scan(step: FovScanStep, ctx: Any) -> dict[str, Any]:
     _move(ctx, centre, "fov_scan back to the start pose")
     data = res.to_dict()
     data["reference_flux"] = ref_flux
-    files = [_write(ctx, "fov_scan.json", data)]
-    files.extend(_plot_edges(ctx, res))
+    _write(ctx, "fov_scan.json", data)
+    _plot_edges(ctx, res)
     fov = res.fov
     ctx.emit("fov_scan.done", step=step.id, fov=fov.to_dict())
     return {"fov_h_deg": fov.h_deg, "fov_v_deg": fov.v_deg, "fov_d_deg": fov.d_deg,
