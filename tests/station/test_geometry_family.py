@@ -246,3 +246,51 @@ def test_uut_file_may_state_the_boresight_reference_pixel(tmp_path: Path) -> Non
     (tmp_path / "bad.yaml").write_text(yaml.safe_dump(uut, sort_keys=False), encoding="utf-8")
     with pytest.raises(UutFileError, match=r"bad.yaml:\d+:\d+: format.reference_px"):
         load_uut(tmp_path / "bad.yaml")
+
+
+RESUMABLE = """\
+recipe: origin-resume
+description: align, then a move written relative to the aligned pose
+steps:
+  - target: pinhole
+  - blackbody: {mode: difference, value: 30, tolerance: 0.05, hold: 5, timeout: 120}
+  - align: {tolerance_px: 0.2, frames: 1}
+  - move: {az: 0.5, el: -0.25}
+  - note: "moved relative to the aligned pose"
+"""
+
+
+def test_a_resumed_run_moves_relative_to_the_origin_its_align_step_set(tmp_path: Path) -> None:
+    from station.engine.resume import resume_run
+    from station.record.manifest import Manifest, load_manifest
+    from station.engine.runner import plan_summary
+
+    files = _files(tmp_path, RESUMABLE)
+    inputs = load_inputs(files / "recipe.yaml", station_path=files / "station.yaml",
+                         uut_path=files / "uut.yaml", overrides={})
+    clock = SimClock()
+    run = new_run_folder(inputs, tmp_path / "runs", clock)
+    manifest = Manifest.begin(clock, inputs=run.inputs, plan=plan_summary(inputs, 5))
+    manifest.write(run.path)
+    live = RunConsole(Console(file=io.StringIO()), plain=True, clock=clock)
+    outcome = execute(inputs, run, clock, live, seed=5, manifest=manifest)
+    run.close()
+    assert outcome.state == "complete", outcome.cause
+    # As if the power failed right after the align step: the journal ends there.
+    journal = run.path / "journal.jsonl"
+    lines = journal.read_text(encoding="utf-8").splitlines(keepends=True)
+    kinds = [json.loads(line)["kind"] for line in lines]
+    journal.write_text("".join(lines[:kinds.index("align") + 1]), encoding="utf-8")
+    load_manifest(run.path).close(run.path, state="faulted", cause="power cut (test)",
+                                  clock=clock)
+    state, cause, _ = resume_run(run.path, console=RunConsole(Console(file=io.StringIO()),
+                                                              plain=True, clock=SimClock()),
+                                 clock=SimClock(clock.now()))
+    assert state == "complete", cause
+    records = [json.loads(line) for line in journal.read_text(encoding="utf-8").splitlines()]
+    aligned = next(r for r in records if r["kind"] == "align")["data"]["boresight_deg"]
+    moved = next(r for r in records if r["kind"] == "move")["data"]
+    # The move after the resume went to the aligned pose plus the written offsets.
+    assert moved["origin"] == pytest.approx({"az": aligned[0], "el": aligned[1]})
+    assert moved["positions"]["az"] == pytest.approx(aligned[0] + 0.5, abs=0.01)
+    assert moved["positions"]["el"] == pytest.approx(aligned[1] - 0.25, abs=0.01)
