@@ -24,18 +24,24 @@ def truth_camera(geometry: CameraGeometry, **kw: float) -> CameraTruth:
     return CameraTruth(geometry=geometry, **{**base, **kw})
 
 
-def spot_at(geom: CameraGeometry, az: float, el: float) -> np.ndarray:
-    """Exact (x, y) px of the on-axis pinhole at stage pose (az, el), forward model only."""
-    return project(geom, to_camera_frame(AXIS, az, el))[0]
+def spot_at(geom: CameraGeometry, az: float, el: float,
+            mount: np.ndarray | None = None) -> np.ndarray:
+    """Exact (x, y) px of the on-axis pinhole at stage pose (az, el), forward model only.
+    `mount`: the UUT's axes in the mount's frame (a mounting error), identity when None."""
+    d = to_camera_frame(AXIS, az, el)
+    if mount is not None:
+        d = d @ mount   # row-wise M^T d: the direction in the tilted UUT's own frame
+    return project(geom, d)[0]
 
 
-def true_aligned_pose(geom: CameraGeometry, reference_px: tuple[float, float]) -> np.ndarray:
+def true_aligned_pose(geom: CameraGeometry, reference_px: tuple[float, float],
+                      mount: np.ndarray | None = None) -> np.ndarray:
     """The stage pose (az, el) deg that puts the on-axis pinhole on `reference_px` in the true
-    camera, solved numerically with the forward model alone (independent of the inverse model
-    that analysis.alignment uses)."""
+    camera (and mount), solved numerically with the forward model alone (independent of the
+    inverse model that analysis.alignment uses)."""
     ref = np.asarray(reference_px, dtype=float)
-    sol, info, ok, msg = optimize.fsolve(lambda p: spot_at(geom, p[0], p[1]) - ref, [0.0, 0.0],
-                                         xtol=1e-13, full_output=True)
+    sol, info, ok, msg = optimize.fsolve(lambda p: spot_at(geom, p[0], p[1], mount) - ref,
+                                         [0.0, 0.0], xtol=1e-13, full_output=True)
     assert ok == 1, msg
     return sol
 
