@@ -24,6 +24,12 @@ def truth_camera(geometry: CameraGeometry, **kw: float) -> CameraTruth:
     return CameraTruth(geometry=geometry, **{**base, **kw})
 
 
+def renderer_for(geometry: CameraGeometry, seed: int, **kw: float) -> CameraRenderer:
+    """A renderer whose fixed pattern *and* temporal noise both come from `seed` (a simulator
+    may draw the fixed pattern from the truth's own seed), so seeds give independent frames."""
+    return CameraRenderer(truth_camera(geometry, seed=seed, **kw), seed=seed)
+
+
 def spot_at(geom: CameraGeometry, az: float, el: float,
             mount: np.ndarray | None = None) -> np.ndarray:
     """Exact (x, y) px of the on-axis pinhole at stage pose (az, el), forward model only.

@@ -18,7 +18,8 @@ from analysis.boresight import (PinholeNotFound, boresight_from_spot, boresight_
 from analysis.geometry import CameraGeometry
 from analysis.targets import PinholeGrid
 from simulators.camera_render import CameraRenderer
-from tests.analysis.geometry_sim import frame, spot_at, true_aligned_pose, truth_camera
+from tests.analysis.geometry_sim import (frame, renderer_for, spot_at, true_aligned_pose,
+                                        truth_camera)
 
 # A 96 x 80 window of the demo camera (17 um, 25 mm): principal point +2.3 / -1.6 px off the
 # detector centre and 0.15 deg of roll, as in station/data/demo_camera_truth.yaml.
@@ -37,7 +38,7 @@ def test_boresight_recovered_within_two_sigma_over_twenty_seeds() -> None:
     want = true_aligned_pose(TRUE, CENTRE)
     pulls = []
     for seed in range(20):
-        img = frame(CameraRenderer(truth, seed=seed), 0.0, 0.0)
+        img = frame(renderer_for(TRUE, seed), 0.0, 0.0)
         m = measure_boresight(img, fitted, (0.0, 0.0), saturation=truth.full_scale)
         pulls.append((np.array(m.boresight_deg) - want) / np.array(m.sigma_deg))
     pulls = np.array(pulls)
@@ -87,7 +88,7 @@ def test_boresight_shift_between_two_mountings_matches_the_moved_principal_point
     ms = []
     for geom, seed in ((TRUE, 1), (moved, 2), (TRUE, 3)):
         truth = truth_camera(geom)
-        img = frame(CameraRenderer(truth, seed=seed), 0.0, 0.0)
+        img = frame(renderer_for(geom, seed), 0.0, 0.0)
         ms.append(measure_boresight(img, NOMINAL, saturation=truth.full_scale))
     shift = boresight_shift(ms)
     want = 1000 * math.atan(5 * 0.017 / 25.0)  # 3.4 mrad (paraxial, Smith)

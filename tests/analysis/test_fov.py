@@ -20,7 +20,7 @@ from analysis.fov import (fov_from_model, fov_verdicts, ifov_from_slope, scan_fo
 from analysis.geometry import BrownConrady, CameraGeometry
 from analysis.targets import SinglePinhole
 from simulators.camera_render import CameraRenderer
-from tests.analysis.geometry_sim import frame, spot_at, truth_camera
+from tests.analysis.geometry_sim import frame, renderer_for, spot_at, truth_camera
 
 
 def rectilinear_fov(n: int, pitch_um: float, f_mm: float) -> float:
@@ -53,8 +53,7 @@ def test_model_fov_of_an_f_theta_camera_is_np_over_f() -> None:
 
 
 def run_scan(geom: CameraGeometry, nominal: CameraGeometry, pinhole_mm: float, seed: int = 3):
-    truth = truth_camera(geom)
-    r = CameraRenderer(truth, seed=seed)
+    r = renderer_for(geom, seed)
     count = iter(range(100_000))
     centre = spot_at(geom, 0.0, 0.0)
     hole = SinglePinhole(diameter_mm=pinhole_mm)
