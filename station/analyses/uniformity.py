@@ -43,10 +43,9 @@ def run(site: AnalysisSite, step: AnalyzeStep, context: AnalysisContext) -> Anal
         verdict = judge_spec(context.uut, key, value, sigma, {"captures": len(out)})
         if verdict is not None:
             verdicts.append(verdict)
-    data: dict[str, object] = dict(out)
-    if verdicts:
-        data["verdicts"] = [v.to_dict() for v in verdicts]
-    path = write_result(site, "uniformity.json", data)
+    # uniformity.json keeps its shape (one entry per capture); the verdicts go to the journal
+    # and results/verdicts.json
+    path = write_result(site, "uniformity.json", out)
     return AnalysisOutcome({"worst_nonuniformity_percent": worst_nu, "captures": len(out)},
                            tuple(verdicts), (path,))
 
