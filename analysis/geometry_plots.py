@@ -117,7 +117,7 @@ def plot_alignment_convergence(iterations: Sequence[Mapping[str, Any]], toleranc
 
 def plot_fov_edges(scan: Any, path: Path | str) -> Path:
     """Flux fraction against stage angle for each edge search (left, right, top, bottom), the
-    one-half crossing and the edge found (scan-mode FOV, `analysis.fov.ScanFov`)."""
+    one-half crossing and the edge found (scan-mode FOV, `analysis.fov_scan.ScanFov`)."""
     plt = _pyplot()
     fig, axes = plt.subplots(2, 2, figsize=(9.0, 6.5))
     for ax, name in zip(axes.ravel(), ("left", "right", "top", "bottom")):

@@ -2,7 +2,7 @@
 field's edges by bisection on the stage).
 
 Both work only through the driver interfaces and the clock, like every handler, and leave the
-maths to `analysis.alignment` and `analysis.fov`. Every look (move, frames, spot) is an event in
+maths to `analysis.alignment` and `analysis.fov_scan`. Every look (move, frames, spot) is an event in
 events.jsonl; the results go to results/alignment.json and results/fov_scan.json.
 
 The aligned pose as origin (the design): when an `align` step converges with ``origin: true``
@@ -24,7 +24,7 @@ import numpy as np
 from analysis.alignment import (AlignmentFault, AlignmentIteration, align, aligned_pose,
                                 axis_direction_at)
 from analysis.boresight import PinholeNotFound, find_pinhole
-from analysis.fov import scan_fov, spot_flux_near
+from analysis.fov_scan import scan_fov, spot_flux_near
 from analysis.geometry import project
 from analysis.targets import SinglePinhole
 from sequences.plansteps import AlignStep, FovScanStep

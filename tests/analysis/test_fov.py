@@ -1,4 +1,4 @@
-"""Field of view and IFOV against the standard lens formulas.
+"""Field of view and IFOV (analysis.fov, analysis.fov_scan) against the standard lens formulas.
 
 Outside reference: W. J. Smith, *Modern Optical Engineering* (field of view of an imaging
 system): rectilinear ``2 atan(N p / 2 f)``; equidistant (f-theta) ``N p / f`` rad (panotools
@@ -15,8 +15,8 @@ import pytest
 from analysis.alignment import aligned_pose
 from analysis.boresight import find_pinhole
 from analysis.centroid import centroid_at
-from analysis.fov import (fov_from_model, fov_verdicts, ifov_from_slope, scan_fov,
-                          spot_flux_near)
+from analysis.fov import fov_from_model, fov_verdicts, ifov_from_slope
+from analysis.fov_scan import scan_fov, spot_flux_near
 from analysis.geometry import BrownConrady, CameraGeometry
 from analysis.targets import SinglePinhole
 from simulators.camera_render import CameraRenderer
