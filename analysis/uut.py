@@ -30,6 +30,9 @@ class UutSpec:
     spec_conditions: dict[str, dict[str, float]] = field(default_factory=dict)
     """Per spec key, the measurement conditions the UUT file states beside its limit
     (``netd_mk: {limit: 50, source_c: 30, background_c: 20}``)."""
+    reference_px: tuple[float, float] | None = None
+    """The boresight's reference pixel (x, y) if the UUT file states one; None: the detector's
+    geometric centre."""
 
     def __post_init__(self) -> None:
         if self.projection not in PROJECTIONS:
@@ -58,4 +61,5 @@ class UutSpec:
                 "projection": self.projection, "band_um": list(self.band_um),
                 "frame_rate_hz": self.frame_rate_hz, "bit_depth": self.bit_depth,
                 "spec_limits": dict(self.spec_limits),
-                "spec_conditions": {k: dict(v) for k, v in self.spec_conditions.items()}}
+                "spec_conditions": {k: dict(v) for k, v in self.spec_conditions.items()},
+                **({"reference_px": list(self.reference_px)} if self.reference_px else {})}

@@ -24,7 +24,8 @@ from dataclasses import dataclass, field
 
 from sequences.facts import TimingModel
 from sequences.plan import Plan
-from sequences.plansteps import (BlackbodyStep, CaptureStep, MoveStep, TargetStep, WaitStep)
+from sequences.plansteps import (AlignStep, BlackbodyStep, CaptureStep, FovScanStep, MoveStep,
+                                 TargetStep, WaitStep)
 from sequences.yamlsource import Problem, SourceRef
 
 __all__ = ["Estimate", "TimeoutWarning", "estimate", "blackbody_settle_s", "wheel_travel_s",
@@ -33,6 +34,9 @@ __all__ = ["Estimate", "TimeoutWarning", "estimate", "blackbody_settle_s", "whee
 NEAR_TIMEOUT_FRACTION = 0.9
 """A step whose estimated duration reaches 90 % of its timeout is warned about: the model's
 error and a warmer lab than modelled easily eat a 10 % margin."""
+
+ALIGN_MOVE_S = 2.0  # a correction of a fraction of a degree: settle-dominated (stage model)
+FOV_MOVE_S = 3.0  # a step of a few degrees out and the settle
 
 
 @dataclass(frozen=True)
@@ -186,6 +190,18 @@ def estimate(plan: Plan, timing: TimingModel) -> Estimate:
                 written += average_bytes
         elif isinstance(step, WaitStep):
             seconds = step.duration_s
+        elif isinstance(step, AlignStep):
+            # Typically three looks (the loop converges quadratically), each a short move and
+            # the frames; the bound is max_iterations (the usual case is estimated).
+            looks = min(3, step.max_iterations)
+            seconds = looks * (ALIGN_MOVE_S + step.frames / timing.frame_rate_hz)
+            frames += looks * step.frames
+        elif isinstance(step, FovScanStep):
+            # Four edges, ~log2(field / tolerance) + 3 looks each, a move of a few degrees and
+            # its settle for each.
+            looks = 4 * (int(math.log2(max(2.0, 20.0 / step.tolerance_deg))) + 3)
+            seconds = looks * (FOV_MOVE_S + step.frames / timing.frame_rate_hz)
+            frames += looks * step.frames
         seconds += timing.command_overhead_s
         per_step.append((step.id, seconds))
     total = math.fsum(s for _, s in per_step)

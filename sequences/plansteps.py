@@ -26,6 +26,7 @@ from sequences.yamlsource import SourceRef
 
 __all__ = ["LoopValue", "OptionValue", "Keep", "BlackbodyMode", "StepBase", "BlackbodyStep",
            "TargetStep", "MoveStep", "CaptureStep", "AnalyzeStep", "NoteStep", "WaitStep",
+           "AlignStep", "FovScanStep",
            "PlanStep", "STEP_TYPES"]
 
 LoopValue = Union[str, int, float, bool]
@@ -173,11 +174,38 @@ class WaitStep(StepBase):
     kind: ClassVar[str] = "wait"
 
 
+@dataclass(frozen=True)
+class AlignStep(StepBase):
+    """Point the UUT at the collimator axis, closed loop on the single pinhole: measure, move,
+    repeat until the spot is within ``tolerance_px`` of the reference pixel, at most
+    ``max_iterations`` times, averaging ``frames`` frames per look. With ``origin`` the aligned
+    pose becomes the origin of every later ``move`` and ``scan`` (station/engine/align.py)."""
+
+    tolerance_px: float = 0.25
+    max_iterations: int = 8
+    frames: int = 4
+    origin: bool = True
+
+    kind: ClassVar[str] = "align"
+
+
+@dataclass(frozen=True)
+class FovScanStep(StepBase):
+    """Field of view directly: from the current pose, step the pinhole out along azimuth and
+    elevation until its image leaves the active area, each edge bisected to ``tolerance_deg``,
+    ``frames`` frames averaged per look (station/engine/align.py)."""
+
+    tolerance_deg: float = 0.02
+    frames: int = 2
+
+    kind: ClassVar[str] = "fov_scan"
+
+
 PlanStep = Union[BlackbodyStep, TargetStep, MoveStep, CaptureStep, AnalyzeStep, NoteStep,
-                 WaitStep]
+                 WaitStep, AlignStep, FovScanStep]
 """Any concrete step of a plan."""
 
 STEP_TYPES: Mapping[str, type[StepBase]] = {
     t.kind: t for t in (BlackbodyStep, TargetStep, MoveStep, CaptureStep, AnalyzeStep, NoteStep,
-                        WaitStep)
+                        WaitStep, AlignStep, FovScanStep)
 }

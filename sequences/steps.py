@@ -17,8 +17,8 @@ from collections.abc import Mapping
 from typing import Any, Callable
 
 from sequences.facts import StationFacts
-from sequences.plansteps import (AnalyzeStep, BlackbodyStep, MoveStep, NoteStep, PlanStep,
-                                 StepBase, TargetStep, WaitStep)
+from sequences.plansteps import (AlignStep, AnalyzeStep, BlackbodyStep, FovScanStep, MoveStep,
+                                 NoteStep, PlanStep, StepBase, TargetStep, WaitStep)
 from sequences.yamlsource import MarkedDict, MarkedList, Problem, SourceRef, ref_in
 
 __all__ = [
@@ -58,7 +58,7 @@ class Option:
     """One option of a step: its value kind, default (or REQUIRED) and bounds.
 
     ``kind`` is one of: ``number`` (int or float, read as float), ``count`` (whole number),
-    ``text`` (any scalar, read as text), ``capture_name``, ``choice``, ``names`` (list of text),
+    ``text`` (any scalar, read as text), ``flag`` (true or false), ``capture_name``, ``choice``, ``names`` (list of text),
     ``mapping``, or ``raw`` (checked by the loop expander itself).
     """
 
@@ -120,6 +120,20 @@ STEP_SPECS: dict[str, StepSpec] = {
         Option("analysis", "text"),
         Option("captures", "names"),
         Option("options", "mapping", {}),
+    ),
+    "align": _spec(
+        "align", "align: {tolerance_px: 0.25, max_iterations: 8, frames: 4}",
+        Option("tolerance_px", "number", 0.25, above=0.0, unit="px"),
+        Option("max_iterations", "count", 8, minimum=1),
+        Option("frames", "count", 4, minimum=1),
+        Option("origin", "flag", True),
+        step_type=AlignStep,
+    ),
+    "fov_scan": _spec(
+        "fov_scan", "fov_scan: {tolerance_deg: 0.02, frames: 2}",
+        Option("tolerance_deg", "number", 0.02, above=0.0, unit="deg"),
+        Option("frames", "count", 2, minimum=1),
+        step_type=FovScanStep,
     ),
     "note": StepSpec("note", 'note: "text for the log"',
                      scalar=Option("note", "text", field="text"), step_type=NoteStep),
@@ -294,6 +308,10 @@ def coerce_value(option: Option, value: Any, where: SourceRef, label: str,
         if isinstance(value, bool) or not isinstance(value, int):
             return fail(f"{what} must be a whole number, not {_describe(value)}",
                         "write a plain whole number such as 16")
+    elif kind == "flag":
+        if not isinstance(value, bool):
+            return fail(f"{what} must be true or false, not {_describe(value)}",
+                        "write true or false")
     elif kind == "text":
         if isinstance(value, (dict, list)) or value is None:
             return fail(f"{what} must be text, not {_describe(value)}", "write it as a single value")

@@ -7,7 +7,7 @@ Each module under station/analyses/ declares one :class:`~station.analyses.regis
 
 from __future__ import annotations
 
-from station.analyses import distortion, netd, sitf, uniformity
+from station.analyses import boresight, distortion, fov, netd, sitf, uniformity
 from station.analyses.registry import Registry
 
 __all__ = ["builtin_registry"]
@@ -15,4 +15,5 @@ __all__ = ["builtin_registry"]
 
 def builtin_registry() -> Registry:
     """The built-in analyses by name (a new Registry each call: no shared state)."""
-    return Registry([distortion.ANALYSIS, sitf.ANALYSIS, netd.ANALYSIS, uniformity.ANALYSIS])
+    return Registry([distortion.ANALYSIS, sitf.ANALYSIS, netd.ANALYSIS, uniformity.ANALYSIS,
+                     boresight.ANALYSIS, fov.ANALYSIS])

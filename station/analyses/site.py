@@ -33,6 +33,11 @@ class FolderSite:
         self.written: list[Path] = []
 
     @property
+    def run_path(self) -> Path:
+        """The run folder the captures come from (its own results/ may hold step outputs)."""
+        return self._run_path
+
+    @property
     def results_dir(self) -> Path:
         return self._results_dir
 

@@ -16,7 +16,7 @@ from drivers.errors import InstrumentError, LimitError
 from station.engine.abort import RunInterrupted
 from station.engine.machine import RunStatus, build_machine
 from station.engine.safing import make_safe
-from station.engine.steps import STEP_HANDLERS, StepContext, StepHandler
+from station.engine.steps import JOURNAL_RESTORERS, STEP_HANDLERS, StepContext, StepHandler
 from station.engine.waiting import StepFailed
 from analysis.verdicts import Verdict
 from sequences.plan import Plan
@@ -134,6 +134,9 @@ class Sequencer:
                            if s.id not in self.completed), len(self.plan.steps))
         latest: dict[str, PlanStep] = {}
         for step in self.plan.steps[:first_open]:
+            restorer = JOURNAL_RESTORERS.get(step.kind)
+            if restorer is not None and step.id in self.completed:
+                restorer(self.completed[step.id], self.ctx)
             if step.kind in RESTORE_KINDS:
                 latest[step.kind] = step
         for kind in RESTORE_KINDS:

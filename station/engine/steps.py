@@ -17,11 +17,12 @@ from analysis.verdicts import Verdict
 from drivers.clock import Clock
 from drivers.errors import LimitError
 from drivers.interfaces import Frame
-from sequences.plansteps import (AnalyzeStep, BlackbodyStep, CaptureStep, MoveStep, NoteStep,
-                                 PlanStep, TargetStep, WaitStep)
+from sequences.plansteps import (AlignStep, AnalyzeStep, BlackbodyStep, CaptureStep,
+                                 FovScanStep, MoveStep, NoteStep, PlanStep, TargetStep, WaitStep)
 from station.analyses.registry import AnalysisContext, AnalysisFailed, Registry
 from station.analyses.site import FolderSite
 from station.engine.abort import OperatorRequests
+from station.engine.align import restore_align_origin, run_align, run_fov_scan
 from station.engine.bench import Bench
 from station.engine.ports import Emit
 from station.inputs.config import StationConfig
@@ -72,6 +73,7 @@ class StepContext:
     poll_s: float = POLL_S
     tick: Callable[[], None] = lambda: None  # live-readings refresh while waiting
     verdicts: list[Verdict] = field(default_factory=list)  # judged by this session's analyses
+    origin: dict[str, float] = field(default_factory=dict)  # stage origin set by align (per axis)
 
 
 def _refuse(refusal: object | None) -> None:
@@ -117,7 +119,10 @@ def run_target(step: TargetStep, ctx: StepContext) -> JournalData:
 
 
 def run_move(step: MoveStep, ctx: StepContext) -> JournalData:
-    targets = {a: float(v) for a, v in step.position.items()}
+    # Positions are relative to the stage origin an align step set (none: absolute). A light
+    # context without the field (tests, tools) moves in absolute positions.
+    origin: Mapping[str, float] = getattr(ctx, "origin", None) or {}
+    targets = {a: float(v) + origin.get(a, 0.0) for a, v in step.position.items()}
     for axis, value in targets.items():
         _refuse(ctx.station.limits.position_problem(axis, value))
     stage = ctx.bench.stage
@@ -130,6 +135,8 @@ def run_move(step: MoveStep, ctx: StepContext) -> JournalData:
         if abs(reached[axis] - want) > STAGE_POSITION_TOLERANCE:
             raise StepFailed(f"stage axis {axis} stopped at {reached[axis]:.4f}, asked "
                              f"{want:.4f}; check for a stall or a limit switch")
+    if origin:
+        return {"positions": reached, "origin": dict(origin)}
     return {"positions": reached}
 
 
@@ -274,4 +281,12 @@ STEP_HANDLERS: Mapping[str, Callable[..., JournalData]] = {
     AnalyzeStep.kind: run_analyze,
     NoteStep.kind: run_note,
     WaitStep.kind: run_wait,
+    AlignStep.kind: run_align,
+    FovScanStep.kind: run_fov_scan,
 }
+
+JOURNAL_RESTORERS: Mapping[str, Callable[[Mapping[str, object], StepContext], None]] = {
+    AlignStep.kind: restore_align_origin,
+}
+"""On resume, what a completed step left in the run context, rebuilt from its journal record
+(the aligned pose as the stage origin)."""

@@ -3,7 +3,8 @@
 Layout (see station/data/demo_uut.yaml)::
 
     model: ...            serial: ...
-    format:   {width, height, pixel_pitch_um}
+    format:   {width, height, pixel_pitch_um, reference_px (optional: [x, y], the boresight's
+               reference pixel; the detector's geometric centre when absent)}
     optics:   {focal_length_mm, f_number, projection}
     band_um: [lo, hi]     frame_rate_hz: ...     bit_depth: ...
     spec_limits: {name: number, name: {limit: number, <condition>: number, ...}, ...}
@@ -33,7 +34,7 @@ class UutFileError(SourceError):
 
 
 _SECTIONS: dict[str, tuple[str, ...]] = {
-    "format": ("width", "height", "pixel_pitch_um"),
+    "format": ("width", "height", "pixel_pitch_um", "reference_px"),
     "optics": ("focal_length_mm", "f_number", "projection"),
 }
 _TOP = ("model", "serial", "format", "optics", "band_um", "frame_rate_hz", "bit_depth",
@@ -135,6 +136,7 @@ def load_uut(path: str | Path) -> UutSpec:
                   "write the spectral band in micrometres, e.g. [8, 12] or [3, 5]")
         else:
             band = (float(b[0]), float(b[1]))
+    reference = _reference_px(r, fmt, width, height)
     rate = r.number(doc, "frame_rate_hz", "frame_rate_hz")
     bits = r.number(doc, "bit_depth", "bit_depth", integer=True, hi=16)
     limits: dict[str, float] = {}
@@ -163,7 +165,25 @@ def load_uut(path: str | Path) -> UutSpec:
     return UutSpec(model=model, serial=serial, width=width, height=height,
                    pixel_pitch_um=pitch, focal_length_mm=focal, f_number=f_number,
                    projection=projection, band_um=band, frame_rate_hz=rate, bit_depth=bits,
-                   spec_limits=limits, spec_conditions=conditions)
+                   spec_limits=limits, spec_conditions=conditions, reference_px=reference)
+
+
+def _reference_px(r: _Reader, fmt: MarkedDict | None, width: Any, height: Any
+                  ) -> tuple[float, float] | None:
+    """The optional boresight reference pixel [x, y] (x = column), inside the detector."""
+    if fmt is None or "reference_px" not in fmt:
+        return None
+    v = fmt["reference_px"]
+    ok = (isinstance(v, list) and len(v) == 2 and all(is_number(x) for x in v))
+    if ok and width is not None and height is not None:
+        ok = -0.5 <= float(v[0]) <= width - 0.5 and -0.5 <= float(v[1]) <= height - 0.5
+    if not ok:
+        r.add(fmt.ref_of("reference_px"), f"format.reference_px: expected [x, y] in pixels "
+              f"inside the detector, got {v!r}",
+              "x is the column, y the row, from the centre of the top-left pixel; leave it out "
+              "for the detector's geometric centre")
+        return None
+    return float(v[0]), float(v[1])
 
 
 def _limit_with_conditions(r: _Reader, key: str, entry: dict[str, Any], where: SourceRef

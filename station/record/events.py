@@ -65,6 +65,11 @@ class Event(str, Enum):
     FRAME_REJECTED = ("frame.rejected", False)
     BLACKBODY_SETTLED = ("blackbody.settled", False)
     ANALYSIS_DONE = ("analysis.done", True)
+    ALIGN_ITERATION = ("align.iteration", True)      # one look of the closed loop
+    ALIGN_DONE = ("align.done", True)
+    STAGE_ORIGIN = ("stage.origin", True)            # the aligned pose became the origin
+    FOV_SCAN_LOOK = ("fov_scan.look", False)         # one probe of an edge bisection
+    FOV_SCAN_DONE = ("fov_scan.done", True)
     FILE_WRITTEN = ("file_written", True)
     PREFLIGHT_IDENTITY = ("preflight.identity", False)
     PREFLIGHT_WARNING = ("preflight.warning", False)
