@@ -11,6 +11,7 @@ from drivers.clock import SimClock
 from drivers.errors import InstrumentError
 from station.cli import exitcodes
 from station.engine.abort import OperatorRequests, abort_on_signals
+from station.cli.watching import watch_run
 from station.record.manifest import Manifest
 from station.formatting import format_duration
 from station.engine.runner import (execute, load_inputs, make_clock, new_run_folder,
@@ -33,9 +34,12 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     manifest.write(run.path)
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
     with abort_on_signals(OperatorRequests()):
-        with _console_for(console, args.plain, clock) as live:
+        watching = watch_run(_console_for(console, args.plain, clock), run, inputs.plan,
+                             inputs.station, inputs.uut.serial, clock)
+        with watching.console as live:
             live.start(len(inputs.plan.steps), inputs.estimate.total_s)
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
+        watching.finished(outcome.state, outcome.cause, str(run.path))
         run.close()
         manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False)
@@ -146,7 +150,7 @@ def cmd_resume(args: argparse.Namespace, console: Console) -> int:
     from station.engine.resume import resume_run
 
     state, cause, path = resume_run(args.run_folder, force=args.force, seed=args.seed,
-                                    console=_console_for(console, args.plain))
+                                    console=_console_for(console, args.plain), watch=watch_run)
     console.print(f"run {state}: {cause}", highlight=False, markup=False)
     console.print(f"run folder: {path}", highlight=False, markup=False)
     return exitcodes.BY_STATE.get(state, exitcodes.FAULTED)
@@ -158,3 +162,10 @@ def cmd_verify(args: argparse.Namespace, console: Console) -> int:
     report = verify_run(args.run_folder)
     console.print(report.format(), highlight=False, markup=False)
     return exitcodes.OK if report.ok else exitcodes.VERIFY_FAILED
+
+
+def cmd_monitor(args: argparse.Namespace, console: Console) -> int:
+    from station.monitor.serve import serve_monitor
+
+    return serve_monitor(args.folder, host=args.host, port=args.port, token=args.token,
+                         read_only=args.read_only, console=console)

@@ -176,13 +176,15 @@ def resume_clock(inputs: Inputs, start: float) -> Clock:
 
 def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None,
                console: Any, clock: Clock | None = None,
-               fault_plan: Any = None) -> tuple[str, str, Path]:
+               fault_plan: Any = None, watch: Any = None) -> tuple[str, str, Path]:
     """Continue the run in `path` at its first step not in the journal.
 
     Returns (end state, cause, run folder). Raises ResumeRefused (a ValueError) when the folder,
     its journal or manifest is unusable, or the station/recipe/UUT changed (unless `force`).
     `clock` and `fault_plan` are for in-process callers (tests, soak); the command line leaves
-    them None: a simulated station then runs on simulated time.
+    them None: a simulated station then runs on simulated time. `watch(console, run, plan,
+    station, uut_serial, clock)`, when given, wraps the console for remote watchers and
+    notifications (station.cli.watching.watch_run).
     """
     run_path = Path(path).resolve()
     try:
@@ -222,7 +224,9 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
             + ("; forced past: " + ", ".join(c.role for c in changes) if changes else ""))
     manifest.resumed(run_path, clock, note=note)
     remaining_s = sum(s for step_id, s in inputs.estimate.per_step if step_id not in completed)
-    with console as live:
+    watching = watch(console, run, inputs.plan, inputs.station, inputs.uut.serial, clock) \
+        if watch is not None else None
+    with (watching.console if watching is not None else console) as live:
         for warning in journal.warnings:
             live.log("warning", warning)
         for change in changes:
@@ -232,6 +236,8 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
         outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
                           fault_plan=fault_plan, manifest=manifest,
                           expected_identities=None if force else first_identities(run))
+    if watching is not None:
+        watching.finished(outcome.state, outcome.cause, str(run_path))
     run.close()
     manifest.close(run_path, state=outcome.state, cause=outcome.cause, clock=clock)
     return outcome.state, outcome.cause, run_path

@@ -28,6 +28,7 @@ from analysis.targets import Target, target_from_mapping
 from drivers.errors import ResourceStringError
 from drivers.interfaces import AxisLimits
 from sequences.facts import StationFacts
+from station.inputs.notify_settings import NotifySettings, notify_problems, parse_notify
 from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, is_number,
                                   load_yaml)
 
@@ -82,6 +83,7 @@ class StationConfig:
     slots: Mapping[int, Slot]
     axes: Mapping[str, AxisLimits]
     simulation: Mapping[str, Any] | None = None
+    notify: NotifySettings = field(default_factory=NotifySettings)
     problems_ignored: tuple[str, ...] = field(default=())
 
     @property
@@ -378,12 +380,13 @@ def load_station(path: Path | str | None = None) -> StationConfig:
         raise SourceError([Problem(doc.ref(), "a station file must be a mapping",
                                    "start from station/data/example_lab_station.yaml")])
     for key in doc:
-        if key not in ("station", "collimator", "instruments", "simulation", "lab", "notes"):
+        if key not in ("station", "collimator", "instruments", "simulation", "lab", "notes",
+                       "notify"):
             close = difflib.get_close_matches(str(key), ["station", "collimator", "instruments",
                                                          "simulation"], n=1)
             check.add(doc.key_ref(key), f"unknown top-level key '{key}'",
                       f"did you mean '{close[0]}'?" if close else
-                      "allowed: station, collimator, instruments, simulation, lab, notes")
+                      "allowed: station, collimator, instruments, simulation, lab, notes, notify")
     name = check.text(doc, "station", "give the station a name, e.g. 'Bay 2 collimator bench'")
     collimator = check.mapping(doc, "collimator", "e.g. collimator: {focal_length_mm: 1500}")
     focal = (check.number(collimator, "focal_length_mm", "the collimator's effective focal "
@@ -418,6 +421,14 @@ def load_station(path: Path | str | None = None) -> StationConfig:
         if not check.problems:
             check.add(doc.ref(), "the station file is incomplete")
         raise SourceError(check.problems)
+    notify_raw = doc.get("notify")
+    if notify_raw is not None:
+        for key, message in notify_problems(notify_raw):
+            where = (notify_raw.ref_of(key) if isinstance(notify_raw, MarkedDict) and key
+                     else doc.ref_of("notify"))
+            check.add(where, message, "see the README's 'Watching a run from elsewhere'")
+        if check.problems:
+            raise SourceError(check.problems)
     return StationConfig(name=name, path=path, text=text, collimator_focal_mm=focal,
                          instruments=entries, blackbody_limits=limits, slots=slots, axes=axes,
-                         simulation=simulation)
+                         simulation=simulation, notify=parse_notify(notify_raw))

@@ -30,6 +30,7 @@ from drivers.clock import Clock
 from station import __version__
 from station.record.atomic import TEMP_SUFFIX, sha256_file, write_json_atomic
 from station.record.events import utc_iso
+from station.record.live import is_live_view
 
 MANIFEST_NAME = "manifest.json"
 MANIFEST_FORMAT = "nightbench-manifest"
@@ -131,14 +132,15 @@ _FIX = ("The manifest was damaged or edited. The frames, events and journal besi
 
 
 def checksum_files(run_path: Path) -> dict[str, dict[str, Any]]:
-    """{relative path: {sha256, bytes}} of every file under the run folder except the manifest and
-    leftover temporary files of interrupted atomic writes."""
+    """{relative path: {sha256, bytes}} of every file under the run folder except the manifest,
+    leftover temporary files of interrupted atomic writes and the live view for monitors (a view
+    that changes while the run goes on, not part of the record)."""
     files: dict[str, dict[str, Any]] = {}
     for path in sorted(run_path.rglob("*")):
         if not path.is_file():
             continue
         rel = path.relative_to(run_path).as_posix()
-        if rel == MANIFEST_NAME or path.name.endswith(TEMP_SUFFIX):
+        if rel == MANIFEST_NAME or path.name.endswith(TEMP_SUFFIX) or is_live_view(rel):
             continue
         files[rel] = {"sha256": sha256_file(path), "bytes": path.stat().st_size}
     return files

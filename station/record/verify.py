@@ -25,6 +25,7 @@ from station.record.events import scan_events
 from station.record.frame_store import (ABANDONED, CAPTURE_FORMAT, META_SUFFIX, capture_files,
                                  partial_files, safe_name)
 from station.record.journal import Journal, JournalError
+from station.record.live import is_live_view
 from station.record.manifest import MANIFEST_NAME, RUNNING, ManifestError, load_manifest
 from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
 
@@ -138,7 +139,7 @@ def _check_manifest(root: Path, report: VerifyReport) -> None:
             report.altered.append(f"{rel} (checksum differs{detail})")
     for file in sorted(p for p in root.rglob("*") if p.is_file()):
         rel = file.relative_to(root).as_posix()
-        if rel == MANIFEST_NAME or rel in listed:
+        if rel == MANIFEST_NAME or rel in listed or is_live_view(rel):
             continue
         if file.name.endswith(TEMP_SUFFIX):
             report.temporary.append(rel)
