@@ -4,7 +4,7 @@ The station file may name, under `notify:`, a command to run and/or a URL to POS
 to, and on which occasions::
 
     notify:
-      on: [end, fault, operator]       # default: all three
+      when: [end, fault, operator]     # default: all three ('on' would be read by YAML as true)
       command: ["/usr/local/bin/page-oncall", "--bench", "bay2"]   # argv list; no shell
       url: http://127.0.0.1:9000/bench-events
       timeout_s: 5
@@ -46,12 +46,16 @@ def notify_problems(raw: Any) -> list[tuple[str, str]]:
     if not isinstance(raw, Mapping):
         return [("", "'notify' must be a mapping with 'command' and/or 'url'")]
     for key in raw:
-        if key not in ("on", "command", "url", "timeout_s"):
-            problems.append((str(key), f"unknown key '{key}' under notify (known: on, command, "
+        if isinstance(key, bool):
+            problems.append(("", f"a key under notify was read by YAML as {str(key).lower()} "
+                                 "(on, off, yes, no are booleans): write 'when:' for occasions, "
+                                 "or quote the key"))
+        elif key not in ("when", "command", "url", "timeout_s"):
+            problems.append((str(key), f"unknown key '{key}' under notify (known: when, command, "
                                        "url, timeout_s)"))
-    on = raw.get("on", list(OCCASIONS))
-    if not isinstance(on, list) or any(o not in OCCASIONS for o in on):
-        problems.append(("on", f"'on' must be a list of {', '.join(OCCASIONS)}"))
+    when = raw.get("when", list(OCCASIONS))
+    if not isinstance(when, list) or any(o not in OCCASIONS for o in when):
+        problems.append(("when", f"'when' must be a list of {', '.join(OCCASIONS)}"))
     command = raw.get("command", [])
     if isinstance(command, str):
         command = [command]
@@ -74,6 +78,6 @@ def parse_notify(raw: Mapping[str, Any] | None) -> NotifySettings:
     if not raw:
         return NotifySettings()
     command = raw.get("command", [])
-    return NotifySettings(frozenset(raw.get("on", OCCASIONS)),
+    return NotifySettings(frozenset(raw.get("when", OCCASIONS)),
                           tuple([command] if isinstance(command, str) else command),
                           str(raw.get("url", "") or ""), float(raw.get("timeout_s", 5.0)))
