@@ -53,6 +53,23 @@
       var b = document.createElement("td"); b.textContent = fmt(readings[k]);
       tr.appendChild(a); tr.appendChild(b); body.appendChild(tr);
     });
+    var bb = readings.blackbody || {};
+    if (bb.temperature_c !== undefined && bb.reference_c !== undefined) {
+      var diff = bb.temperature_c - bb.reference_c;
+      var want = bb.mode === "difference" ? diff : bb.temperature_c;
+      var tol = /tolerance=([0-9.eE+-]+)/.exec(st.description || "");
+      var line = "difference " + diff.toFixed(3) + " K";
+      if (bb.setpoint !== undefined) {
+        var err = want - bb.setpoint;
+        line += "; off its setpoint by " + (1000 * err).toFixed(0) + " mK" +
+          (tol ? " (tolerance " + (1000 * parseFloat(tol[1])).toFixed(0) + " mK)" : "") +
+          (bb.stable === undefined ? "" : (bb.stable ? ", settled" : ", settling"));
+      }
+      var tr = document.createElement("tr");
+      var a = document.createElement("td"); a.textContent = "settling";
+      var b = document.createElement("td"); b.textContent = line;
+      tr.appendChild(a); tr.appendChild(b); body.appendChild(tr);
+    }
     updateChart(readings, st.clock_now);
   }
   function showEvents(list) {
