@@ -49,6 +49,7 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     from station.engine.abort import OperatorRequests, abort_on_signals
     from station.engine.runner import (console_plan, execute, load_inputs, make_clock,
                                        new_run_folder, plan_summary)
+    from station.cli.watching import watch_run
     from station.engine.prechecks import check_run_inputs
     from station.record.closing import close_manifest, final_state_guard
     from station.record.manifest import Manifest
@@ -68,9 +69,12 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
     manifest.write(run.path)
     # A late Ctrl-C (after safing, before the manifest is closed) must not leave it "running".
     with abort_on_signals(OperatorRequests()), final_state_guard(run, manifest, clock):
-        with _console_for(console, args.plain, clock) as live:
+        watching = watch_run(_console_for(console, args.plain, clock), run, inputs.plan,
+                             inputs.station, inputs.uut.serial, clock)
+        with watching.console as live:
             live.start(len(inputs.plan.steps), inputs.estimate.total_s, **console_plan(inputs))
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
+        watching.finished(outcome.state, outcome.cause, str(run.path))
         close_manifest(run, manifest, outcome.state, outcome.cause, clock)
     run.release_writer_lock()
     _after_run(console, run.path)
@@ -320,8 +324,10 @@ def cmd_resume(args: argparse.Namespace, console: Console) -> int:
     from station.engine.resume import resume_run
 
     _transport_log_to_event_log_only()
+    from station.cli.watching import watch_run
+
     state, cause, path = resume_run(args.run_folder, force=args.force, seed=args.seed,
-                                    console=_console_for(console, args.plain))
+                                    console=_console_for(console, args.plain), watch=watch_run)
     _after_run(console, path)
     console.print(f"run {state}: {cause}", highlight=False, markup=False, soft_wrap=True)
     if state not in ("complete",):
@@ -397,3 +403,10 @@ def cmd_compare(args: argparse.Namespace, console: Console) -> int:
     from station.history.show import show_compare
 
     return show_compare(args, console)
+
+
+def cmd_monitor(args: argparse.Namespace, console: Console) -> int:
+    from station.monitor.serve import serve_monitor
+
+    return serve_monitor(args.folder, host=args.host, port=args.port, token=args.token,
+                         read_only=args.read_only, console=console)

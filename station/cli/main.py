@@ -164,6 +164,16 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_simulate(sub)
 
+    monitor = sub.add_parser("monitor", help="serve a live web page of a run or a folder of runs")
+    monitor.add_argument("folder", type=Path, help="a run folder, or a folder of runs")
+    monitor.add_argument("--host", default="127.0.0.1",
+                         help="address to bind (default loopback; any other needs a token)")
+    monitor.add_argument("--port", type=int, default=8750)
+    monitor.add_argument("--token", default=None, help="access token (default: the environment "
+                         "variable NIGHTBENCH_MONITOR_TOKEN; generated and printed when binding "
+                         "beyond loopback without one)")
+    monitor.add_argument("--read-only", action="store_true", help="no pause/continue/abort")
+
     verify = sub.add_parser("verify", help="check a run folder's files against its manifest")
     verify.add_argument("run_folder", type=Path)
     _history_commands(sub)
@@ -235,7 +245,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         "analyze": commands.cmd_analyze, "resume": commands.cmd_resume,
         "verify": commands.cmd_verify, "report": commands.cmd_report,
         "index": commands.cmd_index, "runs": commands.cmd_runs, "trend": commands.cmd_trend,
-        "compare": commands.cmd_compare,
+        "compare": commands.cmd_compare, "monitor": commands.cmd_monitor,
     }
     handlers.update(extra_handlers())
     try:

@@ -33,7 +33,7 @@ from station.record.runfolder import RunFolder, RunFolderError
 from station.record.trust import Mismatch, check_recorded_files, set_aside_temporary_files
 from station.engine.runner import Inputs, console_plan, execute, load_inputs
 from station.engine.ports import Console
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from simulators.faults import FaultPlan
@@ -197,14 +197,17 @@ def _refuse_changed_files(mismatches: list[Mismatch], run_path: Path, force: boo
 def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None,
                console: Console, clock: Clock | None = None,
                fault_plan: FaultPlan | None = None,
-               wall: Callable[[], float] = time.time) -> tuple[str, str, Path]:
+               wall: Callable[[], float] = time.time,
+               watch: Callable[..., Any] | None = None) -> tuple[str, str, Path]:
     """Continue the run in `path` at its first step not in the journal.
 
     Returns (end state, cause, run folder). Raises ResumeRefused (a ValueError) when the folder,
     its journal or manifest is unusable, or the station/recipe/UUT changed (unless `force`),
     and RunFolderBusy (a ValueError) when another process writes the folder.
     `clock` and `fault_plan` are for in-process callers (tests, soak); the command line leaves
-    them None: a simulated station then runs on simulated time.
+    them None: a simulated station then runs on simulated time. `watch(console, run, plan,
+    station, uut_serial, clock)`, when given, wraps the console for remote watchers and
+    notifications (station.cli.watching.watch_run).
     """
     run_path = Path(path).resolve()
     try:
@@ -214,13 +217,15 @@ def resume_run(path: Path | str, *, force: bool = False, seed: int | None = None
     run.take_writer_lock("resume")  # before anything is read: one writer per folder
     try:
         return _resume_locked(run, run_path, force=force, seed=seed, console=console,
-                              clock=clock, fault_plan=fault_plan)
+                              clock=clock, fault_plan=fault_plan, wall=wall, watch=watch)
     finally:
         run.release_writer_lock()
 
 
 def _resume_locked(run: RunFolder, run_path: Path, *, force: bool, seed: int | None,
-                   console: Any, clock: Clock | None, fault_plan: Any) -> tuple[str, str, Path]:
+                   console: Any, clock: Clock | None, fault_plan: Any,
+                   wall: Callable[[], float],
+                   watch: Callable[..., Any] | None) -> tuple[str, str, Path]:
     try:
         manifest = load_manifest(run_path)
         journal = run.journal
@@ -270,8 +275,10 @@ def _resume_locked(run: RunFolder, run_path: Path, *, force: bool, seed: int | N
     if hasattr(console, "clock"):
         console.clock = clock  # the screen shows the run's (simulated) time, labelled so
     remaining_s = sum(s for step_id, s in inputs.estimate.per_step if step_id not in completed)
+    watching = watch(console, run, inputs.plan, inputs.station, inputs.uut.serial, clock) \
+        if watch is not None else None
     with final_state_guard(run, manifest, clock):
-        with console as live:
+        with (watching.console if watching is not None else console) as live:
             for warning in journal.warnings:
                 live.log("warning", warning)
             for change in changes:
@@ -284,6 +291,8 @@ def _resume_locked(run: RunFolder, run_path: Path, *, force: bool, seed: int | N
             outcome = execute(inputs, run, clock, live, seed=run_seed, completed=completed,
                               fault_plan=fault_plan, manifest=manifest,
                               expected_identities=None if force else first_identities(run))
+        if watching is not None:
+            watching.finished(outcome.state, outcome.cause, str(run_path))
     close_manifest(run, manifest, outcome.state, outcome.cause, clock, wall=wall)
     return outcome.state, outcome.cause, run_path
 

@@ -29,6 +29,7 @@ from analysis.targets import Target, target_from_mapping
 from drivers.errors import ResourceStringError
 from drivers.interfaces import AxisLimits
 from sequences.facts import PlanCheck, StationFacts
+from station.inputs.notify_settings import NotifySettings, notify_problems, parse_notify
 from station.inputs.limits import StationLimits
 from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, is_number,
                                   load_yaml)
@@ -86,6 +87,7 @@ class StationConfig:
     simulation: Mapping[str, Any] | None = None
     problems_ignored: tuple[str, ...] = field(default=())
     history_url: str | None = None
+    notify: NotifySettings = field(default_factory=NotifySettings)
 
     @property
     def simulated(self) -> bool:
@@ -394,13 +396,13 @@ def load_station(path: Path | str | None = None) -> StationConfig:
                                    "start from station/data/example_lab_station.yaml")])
     for key in doc:
         if key not in ("station", "collimator", "instruments", "simulation", "lab", "notes",
-                       "history"):
+                       "history", "notify"):
             close = difflib.get_close_matches(str(key), ["station", "collimator", "instruments",
                                                          "simulation"], n=1)
             check.add(doc.key_ref(key), f"unknown top-level key '{key}'",
                       f"did you mean '{close[0]}'?" if close else
                       "allowed: station, collimator, instruments, simulation, lab, notes, "
-                      "history")
+                      "history, notify")
     name = check.text(doc, "station", "give the station a name, e.g. 'Bay 2 collimator bench'")
     collimator = check.mapping(doc, "collimator", "e.g. collimator: {focal_length_mm: 1500}")
     focal = (check.number(collimator, "focal_length_mm", "the collimator's effective focal "
@@ -432,13 +434,20 @@ def load_station(path: Path | str | None = None) -> StationConfig:
                        path.parent)
         axes = _axes(check, raw["stage"] if isinstance(raw["stage"], MarkedDict) else None)
     history_url = _history_url(check, doc)
+    notify_raw = doc.get("notify")
+    if notify_raw is not None:
+        for key, message in notify_problems(notify_raw):
+            where = (notify_raw.ref_of(key) if isinstance(notify_raw, MarkedDict) and key
+                     else doc.ref_of("notify"))
+            check.add(where, message, "see the README's 'Watching a run from elsewhere'")
     if check.problems or name is None or focal is None or limits is None:
         if not check.problems:
             check.add(doc.ref(), "the station file is incomplete")
         raise SourceError(check.problems)
     return StationConfig(name=name, path=path, text=text, collimator_focal_mm=focal,
                          instruments=entries, blackbody_limits=limits, slots=slots, axes=axes,
-                         simulation=simulation, history_url=history_url)
+                         simulation=simulation, history_url=history_url,
+                         notify=parse_notify(notify_raw))
 
 
 def _history_url(check: _Checker, doc: MarkedDict) -> str | None:

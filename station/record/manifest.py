@@ -32,6 +32,7 @@ from drivers.clock import Clock
 from station import __version__
 from station.record.atomic import TEMP_SUFFIX, sha256_file, write_json_atomic
 from station.record.events import utc_iso
+from station.record.live import is_live_view
 
 MANIFEST_NAME = "manifest.json"
 MANIFEST_FORMAT = "nightbench-manifest"
@@ -168,7 +169,8 @@ def checksum_files(run_path: Path) -> dict[str, dict[str, Any]]:
         if not path.is_file():
             continue
         rel = path.relative_to(run_path).as_posix()
-        if rel == MANIFEST_NAME or rel in NOT_RECORDED or path.name.endswith(TEMP_SUFFIX):
+        if (rel == MANIFEST_NAME or rel in NOT_RECORDED or path.name.endswith(TEMP_SUFFIX)
+                or is_live_view(rel)):  # the live view changes after the close: not record
             continue
         files[rel] = {"sha256": sha256_file(path), "bytes": path.stat().st_size}
     return files

@@ -25,6 +25,7 @@ from station.record.events import scan_events
 from station.record.frame_store import (ABANDONED, CAPTURE_FORMAT, META_SUFFIX, capture_files,
                                  partial_files, capture_stem)
 from station.record.journal import Journal, JournalError
+from station.record.live import is_live_view
 from station.record.manifest import (MANIFEST_NAME, NOT_RECORDED, RUNNING, ManifestError,
                                      load_manifest)
 from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
@@ -144,7 +145,7 @@ def _check_manifest(root: Path, report: VerifyReport) -> None:
     for file in sorted(p for p in root.rglob("*") if p.is_file()):
         rel = file.relative_to(root).as_posix()
         if rel == MANIFEST_NAME or rel in listed or rel in NOT_RECORDED \
-                or rel in DERIVED_AFTER_CLOSE:
+                or rel in DERIVED_AFTER_CLOSE or is_live_view(rel):
             continue
         if rel.startswith(REANALYSIS_PREFIX):  # written after the run by `nightbench analyze`
             version = rel.split("/")[1] if rel.count("/") > 1 else ""
