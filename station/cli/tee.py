@@ -13,7 +13,7 @@ __all__ = ["ConsoleLike", "ConsoleTee"]
 
 
 class ConsoleLike(Protocol):
-    def start(self, plan_len: int, estimate_s: float) -> None: ...
+    def start(self, plan_len: int, estimate_s: float, **kw: Any) -> None: ...
     def step(self, index: int, step_id: str, description: str = "", **kw: Any) -> None: ...
     def readings(self, values: Mapping[str, Any]) -> None: ...
     def log(self, level: str | int, text: str) -> None: ...
@@ -34,8 +34,8 @@ class ConsoleTee:
         for follower in self.followers:
             getattr(follower, name)(*args, **kwargs)
 
-    def start(self, plan_len: int, estimate_s: float) -> None:
-        self._each("start", plan_len, estimate_s)
+    def start(self, plan_len: int, estimate_s: float, **kw: Any) -> None:
+        self._each("start", plan_len, estimate_s, **kw)
 
     def step(self, index: int, step_id: str, description: str = "", **kw: Any) -> None:
         self._each("step", index, step_id, description, **kw)

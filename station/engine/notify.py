@@ -102,7 +102,7 @@ class NotifyFollower:
     def __init__(self, notifier: Notifier) -> None:
         self.notifier = notifier
 
-    def start(self, plan_len: int, estimate_s: float) -> None:
+    def start(self, plan_len: int, estimate_s: float, **kw: Any) -> None:
         pass
 
     def step(self, index: int, step_id: str, description: str = "", **kw: Any) -> None:

@@ -95,7 +95,7 @@ def progress_of(status: dict[str, Any]) -> dict[str, Any]:
     elif done is not None and total > 0:
         frac = float(done) / total
     else:
-        frac = index / steps if steps else 0.0
+        frac = max(index - 1, 0) / steps if steps else 0.0
     frac = min(max(frac, 0.0), 1.0)
     start, now = status.get("clock_start"), status.get("clock_now")
     elapsed = max(float(now) - float(start), 0.0) if start is not None and now is not None else 0.0

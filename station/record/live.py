@@ -19,7 +19,7 @@ import json
 import os
 import time
 from collections import deque
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -108,6 +108,7 @@ class LiveStatusWriter:
         self.step_sources = dict(step_sources or {})
         self.on_request = on_request
         self._last_write = 0.0
+        self._per_step: list[float] = []
         self._lines: deque[dict[str, Any]] = deque(maxlen=recent)
         self.status: dict[str, Any] = {
             "pid": os.getpid(), "recipe": recipe, "uut_serial": uut_serial, "state": "idle",
@@ -119,16 +120,21 @@ class LiveStatusWriter:
         }
 
     # -- the console API --------------------------------------------------------------------------
-    def start(self, plan_len: int, estimate_s: float) -> None:
+    def start(self, plan_len: int, estimate_s: float, *,
+              per_step_s: Sequence[float] | None = None, **_: Any) -> None:
+        """`per_step_s`: the plan's estimate of each step, so progress follows the plan's time
+        rather than its step count."""
+        self._per_step = [float(s) for s in per_step_s] if per_step_s else []
         self.status.update(steps_total=int(plan_len), estimate_s=float(estimate_s),
                            clock_start=self.clock.now())
         self._write(force=True)
 
-    def step(self, index: int, step_id: str, description: str = "", *,
-             estimate_done_s: float | None = None) -> None:
+    def step(self, index: int, step_id: str, description: str = "", **_: Any) -> None:
+        """Step `index` (1-based) starts."""
+        done = sum(self._per_step[:max(int(index) - 1, 0)]) if self._per_step else None
         self.status.update(step_index=int(index), step_id=step_id, description=description,
                            step_source=self.step_sources.get(step_id, ""),
-                           estimate_done_s=estimate_done_s)
+                           estimate_done_s=done)
         self._write(force=True)
 
     def readings(self, values: Mapping[str, Any]) -> None:

@@ -34,7 +34,7 @@
     var st = msg.status || {}, pr = msg.progress || {};
     text("state", msg.state || st.state || "-");
     text("cause", st.cause ? "(" + st.cause + ")" : "");
-    text("step", st.steps_total ? (st.step_index + 1) + " of " + st.steps_total + "  " + st.step_id : "-");
+    text("step", st.steps_total ? st.step_index + " of " + st.steps_total + "  " + st.step_id : "-");
     text("step-source", st.step_source || "");
     text("description", st.description || "");
     var pct = Math.round(100 * (pr.fraction || 0));
