@@ -95,7 +95,7 @@ def test_stage_envelope_covers_every_move_and_park(tmp_path: Path) -> None:
     inputs = load_inputs("distortion-scan", station_path=station, uut_path=DEMO_UUT,
                          overrides={})
     env = plan_envelope(inputs.plan.steps, inputs.station)
-    moves = [s.params["position"] for s in inputs.plan.steps if s.kind == "move"]
+    moves = [s.position for s in inputs.plan.steps if s.kind == "move"]
     for axis, (lo, hi, unit) in env.axes.items():
         values = [m[axis] for m in moves if axis in m] + [0.0]  # park of both axes is 0
         assert (lo, hi, unit) == (min(values), max(values), "deg")
