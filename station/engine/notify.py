@@ -4,7 +4,7 @@ The station file may name, under `notify:` (station.inputs.notify_settings), a c
 to, and on which occasions::
 
     notify:
-      on: [end, fault, operator]       # default: all three
+      when: [end, fault, operator]     # default: all three
       command: ["/usr/local/bin/page-oncall", "--bench", "bay2"]   # argv list; no shell
       url: http://127.0.0.1:9000/bench-events
       timeout_s: 5

@@ -110,7 +110,7 @@ def test_unattended_start_is_recorded_and_an_unreachable_bench_exits_4(
                  "--runs", str(runs), "--yes", "--plain"])
     out = capsys.readouterr().out
     assert code == exitcodes.INSTRUMENT, out  # as `bench` exits when an instrument is silent
-    (folder,) = list(runs.iterdir())
+    (folder,) = [p for p in runs.iterdir() if p.is_dir()]  # beside it: the history file
     manifest = json.loads((folder / "manifest.json").read_text())
     assert manifest["start_confirmation"].startswith("--yes: unattended start")
     assert manifest["state"] == "faulted"
