@@ -25,7 +25,7 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import ndimage, optimize, special
+from scipy import ndimage, special
 
 __all__ = [
     "Background",
@@ -48,7 +48,7 @@ class SpotFlag(enum.Flag):
     TRUNCATED = enum.auto()  # the window crosses the frame edge
     MERGED = enum.auto()  # two peaks in one component, or a component too large for one spot
     NOT_CONVERGED = enum.auto()  # the centre kept moving or the fit failed
-    BAD_PIXEL = enum.auto()  # a repaired hot/dead pixel lies in the window (centroid may be biased)
+    BAD_PIXEL = enum.auto()  # a repaired hot/dead pixel in the window (centre of mass) or core (fit)
 
 
 @dataclass(frozen=True)
@@ -211,102 +211,167 @@ def _centroid_com_batch(
     return x, y, sx, sy, flux, snr, converged & pos, truncated
 
 
-def _gauss_model(p: np.ndarray, xs: np.ndarray, ys: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Pixel-integrated separable Gaussian: returns model, the x factor pieces and y pieces."""
-    flux, xc, yc, sx, sy, b = p
-    ax = (xs + 0.5 - xc) / sx
-    bx = (xs - 0.5 - xc) / sx
-    ay = (ys + 0.5 - yc) / sy
-    by = (ys - 0.5 - yc) / sy
-    ex = special.ndtr(ax) - special.ndtr(bx)
-    ey = special.ndtr(ay) - special.ndtr(by)
-    return flux * np.outer(ey, ex) + b, (ax, bx, ex), (ay, by, ey)
-
-
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
 
-def _gauss_jac(p: np.ndarray, xs: np.ndarray, ys: np.ndarray) -> np.ndarray:
-    """Analytic Jacobian of the pixel-integrated Gaussian (columns: flux, x, y, sx, sy, b)."""
-    flux, xc, yc, sx, sy, _ = p
-    _, (ax, bx, ex), (ay, by, ey) = _gauss_model(p, xs, ys)
-    pa_x, pb_x = np.exp(-0.5 * ax * ax) * _INV_SQRT_2PI, np.exp(-0.5 * bx * bx) * _INV_SQRT_2PI
-    pa_y, pb_y = np.exp(-0.5 * ay * ay) * _INV_SQRT_2PI, np.exp(-0.5 * by * by) * _INV_SQRT_2PI
-    dex_dxc = -(pa_x - pb_x) / sx
-    dex_dsx = -(ax * pa_x - bx * pb_x) / sx
-    dey_dyc = -(pa_y - pb_y) / sy
-    dey_dsy = -(ay * pa_y - by * pb_y) / sy
-    cols = [
-        np.outer(ey, ex),
-        flux * np.outer(ey, dex_dxc),
-        flux * np.outer(dey_dyc, ex),
-        flux * np.outer(ey, dex_dsx),
-        flux * np.outer(dey_dsy, ex),
-        np.ones((ys.size, xs.size)),
-    ]
-    return np.stack([c.ravel() for c in cols], axis=1)
+def _edge_pieces(centre: np.ndarray, sigma: np.ndarray, start: np.ndarray, size: int) -> tuple[np.ndarray, ...]:
+    """Pixel fractions of 1-D Gaussians (N, size) and their derivatives by centre and sigma.
+
+    Pixel k of spot n covers [start_n + k - 0.5, start_n + k + 0.5]; fraction = Phi(z_k+1) - Phi(z_k).
+    """
+    edges = start[:, None] + np.arange(size + 1)[None, :] - 0.5
+    z = (edges - centre[:, None]) / sigma[:, None]
+    cdf = special.ndtr(z)
+    pdf = np.exp(-0.5 * z * z) * _INV_SQRT_2PI
+    frac = np.diff(cdf, axis=1)
+    d_centre = -np.diff(pdf, axis=1) / sigma[:, None]
+    d_sigma = -np.diff(z * pdf, axis=1) / sigma[:, None]
+    return frac, d_centre, d_sigma
 
 
-def _centroid_gauss(
-    resid: np.ndarray, noise: float, x: float, y: float, window_px: int, gain: float | None,
-) -> tuple[float, float, float, float, float, float, SpotFlag, float]:
-    """Least-squares pixel-integrated Gaussian fit (Winick 1986) on a background-subtracted image.
+def _gauss_fit_batch(
+    resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray, window_px: int,
+    gain: float | None, s0: np.ndarray | None = None, mask: np.ndarray | None = None,
+    max_iter: int = 40,
+) -> tuple[np.ndarray, ...]:
+    """Pixel-integrated Gaussian fits of many spots at once (Levenberg-Marquardt, per spot).
 
-    Returns x, y, sigma_x, sigma_y, flux, snr, flags and the fitted spot sigma (px).
+    Model per window: flux * ey (x) ex + b, ex/ey the pixel-integrated 1-D Gaussians (erf
+    differences), six parameters (flux, x, y, sx, sy, b): the maximum-likelihood estimate in
+    Gaussian noise (Winick 1986). mask: pixels to leave out (saturated or repaired), True = out.
+    Windows are centred on round(xs, ys); pixels outside the frame are left out and flagged.
+    Returns x, y, sigma_x, sigma_y, flux, snr, converged, truncated, fitted spot sigma (arrays).
     """
     h_img, w_img = resid.shape
-    half = window_px // 2
-    xi, yi = int(round(x)), int(round(y))
-    x0, x1 = max(0, xi - half), min(w_img, xi + half + 1)
-    y0, y1 = max(0, yi - half), min(h_img, yi + half + 1)
-    flags = SpotFlag.NONE
-    if x0 > xi - half or y0 > yi - half or x1 < xi + half + 1 or y1 < yi + half + 1:
-        flags |= SpotFlag.TRUNCATED
-    sub = resid[y0:y1, x0:x1]
-    xs = np.arange(x0, x1, dtype=float)
-    ys = np.arange(y0, y1, dtype=float)
-    total = float(sub.sum())
-    pos = np.clip(sub, 0, None)
-    if pos.sum() > 0:
-        mx = float(pos.sum(axis=0) @ xs) / float(pos.sum())
-        my = float(pos.sum(axis=1) @ ys) / float(pos.sum())
-        s0 = math.sqrt(max(0.25, float(pos.sum(axis=0) @ (xs - mx) ** 2) / float(pos.sum())))
-    else:
-        mx, my, s0 = x, y, 1.0
-    s0 = min(s0, window_px / 3.0)
-    p0 = np.array([max(total, 1e-9), mx, my, s0, s0, 0.0])
-    lo = np.array([0.0, x0 - 0.5, y0 - 0.5, 0.15, 0.15, -np.inf])
-    hi = np.array([np.inf, x1 - 0.5, y1 - 0.5, float(window_px), float(window_px), np.inf])
-    p0 = np.clip(p0, lo + 1e-9, hi - 1e-9)
-    data = sub.ravel()
+    n = xs.size
+    m = int(window_px) | 1
+    half = m // 2
+    x0 = np.rint(xs).astype(int) - half
+    y0 = np.rint(ys).astype(int) - half
+    ar = np.arange(m)
+    cols = x0[:, None] + ar[None, :]
+    rows = y0[:, None] + ar[None, :]
+    inside_c = (cols >= 0) & (cols < w_img)
+    inside_r = (rows >= 0) & (rows < h_img)
+    data = resid[np.clip(rows, 0, h_img - 1)[:, :, None], np.clip(cols, 0, w_img - 1)[:, None, :]]
+    use = inside_r[:, :, None] & inside_c[:, None, :]
+    truncated = ~use.all(axis=(1, 2))
+    if mask is not None:
+        use &= ~mask[np.clip(rows, 0, h_img - 1)[:, :, None], np.clip(cols, 0, w_img - 1)[:, None, :]]
+    wgt = use.astype(float)
+    data = np.where(use, data, 0.0)
+    # Start: background from the window's border, moments of the positive excess.
+    border = np.concatenate([data[:, 0, :], data[:, -1, :], data[:, :, 0], data[:, :, -1]], axis=1)
+    bw = np.concatenate([wgt[:, 0, :], wgt[:, -1, :], wgt[:, :, 0], wgt[:, :, -1]], axis=1)
+    b = np.where(bw.sum(1) > 0, (border * bw).sum(1) / np.maximum(bw.sum(1), 1), 0.0)
+    b = np.clip(b, -3 * noise, 3 * noise)
+    pos = np.clip(data - b[:, None, None], 0, None) * wgt
+    tot = np.maximum(pos.sum(axis=(1, 2)), 1e-12)
+    px = (pos.sum(axis=1) * cols).sum(1) / tot
+    py = (pos.sum(axis=2) * rows).sum(1) / tot
+    if s0 is None:
+        s0 = np.sqrt(np.maximum((pos.sum(axis=1) * (cols - px[:, None]) ** 2).sum(1) / tot - 1 / 12, 0.09))
+    s0 = np.clip(np.broadcast_to(np.asarray(s0, float), (n,)), 0.3, m / 3.0)
+    p = np.column_stack([np.maximum(((data - b[:, None, None]) * wgt).sum(axis=(1, 2)), 1e-9),
+                         np.clip(px, x0 - 0.5, x0 + m - 0.5), np.clip(py, y0 - 0.5, y0 + m - 0.5),
+                         s0, s0, b])
+    lo = np.column_stack([np.full(n, 1e-12), x0 - 0.5, y0 - 0.5, np.full(n, 0.15), np.full(n, 0.15), np.full(n, -np.inf)])
+    hi = np.column_stack([np.full(n, np.inf), x0 + m - 0.5, y0 + m - 0.5, np.full(n, float(m)), np.full(n, float(m)), np.full(n, np.inf)])
+    xf, yf = x0.astype(float), y0.astype(float)
 
-    def resid(p: np.ndarray) -> np.ndarray:
-        return _gauss_model(p, xs, ys)[0].ravel() - data
-
-    try:
-        res = optimize.least_squares(
-            resid, p0, jac=lambda p: _gauss_jac(p, xs, ys), bounds=(lo, hi), method="trf",
-            x_scale="jac", xtol=1e-8, ftol=1e-10, max_nfev=100,
-        )
-        p = res.x
-        ok = res.success
-    except (ValueError, np.linalg.LinAlgError):
-        p, ok = p0, False
-    if not ok:
-        flags |= SpotFlag.NOT_CONVERGED
-    model = _gauss_model(p, xs, ys)[0]
-    var = np.full(sub.shape, noise * noise)
+    wflat = wgt.reshape(n, m * m)
+    model, J = _SubBatch(p, xf, yf, m).model_and_jac()
+    r = (data - model).reshape(n, m * m) * wflat
+    cost = (r * r).sum(1)
+    lam = np.full(n, 1e-3)
+    active = np.ones(n, dtype=bool)
+    converged = np.zeros(n, dtype=bool)
+    eye = np.eye(6)
+    for _ in range(max_iter):
+        if not active.any():
+            break
+        idx = np.nonzero(active)[0]
+        Ja = J[idx] * wflat[idx, :, None]
+        A = np.einsum("npi,npj->nij", Ja, Ja)
+        g = np.einsum("npi,np->ni", Ja, r[idx])
+        diag = np.einsum("nii->ni", A)
+        A_d = A + lam[idx, None, None] * diag[:, :, None] * eye
+        try:
+            step = np.linalg.solve(A_d, g[:, :, None])[:, :, 0]
+        except np.linalg.LinAlgError:
+            step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A_d, g)])
+        trial = np.clip(p[idx] + step, lo[idx] + 1e-9, hi[idx] - 1e-9)
+        # Evaluate the trial only for the active spots (a sub-batch).
+        sub = _SubBatch(trial, xf[idx], yf[idx], m)
+        t_model = sub.model()
+        t_r = (data[idx] - t_model).reshape(idx.size, m * m) * wflat[idx]
+        t_cost = (t_r * t_r).sum(1)
+        better = t_cost <= cost[idx]
+        ok = idx[better]
+        moved = np.abs(trial[better] - p[ok])
+        p[ok] = trial[better]
+        cost[ok] = t_cost[better]
+        lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
+        lam[idx[~better]] *= 10.0
+        small = (moved[:, 1] < 1e-5) & (moved[:, 2] < 1e-5) & (moved[:, 0] < 1e-6 * p[ok, 0] + 1e-9)
+        done = ok[small]
+        converged[done] = True
+        stuck = idx[~better][lam[idx[~better]] > 1e6]
+        converged[stuck] = True  # no step lowers the cost: at the minimum to rounding
+        active[done] = False
+        active[stuck] = False
+        if ok.size:
+            mdl, Jn = _SubBatch(p[ok], xf[ok], yf[ok], m).model_and_jac()
+            J[ok] = Jn
+            r[ok] = (data[ok] - mdl).reshape(ok.size, m * m) * wflat[ok]
+    model, J = _SubBatch(p, xf, yf, m).model_and_jac()
+    var = np.full((n, m * m), noise * noise)
     if gain:
-        var = var + np.clip(model - p[5], 0, None) / gain
-    jac = _gauss_jac(p, xs, ys) / np.sqrt(var.ravel())[:, None]
-    try:
-        cov = np.linalg.inv(jac.T @ jac)
-        sx, sy, sf = math.sqrt(cov[1, 1]), math.sqrt(cov[2, 2]), math.sqrt(cov[0, 0])
-    except np.linalg.LinAlgError:
-        sx = sy = sf = float("inf")
-        flags |= SpotFlag.NOT_CONVERGED
-    snr = p[0] / sf if sf > 0 else 0.0
-    return float(p[1]), float(p[2]), sx, sy, float(p[0]), snr, flags, float(math.sqrt(p[3] * p[4]))
+        var = var + np.clip((model - p[:, 5][:, None, None]).reshape(n, m * m), 0, None) / gain
+    Jw = J * (wflat / np.sqrt(var))[:, :, None]
+    A = np.einsum("npi,npj->nij", Jw, Jw)
+    good = np.linalg.cond(A) < 1e14
+    cov = np.full((n, 6, 6), np.nan)
+    if good.any():
+        cov[good] = np.linalg.inv(A[good])
+    sx = np.sqrt(np.abs(cov[:, 1, 1]))
+    sy = np.sqrt(np.abs(cov[:, 2, 2]))
+    sf = np.sqrt(np.abs(cov[:, 0, 0]))
+    snr = np.where(sf > 0, p[:, 0] / sf, 0.0)
+    at_edge = ((p[:, 1] <= lo[:, 1] + 1e-6) | (p[:, 1] >= hi[:, 1] - 1e-6)
+               | (p[:, 2] <= lo[:, 2] + 1e-6) | (p[:, 2] >= hi[:, 2] - 1e-6))
+    ok_all = converged & good & ~at_edge & np.isfinite(sx) & np.isfinite(sy)
+    sx = np.where(np.isfinite(sx), sx, np.inf)
+    sy = np.where(np.isfinite(sy), sy, np.inf)
+    return p[:, 1], p[:, 2], sx, sy, p[:, 0], snr, ok_all, truncated, np.sqrt(p[:, 3] * p[:, 4])
+
+
+class _SubBatch:
+    """Model (and Jacobian) of the pixel-integrated Gaussian for a subset of the spots."""
+
+    def __init__(self, p: np.ndarray, xf: np.ndarray, yf: np.ndarray, m: int) -> None:
+        self.p, self.xf, self.yf, self.m = p, xf, yf, m
+
+    def model(self) -> np.ndarray:
+        p = self.p
+        ex = _edge_pieces(p[:, 1], p[:, 3], self.xf, self.m)[0]
+        ey = _edge_pieces(p[:, 2], p[:, 4], self.yf, self.m)[0]
+        return p[:, 0][:, None, None] * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
+
+    def model_and_jac(self) -> tuple[np.ndarray, np.ndarray]:
+        p, m = self.p, self.m
+        n = len(p)
+        ex, dex_x, dex_s = _edge_pieces(p[:, 1], p[:, 3], self.xf, m)
+        ey, dey_y, dey_s = _edge_pieces(p[:, 2], p[:, 4], self.yf, m)
+        f = p[:, 0][:, None, None]
+        model = f * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
+        J = np.stack([ey[:, :, None] * ex[:, None, :],
+                      f * ey[:, :, None] * dex_x[:, None, :],
+                      f * dey_y[:, :, None] * ex[:, None, :],
+                      f * ey[:, :, None] * dex_s[:, None, :],
+                      f * dey_s[:, :, None] * ex[:, None, :],
+                      np.ones((n, m, m))], axis=-1).reshape(n, m * m, 6)
+        return model, J
 
 
 def _measure_many(
@@ -322,7 +387,16 @@ def _measure_many(
             for i in range(len(xs))
         ]
     elif method == "gauss":
-        rows = [_centroid_gauss(resid, noise, float(x), float(y), window_px, gain)[:7] for x, y in zip(xs, ys)]
+        mask = ~np.isfinite(raw)
+        if saturation is not None:
+            mask |= raw >= saturation
+        cx, cy, sx, sy, flux, snr, conv, trunc, _ = _gauss_fit_batch(
+            resid, noise, xs, ys, window_px, gain, mask=mask if mask.any() else None)
+        rows = [
+            (cx[i], cy[i], sx[i], sy[i], flux[i], snr[i],
+             (SpotFlag.NONE if conv[i] else SpotFlag.NOT_CONVERGED) | (SpotFlag.TRUNCATED if trunc[i] else SpotFlag.NONE))
+            for i in range(len(xs))
+        ]
     else:
         raise ValueError(f"unknown centroid method {method!r}: use 'com' or 'gauss'")
     h, w = raw.shape
@@ -336,7 +410,10 @@ def _measure_many(
         win = raw[sl]
         if saturation is not None and float(win.max()) >= saturation:
             flags |= SpotFlag.SATURATED
-        if np.isneginf(win).any():
+        # A repaired pixel biases a centre of mass anywhere in its window; the Gaussian fit leaves
+        # it out, which only matters when it was the spot's core (within 1 px of the centre).
+        core = raw[max(0, yi - 1):yi + 2, max(0, xi - 1):xi + 2] if method == "gauss" else win
+        if np.isneginf(core).any():
             flags |= SpotFlag.BAD_PIXEL
         spots.append(Spot(x=float(x), y=float(y), sigma_x=float(s_x), sigma_y=float(s_y), flux=float(f),
                           peak=peak, snr=float(q), flags=flags))
@@ -347,8 +424,8 @@ def detect_spots(
     image: np.ndarray,
     *,
     threshold_sigma: float = 5.0,
-    window_px: int = 7,
-    method: str = "com",
+    window_px: int | None = None,
+    method: str = "gauss",
     saturation: float | None = None,
     background: Background | None = None,
     smooth_px: float = 1.0,
@@ -363,7 +440,9 @@ def detect_spots(
     threshold_sigma times its own noise (white-noise propagation through the kernel), labels
     8-connected components, and centroids each from its brightest smoothed pixel with
     method "com" (iterated windowed centre of mass) or "gauss" (pixel-integrated Gaussian fit).
-    window_px should span about three FWHM of the spot. gain (DN per electron), when given,
+    The default "gauss" is the most precise (it reaches the Cramer-Rao bound). window_px should
+    span about three FWHM of the spot; None sizes it from the spots themselves
+    (spot_window_px). gain (DN per electron), when given,
     adds shot noise to the per-spot variance. A component with two separated peaks, or larger
     than max_area_px (default: 4 windows), is flagged MERGED. Hot and dead pixels are repaired
     first (repair_isolated_pixels) unless repair_bad_pixels is False; saturation is judged on
@@ -389,6 +468,8 @@ def detect_spots(
         return []
     slices = ndimage.find_objects(labels)
     areas = np.bincount(labels.ravel(), minlength=n + 1)[1:]
+    if window_px is None:
+        window_px = spot_window_px(resid, slices, sm)
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
     seeds: list[tuple[int, int, int]] = []  # (label, row, col) of each component's brightest pixel
@@ -410,6 +491,25 @@ def detect_spots(
             spot = replace(spot, flags=spot.flags | SpotFlag.MERGED)
         out.append(spot)
     return out
+
+
+def spot_window_px(resid: np.ndarray, slices: list, sm: np.ndarray, probe: int = 30) -> int:
+    """Odd window side of about +/-3.5 spot sigmas (at least 7 px), from Gaussian fits of the
+    brightest components (a probe window of 4 x their size, at most 41 px)."""
+    comps = [sl for sl in slices if sl is not None]
+    if not comps:
+        return 7
+    peaks = np.array([sm[sl].max() for sl in comps])
+    best = [comps[i] for i in np.argsort(-peaks)[:probe]]
+    size = max(max(sl[0].stop - sl[0].start, sl[1].stop - sl[1].start) for sl in best)
+    m = int(min(41, max(9, 2 * size + 1))) | 1
+    ys = np.array([0.5 * (sl[0].start + sl[0].stop - 1) for sl in best])
+    xs = np.array([0.5 * (sl[1].start + sl[1].stop - 1) for sl in best])
+    noise = 1.0
+    fit = _gauss_fit_batch(resid, noise, xs, ys, m, None)
+    ok = fit[6]
+    s = float(np.median(fit[8][ok])) if ok.any() else 1.0
+    return int(max(7, 2 * math.ceil(3.5 * s) + 1))
 
 
 def repair_isolated_pixels(
@@ -531,7 +631,7 @@ def centroid_at(
     window_px: int = 7,
     *,
     search_px: int | None = None,
-    method: str = "com",
+    method: str = "gauss",
     saturation: float | None = None,
     background: Background | None = None,
     gain: float | None = None,

@@ -128,7 +128,7 @@ def test_com_reported_sigma_matches_scatter():
     for _ in range(200):
         dx, dy = rng.uniform(-0.5, 0.5, 2)
         img = gaussian_spot((21, 21), 10 + dx, 10 + dy, flux, s) + rng.normal(0, sigma_n, (21, 21))
-        sp = centroid_at(img, 10, 10, 7, background=_known_bg(sigma_n))
+        sp = centroid_at(img, 10, 10, 7, background=_known_bg(sigma_n), method="com")
         errs.append(sp.x - 10 - dx)
         rep.append(sp.sigma_x)
     rms = float(np.sqrt(np.mean(np.square(errs))))
