@@ -203,9 +203,12 @@ def test_spec_verdicts_and_unknown_limit():
     dirs = grid_directions(NOMINAL)
     res = analyze_grid(noisy(truth, dirs), dirs, NOMINAL, sigma_px=NOISE,
                        spec={"max_distortion_percent": 1.0, "max_boresight_offset_px": 2.0})
-    v = {x.name: x for x in res.verdicts}
-    # k1 = -0.3 at the outermost grid point r ~ 0.2: about -1.3 % > 1 % limit (fails).
-    assert not v["max_distortion_percent"].passed
-    assert v["max_boresight_offset_px"].passed
+    v = {x.key: x for x in res.verdicts}
+    # k1 = -0.3 at the outermost grid point r ~ 0.2: about -1.3 % > 1 % limit (fails, far
+    # beyond 2 sigma: guarded acceptance of analysis.verdicts).
+    assert v["max_distortion_percent"].status == "FAIL"
+    assert v["max_distortion_percent"].sigma > 0
+    assert v["max_boresight_offset_px"].status == "PASS"
+    assert res.passed is False
     with pytest.raises(ValueError, match="unknown distortion spec"):
         analyze_grid(noisy(truth, dirs), dirs, NOMINAL, spec={"max_wobble": 1.0})
