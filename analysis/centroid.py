@@ -292,8 +292,8 @@ def _gauss_fit_batch(
             break
         idx = np.nonzero(active)[0]
         Ja = J[idx] * wflat[idx, :, None]
-        A = np.einsum("npi,npj->nij", Ja, Ja)
-        g = np.einsum("npi,np->ni", Ja, r[idx])
+        A = np.matmul(Ja.transpose(0, 2, 1), Ja)
+        g = np.matmul(Ja.transpose(0, 2, 1), r[idx][:, :, None])[:, :, 0]
         diag = np.einsum("nii->ni", A)
         A_d = A + lam[idx, None, None] * diag[:, :, None] * eye
         try:
@@ -313,7 +313,9 @@ def _gauss_fit_batch(
         cost[ok] = t_cost[better]
         lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
         lam[idx[~better]] *= 10.0
-        small = (moved[:, 1] < 1e-5) & (moved[:, 2] < 1e-5) & (moved[:, 0] < 1e-6 * p[ok, 0] + 1e-9)
+        # Converged when the centre moves less than 1e-4 px (a small fraction of any centroid
+        # uncertainty) and the flux by less than 1e-4 of itself.
+        small = (moved[:, 1] < 1e-4) & (moved[:, 2] < 1e-4) & (moved[:, 0] < 1e-4 * p[ok, 0] + 1e-9)
         done = ok[small]
         converged[done] = True
         stuck = idx[~better][lam[idx[~better]] > 1e6]
@@ -329,11 +331,17 @@ def _gauss_fit_batch(
     if gain:
         var = var + np.clip((model - p[:, 5][:, None, None]).reshape(n, m * m), 0, None) / gain
     Jw = J * (wflat / np.sqrt(var))[:, :, None]
-    A = np.einsum("npi,npj->nij", Jw, Jw)
-    good = np.linalg.cond(A) < 1e14
+    A = np.matmul(Jw.transpose(0, 2, 1), Jw)
     cov = np.full((n, 6, 6), np.nan)
-    if good.any():
-        cov[good] = np.linalg.inv(A[good])
+    try:
+        cov[:] = np.linalg.inv(A)
+    except np.linalg.LinAlgError:
+        for i in range(n):
+            try:
+                cov[i] = np.linalg.inv(A[i])
+            except np.linalg.LinAlgError:
+                pass
+    good = np.all(np.diagonal(cov, axis1=1, axis2=2) > 0, axis=1)
     sx = np.sqrt(np.abs(cov[:, 1, 1]))
     sy = np.sqrt(np.abs(cov[:, 2, 2]))
     sf = np.sqrt(np.abs(cov[:, 0, 0]))
@@ -365,13 +373,16 @@ class _SubBatch:
         ey, dey_y, dey_s = _edge_pieces(p[:, 2], p[:, 4], self.yf, m)
         f = p[:, 0][:, None, None]
         model = f * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
-        J = np.stack([ey[:, :, None] * ex[:, None, :],
-                      f * ey[:, :, None] * dex_x[:, None, :],
-                      f * dey_y[:, :, None] * ex[:, None, :],
-                      f * ey[:, :, None] * dex_s[:, None, :],
-                      f * dey_s[:, :, None] * ex[:, None, :],
-                      np.ones((n, m, m))], axis=-1).reshape(n, m * m, 6)
-        return model, J
+        J = np.empty((n, m, m, 6))
+        fey = p[:, 0][:, None, None] * ey[:, :, None]
+        fex = p[:, 0][:, None, None] * ex[:, None, :]
+        np.multiply(ey[:, :, None], ex[:, None, :], out=J[..., 0])
+        np.multiply(fey, dex_x[:, None, :], out=J[..., 1])
+        np.multiply(dey_y[:, :, None], fex, out=J[..., 2])
+        np.multiply(fey, dex_s[:, None, :], out=J[..., 3])
+        np.multiply(dey_s[:, :, None], fex, out=J[..., 4])
+        J[..., 5] = 1.0
+        return model, J.reshape(n, m * m, 6)
 
 
 def _measure_many(
@@ -379,44 +390,50 @@ def _measure_many(
     window_px: int, method: str, saturation: float | None, gain: float | None,
 ) -> list[Spot]:
     """Centroid every seed (xs, ys) on the background-subtracted image; attach peak and flags."""
+    return _spots_from(raw, resid, window_px, method, saturation,
+                       _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain))
+
+
+def _centroids(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
+               window_px: int, method: str, saturation: float | None, gain: float | None) -> tuple[np.ndarray, ...]:
+    """x, y, sigma_x, sigma_y, flux, snr, converged, truncated, spot sigma (NaN for com)."""
     if method == "com":
-        cx, cy, sx, sy, flux, snr, conv, trunc = _centroid_com_batch(resid, noise, xs, ys, window_px, gain)
-        rows = [
-            (cx[i], cy[i], sx[i], sy[i], flux[i], snr[i],
-             (SpotFlag.NONE if conv[i] else SpotFlag.NOT_CONVERGED) | (SpotFlag.TRUNCATED if trunc[i] else SpotFlag.NONE))
-            for i in range(len(xs))
-        ]
-    elif method == "gauss":
+        out = _centroid_com_batch(resid, noise, xs, ys, window_px, gain)
+        return (*out, np.full(xs.size, np.nan))
+    if method == "gauss":
         mask = ~np.isfinite(raw)
         if saturation is not None:
             mask |= raw >= saturation
-        cx, cy, sx, sy, flux, snr, conv, trunc, _ = _gauss_fit_batch(
-            resid, noise, xs, ys, window_px, gain, mask=mask if mask.any() else None)
-        rows = [
-            (cx[i], cy[i], sx[i], sy[i], flux[i], snr[i],
-             (SpotFlag.NONE if conv[i] else SpotFlag.NOT_CONVERGED) | (SpotFlag.TRUNCATED if trunc[i] else SpotFlag.NONE))
-            for i in range(len(xs))
-        ]
-    else:
-        raise ValueError(f"unknown centroid method {method!r}: use 'com' or 'gauss'")
+        return _gauss_fit_batch(resid, noise, xs, ys, window_px, gain, mask=mask if mask.any() else None)
+    raise ValueError(f"unknown centroid method {method!r}: use 'com' or 'gauss'")
+
+
+def _spots_from(raw: np.ndarray, resid: np.ndarray, window_px: int, method: str, saturation: float | None,
+                fit: tuple[np.ndarray, ...]) -> list[Spot]:
+    cx, cy, sx, sy, flux, snr, conv, trunc = fit[:8]
     h, w = raw.shape
     half = window_px // 2
+    xi = np.rint(np.clip(cx, 0.0, w - 1.0)).astype(int)
+    yi = np.rint(np.clip(cy, 0.0, h - 1.0)).astype(int)
+    ar = np.arange(-half, half + 1)
+    rows = np.clip(yi[:, None] + ar[None, :], 0, h - 1)
+    cols = np.clip(xi[:, None] + ar[None, :], 0, w - 1)
+    peak = resid[rows[:, :, None], cols[:, None, :]].max(axis=(1, 2))
+    raw_win = raw[rows[:, :, None], cols[:, None, :]]
+    saturated = (raw_win.max(axis=(1, 2)) >= saturation) if saturation is not None else np.zeros(cx.size, bool)
+    # A repaired pixel biases a centre of mass anywhere in its window; the Gaussian fit leaves
+    # it out, which only matters when it was the spot's core (within 1 px of the centre).
+    if method == "gauss":
+        core = half - 1, half + 2
+        bad = np.isneginf(raw_win[:, core[0]:core[1], core[0]:core[1]]).any(axis=(1, 2))
+    else:
+        bad = np.isneginf(raw_win).any(axis=(1, 2))
     spots = []
-    for x, y, s_x, s_y, f, q, flags in rows:
-        xi = int(round(min(max(x, 0.0), w - 1.0)))
-        yi = int(round(min(max(y, 0.0), h - 1.0)))
-        sl = (slice(max(0, yi - half), yi + half + 1), slice(max(0, xi - half), xi + half + 1))
-        peak = float(resid[sl].max())
-        win = raw[sl]
-        if saturation is not None and float(win.max()) >= saturation:
-            flags |= SpotFlag.SATURATED
-        # A repaired pixel biases a centre of mass anywhere in its window; the Gaussian fit leaves
-        # it out, which only matters when it was the spot's core (within 1 px of the centre).
-        core = raw[max(0, yi - 1):yi + 2, max(0, xi - 1):xi + 2] if method == "gauss" else win
-        if np.isneginf(core).any():
-            flags |= SpotFlag.BAD_PIXEL
-        spots.append(Spot(x=float(x), y=float(y), sigma_x=float(s_x), sigma_y=float(s_y), flux=float(f),
-                          peak=peak, snr=float(q), flags=flags))
+    none, nc, tr, sat, bp = SpotFlag.NONE, SpotFlag.NOT_CONVERGED, SpotFlag.TRUNCATED, SpotFlag.SATURATED, SpotFlag.BAD_PIXEL
+    for i in range(cx.size):
+        flags = (none if conv[i] else nc) | (tr if trunc[i] else none) | (sat if saturated[i] else none) | (bp if bad[i] else none)
+        spots.append(Spot(x=float(cx[i]), y=float(cy[i]), sigma_x=float(sx[i]), sigma_y=float(sy[i]),
+                          flux=float(flux[i]), peak=float(peak[i]), snr=float(snr[i]), flags=flags))
     return spots
 
 
@@ -468,48 +485,57 @@ def detect_spots(
         return []
     slices = ndimage.find_objects(labels)
     areas = np.bincount(labels.ravel(), minlength=n + 1)[1:]
+    index = np.nonzero(areas >= min_area_px)[0] + 1
+    if index.size == 0:
+        return []
+    # Brightest smoothed pixel of each component (one sort of the above-threshold pixels).
+    flat = np.flatnonzero(mask)
+    lab_of = labels.ravel()[flat]
+    order = np.lexsort((-sm.ravel()[flat], lab_of))
+    first = order[np.r_[True, lab_of[order][1:] != lab_of[order][:-1]]]
+    best = dict(zip(lab_of[first].tolist(), flat[first].tolist()))
+    pos = np.array([divmod(best[int(lab)], sm.shape[1]) for lab in index]).reshape(-1, 2)
+    xs, ys = pos[:, 1].astype(float), pos[:, 0].astype(float)
     if window_px is None:
-        window_px = spot_window_px(resid, slices, sm)
+        # Start from the components' size and widen to +/-3.5 fitted spot sigmas until the
+        # window holds the spots.
+        sizes = np.array([max(slices[lab - 1][0].stop - slices[lab - 1][0].start,
+                              slices[lab - 1][1].stop - slices[lab - 1][1].start) for lab in index])
+        window_px = int(min(61, max(7, int(np.median(sizes)) + 2))) | 1
+        for _ in range(4):
+            fit = _centroids(raw, resid, noise, xs, ys, window_px, method if method == "gauss" else "gauss",
+                             saturation, gain)
+            ok = fit[6] & ~fit[7]
+            s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
+            need = int(max(7, 2 * math.ceil(3.5 * s_spot) + 1))
+            if need <= window_px:
+                break
+            window_px = min(need, 61)
+        if method != "gauss":
+            fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
+    else:
+        fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
+    spots = _spots_from(raw, resid, window_px, method, saturation, fit)
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
-    seeds: list[tuple[int, int, int]] = []  # (label, row, col) of each component's brightest pixel
-    for lab, sl in enumerate(slices, start=1):
-        if sl is None or areas[lab - 1] < min_area_px:
-            continue
-        box = np.where(labels[sl] == lab, sm[sl], -np.inf)
-        r, c = np.unravel_index(int(np.argmax(box)), box.shape)
-        seeds.append((lab, sl[0].start + int(r), sl[1].start + int(c)))
-    if not seeds:
-        return []
-    seed_arr = np.array(seeds)
-    spots = _measure_many(raw, resid, noise, seed_arr[:, 2].astype(float), seed_arr[:, 1].astype(float),
-                          window_px, method, saturation, gain)
+    # Two peaks in one component: only components holding two local maxima need the dip test.
+    rr, cc = np.divmod(flat, sm.shape[1])
+    padded = np.pad(sm, 1, mode="edge")
+    v = sm.ravel()[flat]
+    is_max = np.ones(flat.size, dtype=bool)
+    for dr in (-1, 0, 1):
+        for dc in (-1, 0, 1):
+            if dr or dc:
+                is_max &= v >= padded[rr + 1 + dr, cc + 1 + dc]
+    n_max = np.bincount(lab_of[is_max], minlength=n + 1)
     out: list[Spot] = []
-    for (lab, r, c), spot in zip(seeds, spots):
-        merged = areas[lab - 1] > max_area_px or _two_peaks(sm, labels, lab, slices[lab - 1], (r, c), thr)
+    for lab, (r, c), spot in zip(index, pos, spots):
+        merged = areas[lab - 1] > max_area_px or (
+            n_max[lab] >= 2 and _two_peaks(sm, labels, int(lab), slices[lab - 1], (int(r), int(c)), thr))
         if merged:
             spot = replace(spot, flags=spot.flags | SpotFlag.MERGED)
         out.append(spot)
     return out
-
-
-def spot_window_px(resid: np.ndarray, slices: list, sm: np.ndarray, probe: int = 30) -> int:
-    """Odd window side of about +/-3.5 spot sigmas (at least 7 px), from Gaussian fits of the
-    brightest components (a probe window of 4 x their size, at most 41 px)."""
-    comps = [sl for sl in slices if sl is not None]
-    if not comps:
-        return 7
-    peaks = np.array([sm[sl].max() for sl in comps])
-    best = [comps[i] for i in np.argsort(-peaks)[:probe]]
-    size = max(max(sl[0].stop - sl[0].start, sl[1].stop - sl[1].start) for sl in best)
-    m = int(min(41, max(9, 2 * size + 1))) | 1
-    ys = np.array([0.5 * (sl[0].start + sl[0].stop - 1) for sl in best])
-    xs = np.array([0.5 * (sl[1].start + sl[1].stop - 1) for sl in best])
-    noise = 1.0
-    fit = _gauss_fit_batch(resid, noise, xs, ys, m, None)
-    ok = fit[6]
-    s = float(np.median(fit[8][ok])) if ok.any() else 1.0
-    return int(max(7, 2 * math.ceil(3.5 * s) + 1))
 
 
 def repair_isolated_pixels(
@@ -640,7 +666,9 @@ def centroid_at(
     """Centroid of the one spot near (x0, y0) (x = column, y = row), for scan mode.
 
     The brightest smoothed pixel within search_px (default 3 windows) of the start point seeds
-    the centroid, so the expected position may be off by several pixels. Raises ValueError
+    the centroid, so the expected position may be off by several pixels. Only a box of the
+    search area plus one window each side is read (background, repair, fit), so the cost per
+    pose does not grow with the frame. Raises ValueError
     when the start point lies outside the frame.
     """
     raw = _as_float_image(image)
@@ -650,16 +678,35 @@ def centroid_at(
             f"start point ({x0:.1f}, {y0:.1f}) is outside the {w}x{h} frame; check the expected "
             "spot position (x = column, y = row)"
         )
-    bg = background or estimate_background(raw)
     search = search_px if search_px is not None else 3 * window_px
     xi, yi = int(round(x0)), int(round(y0))
-    xa, xb = max(0, xi - search), min(w, xi + search + 1)
-    ya, yb = max(0, yi - search), min(h, yi + search + 1)
-    resid = raw - bg.level
+    # Work in a box of the search area plus a window on every side: the whole frame is never
+    # touched per pose. The background (level and noise) comes from the box unless given.
+    reach = search + window_px
+    bx0, bx1 = max(0, xi - reach), min(w, xi + reach + 1)
+    by0, by1 = max(0, yi - reach), min(h, yi + reach + 1)
+    sub = raw[by0:by1, bx0:bx1]
+    if background is None:
+        bg = estimate_background(sub)
+        level: float | np.ndarray = bg.level
+    else:
+        bg = background
+        level = bg.level[by0:by1, bx0:bx1] if isinstance(bg.level, np.ndarray) else bg.level
+    resid = sub - level
     if repair_bad_pixels:
         resid, fixed = repair_isolated_pixels(resid, bg.noise)
-        raw = _without(raw, fixed)
+        sub = _without(sub, fixed)
+    xa, xb = max(0, xi - search) - bx0, min(w, xi + search + 1) - bx0
+    ya, yb = max(0, yi - search) - by0, min(h, yi + search + 1) - by0
     box = ndimage.gaussian_filter(resid[ya:yb, xa:xb], 1.0, mode="nearest")
     r, c = np.unravel_index(int(np.argmax(box)), box.shape)
-    return _measure_many(raw, resid, bg.noise, np.array([float(xa + c)]), np.array([float(ya + r)]),
+    spot = _measure_many(sub, resid, bg.noise, np.array([float(xa + c)]), np.array([float(ya + r)]),
                          window_px, method, saturation, gain)[0]
+    # Back to frame coordinates; the window only counts as truncated at the frame's edges.
+    flags = spot.flags
+    if flags & SpotFlag.TRUNCATED:
+        half = window_px / 2.0
+        x, y = spot.x + bx0, spot.y + by0
+        if not ((x - half < -0.5) or (y - half < -0.5) or (x + half > w - 0.5) or (y + half > h - 0.5)):
+            flags &= ~SpotFlag.TRUNCATED
+    return replace(spot, x=spot.x + bx0, y=spot.y + by0, flags=flags)

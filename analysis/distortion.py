@@ -340,9 +340,23 @@ def _place_pixels(g: CameraGeometry) -> np.ndarray:
 
 def _places_norm(g: CameraGeometry) -> np.ndarray:
     """Undistorted normalized positions (after roll) of the corners and edge midpoints."""
-    from analysis.geometry import undistort_normalized
+    return _undistort(_normalized_from_pixels(g, _place_pixels(g)), g.distortion)
 
-    return undistort_normalized(_normalized_from_pixels(g, _place_pixels(g)), g.distortion, iterations=50)
+
+def _undistort(xy: np.ndarray, d: BrownConrady) -> np.ndarray:
+    """Inverse Brown-Conrady by fixed-point iteration (as cv2.undistortPoints), to 1e-13."""
+    xd, yd = xy[:, 0], xy[:, 1]
+    x, y = xd.copy(), yd.copy()
+    for _ in range(100):
+        r2 = x * x + y * y
+        radial = 1.0 + r2 * (d.k1 + r2 * (d.k2 + r2 * d.k3))
+        nx = (xd - (2.0 * d.p1 * x * y + d.p2 * (r2 + 2.0 * x * x))) / radial
+        ny = (yd - (d.p1 * (r2 + 2.0 * y * y) + 2.0 * d.p2 * x * y)) / radial
+        done = max(float(np.max(np.abs(nx - x))), float(np.max(np.abs(ny - y)))) < 1e-13
+        x, y = nx, ny
+        if done:
+            break
+    return np.column_stack([x, y])
 
 
 def _place_radial_percent(g: CameraGeometry) -> np.ndarray:

@@ -8,8 +8,9 @@ Method
 ------
 - Start from a linear least-squares solve (affine camera plus a k1-like r^2 term), so the
   nonlinear solver begins next to the answer whatever the detector or pixel size.
-- Bounded trust-region least squares (scipy.optimize.least_squares, "trf") with the analytic
-  Jacobian of the forward model and Jacobian-scaled variables; bounds where a parameter has a
+- Levenberg-Marquardt with the analytic Jacobian of the forward model and Marquardt's diagonal
+  scaling (so pixels, degrees and coefficients need no hand-set scales), steps projected into
+  bounds where a parameter has a
   physical range (aspect, skew, roll, focal length, principal point on the detector). A result
   at a bound is refused: the data did not decide it.
 - Terms chosen by the data: k1 is always fitted; p1+p2, k2 and k3 are added one at a time
@@ -28,7 +29,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import stats
 
 from analysis.geometry import BrownConrady, CameraGeometry, ideal_normalized
 
@@ -233,8 +234,13 @@ def _linear_start(xn0: np.ndarray, yn0: np.ndarray, meas: np.ndarray,
         return dict(v0)
     r2 = xn0 * xn0 + yn0 * yn0
     one = np.ones(n)
-    au, *_ = np.linalg.lstsq(np.column_stack([one, xn0, yn0, xn0 * r2]), meas[:, 0], rcond=None)
-    av, *_ = np.linalg.lstsq(np.column_stack([one, xn0, yn0, yn0 * r2]), meas[:, 1], rcond=None)
+    Au = np.column_stack([one, xn0, yn0, xn0 * r2])
+    Av = np.column_stack([one, xn0, yn0, yn0 * r2])
+    try:
+        au = np.linalg.solve(Au.T @ Au, Au.T @ meas[:, 0])
+        av = np.linalg.solve(Av.T @ Av, Av.T @ meas[:, 1])
+    except np.linalg.LinAlgError:
+        return dict(v0)
     fy = math.hypot(av[1], av[2])
     roll = math.atan2(-av[1], av[2])
     c, s = math.cos(roll), math.sin(roll)
@@ -268,6 +274,56 @@ def _sigma_array(sigma_px: np.ndarray | float | None, n: int) -> np.ndarray:
 def _pre_roll(nominal: CameraGeometry, dirs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     p = ideal_normalized(nominal.replace(roll_deg=0.0, defects=()), dirs)
     return p[:, 0], p[:, 1]
+
+
+def _levenberg_marquardt(resid, jac, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, loss: str = "linear",
+                         f_scale: float = 1.0, max_iter: int = 100) -> np.ndarray:
+    """Levenberg-Marquardt with Marquardt's diagonal scaling (scale-free in the parameters) and
+    steps projected into the bounds (Levenberg 1944, Marquardt 1963; Nocedal & Wright ch. 10).
+
+    loss "soft_l1" (or any other robust name) is solved by iteratively reweighted least squares
+    with the soft-L1 weights 1 / sqrt(1 + (r / f_scale)^2) (Huber-like; common practice).
+    """
+    x = x0.copy()
+
+    def weights(r: np.ndarray) -> np.ndarray:
+        if loss == "linear":
+            return np.ones_like(r)
+        return 1.0 / np.sqrt(np.sqrt(1.0 + (r / f_scale) ** 2))  # sqrt of the IRLS weight
+
+    r = resid(x)
+    w = weights(r)
+    cost = float(((r * w) ** 2).sum())
+    lam = 1e-4
+    J = jac(x)
+    for _ in range(max_iter):
+        Jw = J * w[:, None]
+        A = Jw.T @ Jw
+        g = Jw.T @ (r * w)
+        d = np.maximum(np.diag(A), 1e-300)
+        try:
+            step = np.linalg.solve(A + lam * np.diag(d), -g)
+        except np.linalg.LinAlgError:
+            lam *= 10.0
+            continue
+        xt = np.clip(x + step, lo, hi)
+        rt = resid(xt)
+        ct = float(((rt * w) ** 2).sum())
+        if ct <= cost:
+            moved = np.abs(xt - x) * np.sqrt(d)  # step in units of its own effect on the residuals
+            x, r, J = xt, rt, jac(xt)
+            drop = cost - ct
+            w_new = weights(r)
+            cost = float(((r * w_new) ** 2).sum())
+            w = w_new
+            lam = max(lam * 0.2, 1e-12)
+            if float(moved.max()) < 1e-9 * max(1.0, math.sqrt(cost)) or drop < 1e-14 * max(cost, 1e-300):
+                break
+        else:
+            lam *= 10.0
+            if lam > 1e12:
+                break
+    return x
 
 
 def fit_camera_model(
@@ -334,15 +390,13 @@ def fit_camera_model(
         _, J = model_and_jacobian(values(x), xn0, yn0, terms)
         return (J * w[:, :, None]).reshape(-1, n_par)
 
-    res = optimize.least_squares(resid, x0, jac=jac, bounds=(lo, hi), method="trf", loss=loss,
-                                 f_scale=f_scale, x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12,
-                                 max_nfev=200)
-    v = values(res.x)
+    x_fit = _levenberg_marquardt(resid, jac, x0, lo, hi, loss, f_scale)
+    v = values(x_fit)
     geom = geometry_from_values(nominal, v)
-    r = resid(res.x)
+    r = resid(x_fit)
     dof = max(1, r.size - n_par)
     chi2 = float(r @ r) / dof
-    J = jac(res.x)
+    J = jac(x_fit)
     try:
         cov = np.linalg.inv(J.T @ J) * chi2
         sig_par = {t: float(math.sqrt(max(cov[i, i], 0.0))) for i, t in enumerate(terms)}
@@ -350,7 +404,7 @@ def fit_camera_model(
         cov = None
         sig_par = {t: float("nan") for t in terms}
     near = 1e-4 * span
-    at_bound = tuple(t for t, xv, a, b in zip(terms, res.x, lo, hi)
+    at_bound = tuple(t for t, xv, a, b in zip(terms, x_fit, lo, hi)
                      if (np.isfinite(a) and xv - a < near[terms.index(t)])
                      or (np.isfinite(b) and b - xv < near[terms.index(t)]))
     resid_px = r.reshape(-1, 2) * sig
@@ -369,7 +423,7 @@ def _rss_with(meas: np.ndarray, w: np.ndarray, xn0: np.ndarray, yn0: np.ndarray,
     pred, J = model_and_jacobian(v, xn0, yn0, terms)
     r = ((pred - meas) * w).ravel()
     A = (J * w[:, :, None]).reshape(-1, len(terms))
-    step, *_ = np.linalg.lstsq(A, -r, rcond=None)
+    step = np.linalg.solve(A.T @ A, -(A.T @ r))
     r1 = r + A @ step
     return float(r1 @ r1)
 
