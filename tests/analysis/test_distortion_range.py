@@ -116,3 +116,24 @@ def test_wrong_collimator_is_refused_not_measured():
     img = render(truth, grid, n=1)
     with pytest.raises(DistortionRefused):
         distortion_from_grid_frame(img, grid.points_mm(), 2 * F_COLL, nominal, saturation=truth.full_scale)
+
+
+def test_demo_field_sampled_finer_regression():
+    """The demo camera's field on a 1280x1024 detector of 8.5 um pixels (blur scaled with the
+    pixel, 0.5 mm pinholes, 60 C source: spots saturate). The former fit started from the
+    nominal camera with hand-set step scales and no bounds; its first trust-region step grew with
+    fx in pixels and drove aspect negative ('aspect must be > 0'). Truth: demo_camera_truth.yaml."""
+    base = truth_from_mapping(yaml.safe_load((DATA / "demo_camera_truth.yaml").read_text()))
+    g = base.geometry.replace(width=1280, height=1024, pixel_pitch_um=8.5, cx=base.geometry.cx * 2,
+                              cy=base.geometry.cy * 2)
+    truth = type(base)(**{**base.__dict__, "geometry": g, "blur_sigma_px": 1.2})
+    grid = PinholeGrid(rows=11, cols=15, pitch_mm=12.0, diameter_mm=0.5)
+    r = CameraRenderer(truth, seed=1)
+    scene = SceneState(source_c=60.0, plate_c=20.0, target=grid, collimator_focal_mm=F_COLL)
+    img = np.mean([r.render(scene, i).astype(np.float64) for i in range(4)], axis=0)
+    res = distortion_from_grid_frame(img, grid.points_mm(), F_COLL, CameraGeometry(1280, 1024, 8.5, 25.0),
+                                     saturation=truth.full_scale)
+    m = res.model
+    assert m.distortion.k1 == pytest.approx(-0.25, abs=4 * m.sigma("k1") + 0.005)
+    assert m.geometry.aspect == pytest.approx(g.aspect, abs=4 * m.sigma("aspect") + 1e-4)
+    assert res.classification.label == "barrel"
