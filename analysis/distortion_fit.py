@@ -276,13 +276,14 @@ def _pre_roll(nominal: CameraGeometry, dirs: np.ndarray) -> tuple[np.ndarray, np
     return p[:, 0], p[:, 1]
 
 
-def _levenberg_marquardt(resid, jac, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, loss: str = "linear",
+def _levenberg_marquardt(fun, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, loss: str = "linear",
                          f_scale: float = 1.0, max_iter: int = 100) -> np.ndarray:
     """Levenberg-Marquardt with Marquardt's diagonal scaling (scale-free in the parameters) and
     steps projected into the bounds (Levenberg 1944, Marquardt 1963; Nocedal & Wright ch. 10).
 
-    loss "soft_l1" (or any other robust name) is solved by iteratively reweighted least squares
-    with the soft-L1 weights 1 / sqrt(1 + (r / f_scale)^2) (Huber-like; common practice).
+    fun(x, jac) returns the residuals and, when jac, their Jacobian. loss "soft_l1" (or any
+    other robust name) is solved by iteratively reweighted least squares with the soft-L1
+    weights 1 / sqrt(1 + (r / f_scale)^2) (common practice).
     """
     x = x0.copy()
 
@@ -291,11 +292,10 @@ def _levenberg_marquardt(resid, jac, x0: np.ndarray, lo: np.ndarray, hi: np.ndar
             return np.ones_like(r)
         return 1.0 / np.sqrt(np.sqrt(1.0 + (r / f_scale) ** 2))  # sqrt of the IRLS weight
 
-    r = resid(x)
+    r, J = fun(x, True)
     w = weights(r)
     cost = float(((r * w) ** 2).sum())
     lam = 1e-4
-    J = jac(x)
     for _ in range(max_iter):
         Jw = J * w[:, None]
         A = Jw.T @ Jw
@@ -307,19 +307,23 @@ def _levenberg_marquardt(resid, jac, x0: np.ndarray, lo: np.ndarray, hi: np.ndar
             lam *= 10.0
             continue
         xt = np.clip(x + step, lo, hi)
-        rt = resid(xt)
+        rt, Jt = fun(xt, True)
         ct = float(((rt * w) ** 2).sum())
         if ct <= cost:
             moved = np.abs(xt - x) * np.sqrt(d)  # step in units of its own effect on the residuals
-            x, r, J = xt, rt, jac(xt)
+            x, r, J = xt, rt, Jt
             drop = cost - ct
-            w_new = weights(r)
-            cost = float(((r * w_new) ** 2).sum())
-            w = w_new
+            w = weights(r)
+            cost = float(((r * w) ** 2).sum())
             lam = max(lam * 0.2, 1e-12)
-            if float(moved.max()) < 1e-9 * max(1.0, math.sqrt(cost)) or drop < 1e-14 * max(cost, 1e-300):
+            # Converged when the cost drops by less than 1e-6 of a chi-square unit (scaled by the
+            # reduced chi-square): the parameters then move by ~1e-3 of their sigmas or less.
+            scale = max(cost / max(1, r.size - x.size), 1e-300)
+            if drop < 1e-6 * scale or float(moved.max()) < 1e-6:
                 break
         else:
+            if ct - cost <= 1e-9 * cost:
+                break  # no step lowers the cost beyond rounding: at the minimum
             lam *= 10.0
             if lam > 1e12:
                 break
@@ -390,7 +394,12 @@ def fit_camera_model(
         _, J = model_and_jacobian(values(x), xn0, yn0, terms)
         return (J * w[:, :, None]).reshape(-1, n_par)
 
-    x_fit = _levenberg_marquardt(resid, jac, x0, lo, hi, loss, f_scale)
+    def fun(x: np.ndarray, want_jac: bool) -> tuple[np.ndarray, np.ndarray | None]:
+        pred, J = model_and_jacobian(values(x), xn0, yn0, terms if want_jac else ())
+        r = ((pred - meas) * w).ravel()
+        return r, (J * w[:, :, None]).reshape(-1, n_par) if want_jac else None
+
+    x_fit = _levenberg_marquardt(fun, x0, lo, hi, loss, f_scale)
     v = values(x_fit)
     geom = geometry_from_values(nominal, v)
     r = resid(x_fit)
@@ -440,8 +449,8 @@ def select_terms(
     """Fit the base terms plus the optional ones (p1+p2, k2, k3) the data support.
 
     Forward selection: each round adds the group with the smallest F-test p-value,
-    F = ((RSS0 - RSS1) / dp) / (RSS1 / dof1), while it is below alpha (RSS1 of each candidate
-    by one Gauss-Newton step from the current optimum; the chosen model is then fitted in
+    F = ((RSS0 - RSS1) / dp) / (RSS1 / dof1), while it is below alpha (the RSS of each nested
+    model by one Gauss-Newton step from the base optimum; the chosen model is then fitted in
     full). The returned model's term_choice says, per group, F, its degrees of freedom and
     p-value.
     """
@@ -470,18 +479,19 @@ def select_terms(
                 continue
             f = max(0.0, (rss - rss1) / len(g)) / (rss1 / dof1)
             p = float(stats.f.sf(f, len(g), dof1))
-            trials.append((p, f, g, dof1))
+            trials.append((p, f, g, dof1, rss1))
             last[g] = (p, f, dof1)
         if not trials:
             break
-        p, f, g, dof1 = min(trials, key=lambda item: item[0])
+        p, f, g, dof1, rss1 = min(trials, key=lambda item: item[0])
         if p >= alpha:
             break
         notes.append(f"{', '.join(g)}: fitted (F = {f:.3g} on ({len(g)}, {dof1}) dof, p = {p:.2g} < {alpha:g})")
         chosen += list(g)
         optional.remove(g)
+        rss = rss1  # the next round compares against this model (its RSS by the same step)
+    if len(chosen) > len(base):
         model, r = fit_camera_model(meas, dirs, nominal, sigma_px=sigma_px, terms=chosen, start=model.geometry)
-        rss = float(np.sum(r * r))
     for g in optional:
         if g in last:
             p, f, dof1 = last[g]

@@ -162,9 +162,11 @@ def match_points(
     lead_all = np.nonzero(score >= 0.7 * score.max())[0]
     lead_all = lead_all[np.argsort(-score[lead_all], kind="stable")]
     lead: list[int] = []
+    taken = np.empty((0, 2))
     for h in lead_all:
-        if all(np.hypot(*(shifts[h] - shifts[o])) > 0.3 * pitch for o in lead):
+        if not len(taken) or np.min(np.hypot(*(taken - shifts[h]).T)) > 0.3 * pitch:
             lead.append(int(h))
+            taken = shifts[np.array(lead)]
         if len(lead) == 32:
             break
     lead_arr = np.array(lead)
@@ -205,6 +207,8 @@ def match_points(
         rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
         if best is None or len(pairs) > best[0] or (len(pairs) == best[0] and rms < best[1]):
             best = (len(pairs), rms, pairs, (a, b, t))
+        if len(pairs) >= 0.95 * min(len(det), len(exp)):
+            break  # (nearly) everything paired: no other hypothesis can do better
     if best is None or best[0] < 3:
         raise ValueError(
             f"could not pair the {len(det)} detected spots with the {len(exp)} expected points "
