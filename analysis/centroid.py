@@ -232,13 +232,14 @@ def _edge_pieces(centre: np.ndarray, sigma: np.ndarray, start: np.ndarray, size:
 def _gauss_fit_batch(
     resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray, window_px: int,
     gain: float | None, s0: np.ndarray | None = None, mask: np.ndarray | None = None,
-    max_iter: int = 40,
+    max_iter: int = 40, raw: np.ndarray | None = None, saturation: float | None = None,
 ) -> tuple[np.ndarray, ...]:
     """Pixel-integrated Gaussian fits of many spots at once (Levenberg-Marquardt, per spot).
 
     Model per window: flux * ey (x) ex + b, ex/ey the pixel-integrated 1-D Gaussians (erf
     differences), six parameters (flux, x, y, sx, sy, b): the maximum-likelihood estimate in
-    Gaussian noise (Winick 1986). mask: pixels to leave out (saturated or repaired), True = out.
+    Gaussian noise (Winick 1986). mask: pixels to leave out, True = out; raw (with saturation):
+    the raw frame, whose repaired (-inf) and saturated pixels are left out.
     Windows are centred on round(xs, ys); pixels outside the frame are left out and flagged.
     Returns x, y, sigma_x, sigma_y, flux, snr, converged, truncated, fitted spot sigma (arrays).
     """
@@ -258,6 +259,11 @@ def _gauss_fit_batch(
     truncated = ~use.all(axis=(1, 2))
     if mask is not None:
         use &= ~mask[np.clip(rows, 0, h_img - 1)[:, :, None], np.clip(cols, 0, w_img - 1)[:, None, :]]
+    if raw is not None:  # leave out repaired (-inf) and saturated pixels of the raw frame
+        raw_win = raw[np.clip(rows, 0, h_img - 1)[:, :, None], np.clip(cols, 0, w_img - 1)[:, None, :]]
+        use &= np.isfinite(raw_win)
+        if saturation is not None:
+            use &= raw_win < saturation
     wgt = use.astype(float)
     data = np.where(use, data, 0.0)
     # Start: background from the window's border, moments of the positive excess.
@@ -404,10 +410,7 @@ def _centroids(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray,
         out = _centroid_com_batch(resid, noise, xs, ys, window_px, gain)
         return (*out, np.full(xs.size, np.nan))
     if method == "gauss":
-        mask = ~np.isfinite(raw)
-        if saturation is not None:
-            mask |= raw >= saturation
-        return _gauss_fit_batch(resid, noise, xs, ys, window_px, gain, mask=mask if mask.any() else None)
+        return _gauss_fit_batch(resid, noise, xs, ys, window_px, gain, raw=raw, saturation=saturation)
     raise ValueError(f"unknown centroid method {method!r}: use 'com' or 'gauss'")
 
 
@@ -523,13 +526,13 @@ def detect_spots(
         max_area_px = 4 * window_px * window_px
     # Two peaks in one component: only components holding two local maxima need the dip test.
     rr, cc = np.divmod(flat, sm.shape[1])
-    padded = np.pad(sm, 1, mode="edge")
+    hh, ww = sm.shape
     v = sm.ravel()[flat]
     is_max = np.ones(flat.size, dtype=bool)
     for dr in (-1, 0, 1):
         for dc in (-1, 0, 1):
             if dr or dc:
-                is_max &= v >= padded[rr + 1 + dr, cc + 1 + dc]
+                is_max &= v >= sm[np.clip(rr + dr, 0, hh - 1), np.clip(cc + dc, 0, ww - 1)]
     n_max = np.bincount(lab_of[is_max], minlength=n + 1)
     out: list[Spot] = []
     for lab, (r, c), spot in zip(index, pos, spots):
@@ -570,28 +573,30 @@ def repair_isolated_pixels(
     """
     none = (np.zeros(0, dtype=int), np.zeros(0, dtype=int))
     img = np.asarray(resid, dtype=float)
-    high = img > k_sigma * noise
-    low = img < -k_sigma * noise
-    if not (high.any() or low.any()):
+    h, w = img.shape
+    flat = np.flatnonzero(np.abs(img.ravel()) > k_sigma * noise)
+    if flat.size == 0:
         return resid, none
-    padded = np.pad(img, 1, mode="edge")
-    rr, cc = np.nonzero(high | low)
-    r, c = rr + 1, cc + 1
+    rr, cc = np.divmod(flat, w)
+
+    def at(dr: int, dc: int) -> np.ndarray:  # neighbour values, edge pixels repeated
+        return img[np.clip(rr + dr, 0, h - 1), np.clip(cc + dc, 0, w - 1)]
+
     offsets = [(dr, dc) for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc]
-    neigh = np.stack([padded[r + dr, c + dc] for dr, dc in offsets], axis=1)
-    v = img[rr, cc]
+    neigh = np.stack([at(dr, dc) for dr, dc in offsets], axis=1)
+    v = img.ravel()[flat]
     # The log-curvature test along the four lines through the pixel (pairs of opposite neighbours).
     v_lo = v - margin_sigma * noise
     floor = noise  # a neighbour is never taken as darker than one noise sigma above zero
     broken = np.zeros(v.size, dtype=bool)  # True where some line forbids a spot
     for (dr, dc) in ((0, 1), (1, 0), (1, 1), (1, -1)):
-        a = padded[r + dr, c + dc]
-        b = padded[r - dr, c - dc]
+        a = at(dr, dc)
+        b = at(-dr, -dc)
         hi_a = np.maximum(a * (1 + rel_tolerance) + margin_sigma * noise, floor)
         hi_b = np.maximum(b * (1 + rel_tolerance) + margin_sigma * noise, floor)
         bound = hi_a * hi_b * math.exp((dr * dr + dc * dc) / min_spot_sigma_px ** 2)
         broken |= (v_lo > 0) & (v_lo * v_lo > bound)
-    hot = high[rr, cc] & broken
+    hot = (v > k_sigma * noise) & broken
     dead = v < -k_sigma * noise
     bad = hot | dead
     if not bad.any():
