@@ -15,7 +15,7 @@ Method
   at a bound is refused: the data did not decide it.
 - Terms chosen by the data: k1 is always fitted; p1+p2, k2 and k3 are added one at a time
   (forward selection) while the F-test on the residual sums of squares of the nested fits is
-  significant at alpha = 0.05 (the extra-sum-of-squares F-test for nested least-squares
+  significant at alpha = 0.05 for k2, k3 and 0.001 for p1+p2 (the extra-sum-of-squares F-test for nested least-squares
   models; e.g. Draper & Smith, Applied Regression Analysis, ch. 6; Bates & Watts, Nonlinear
   Regression Analysis, ch. 3). Each decision is stated in FitModel.term_choice.
 - Covariance: (J^T W J)^-1 times the reduced chi-square (standard nonlinear least-squares
@@ -37,9 +37,13 @@ __all__ = ["ALL_TERMS", "DistortionRefused", "FitModel", "choose_terms", "fit_ca
            "select_terms", "F_TEST_ALPHA"]
 
 ALL_TERMS = ("cx", "cy", "roll", "fx", "aspect", "skew", "k1", "k2", "p1", "p2", "k3")
-# 5 % (common practice). A stricter level leaves real small terms out and biases k1 beyond its
-# own sigma (seen with the demo camera's k2 = 0.02 on a 12 deg field).
+# Radial terms at 5 % (common practice): a stricter level leaves a real small k2 out and biases
+# k1 beyond its own sigma (seen with the demo camera's k2 = 0.02 on a 12 deg field). The
+# decentring pair at 0.1 %: fitted on noise it shows as a spurious angular peak of the maximum
+# distortion (seen on distortion-free cameras at 5 %), and real decentring of a made lens
+# stands far above that (the demo camera's p1 = 2e-4: p ~ 1e-22).
 F_TEST_ALPHA = 0.05
+F_TEST_ALPHA_DECENTRING = 0.001
 # Optional terms, each group added as a whole (p1 and p2 describe one decentring).
 _OPTIONAL = (("p1", "p2"), ("k2",), ("k3",))
 
@@ -437,6 +441,11 @@ def _rss_with(meas: np.ndarray, w: np.ndarray, xn0: np.ndarray, yn0: np.ndarray,
     return float(r1 @ r1)
 
 
+def _level(group: tuple[str, ...], alpha: float) -> float:
+    """Significance level of a term group: the decentring pair needs strong evidence."""
+    return min(alpha, F_TEST_ALPHA_DECENTRING) if group == ("p1", "p2") else alpha
+
+
 def select_terms(
     measured_xy: np.ndarray,
     directions_cam: np.ndarray,
@@ -449,7 +458,7 @@ def select_terms(
     """Fit the base terms plus the optional ones (p1+p2, k2, k3) the data support.
 
     Forward selection: each round adds the group with the smallest F-test p-value,
-    F = ((RSS0 - RSS1) / dp) / (RSS1 / dof1), while it is below alpha (the RSS of each nested
+    F = ((RSS0 - RSS1) / dp) / (RSS1 / dof1), while it is below its level (alpha; 0.001 for p1+p2) (the RSS of each nested
     model by one Gauss-Newton step from the base optimum; the chosen model is then fitted in
     full). The returned model's term_choice says, per group, F, its degrees of freedom and
     p-value.
@@ -479,14 +488,14 @@ def select_terms(
                 continue
             f = max(0.0, (rss - rss1) / len(g)) / (rss1 / dof1)
             p = float(stats.f.sf(f, len(g), dof1))
-            trials.append((p, f, g, dof1, rss1))
+            level = _level(g, alpha)
+            if p < level:
+                trials.append((p / level, p, f, g, dof1, rss1))
             last[g] = (p, f, dof1)
         if not trials:
             break
-        p, f, g, dof1, rss1 = min(trials, key=lambda item: item[0])
-        if p >= alpha:
-            break
-        notes.append(f"{', '.join(g)}: fitted (F = {f:.3g} on ({len(g)}, {dof1}) dof, p = {p:.2g} < {alpha:g})")
+        _, p, f, g, dof1, rss1 = min(trials, key=lambda item: item[0])
+        notes.append(f"{', '.join(g)}: fitted (F = {f:.3g} on ({len(g)}, {dof1}) dof, p = {p:.2g} < {_level(g, alpha):g})")
         chosen += list(g)
         optional.remove(g)
         rss = rss1  # the next round compares against this model (its RSS by the same step)
@@ -496,7 +505,7 @@ def select_terms(
         if g in last:
             p, f, dof1 = last[g]
             notes.append(f"{', '.join(g)}: held at the nominal value (F = {f:.3g} on ({len(g)}, {dof1}) "
-                         f"dof, p = {p:.2g} >= {alpha:g}: not supported by the data)")
+                         f"dof, p = {p:.2g} >= {_level(g, alpha):g}: not supported by the data)")
     for g in _OPTIONAL:
         if g not in optional and not all(t in chosen for t in g):
             notes.append(f"{', '.join(g)}: held at the nominal value (too few points or too narrow a "
