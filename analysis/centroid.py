@@ -286,9 +286,10 @@ def _gauss_fit_batch(
     xf, yf = x0.astype(float), y0.astype(float)
 
     wflat = wgt.reshape(n, m * m)
-    model, J = _SubBatch(p, xf, yf, m).model_and_jac()
-    r = (data - model).reshape(n, m * m) * wflat
-    cost = (r * r).sum(1)
+    full = ~use.all(axis=(1, 2))  # windows with pixels left out: not separable
+    model, U, V = _SubBatch(p, xf, yf, m).model_uv()
+    res = (data - model) * wgt
+    cost = (res * res).sum(axis=(1, 2))
     lam = np.full(n, 1e-3)
     active = np.ones(n, dtype=bool)
     converged = np.zeros(n, dtype=bool)
@@ -297,9 +298,7 @@ def _gauss_fit_batch(
         if not active.any():
             break
         idx = np.nonzero(active)[0]
-        Ja = J[idx] * wflat[idx, :, None]
-        A = np.matmul(Ja.transpose(0, 2, 1), Ja)
-        g = np.matmul(Ja.transpose(0, 2, 1), r[idx][:, :, None])[:, :, 0]
+        A, g = _normal_equations(U[idx], V[idx], res[idx], wgt[idx], full[idx])
         diag = np.einsum("nii->ni", A)
         A_d = A + lam[idx, None, None] * diag[:, :, None] * eye
         try:
@@ -307,11 +306,9 @@ def _gauss_fit_batch(
         except np.linalg.LinAlgError:
             step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A_d, g)])
         trial = np.clip(p[idx] + step, lo[idx] + 1e-9, hi[idx] - 1e-9)
-        # Evaluate the trial only for the active spots (a sub-batch).
-        sub = _SubBatch(trial, xf[idx], yf[idx], m)
-        t_model = sub.model()
-        t_r = (data[idx] - t_model).reshape(idx.size, m * m) * wflat[idx]
-        t_cost = (t_r * t_r).sum(1)
+        t_model = _SubBatch(trial, xf[idx], yf[idx], m).model()
+        t_res = (data[idx] - t_model) * wgt[idx]
+        t_cost = (t_res * t_res).sum(axis=(1, 2))
         better = t_cost <= cost[idx]
         ok = idx[better]
         moved = np.abs(trial[better] - p[ok])
@@ -328,19 +325,19 @@ def _gauss_fit_batch(
         # At the minimum to rounding (no step lowers the cost by more than 1e-9 of it), or the
         # damping has grown past any useful step.
         stuck = rej[(t_cost[~better] - cost[rej] <= 1e-9 * cost[rej]) | (lam[rej] > 1e6)]
-        converged[stuck] = True  # no step lowers the cost: at the minimum to rounding
+        converged[stuck] = True
         active[done] = False
         active[stuck] = False
         if ok.size:
-            mdl, Jn = _SubBatch(p[ok], xf[ok], yf[ok], m).model_and_jac()
-            J[ok] = Jn
-            r[ok] = (data[ok] - mdl).reshape(ok.size, m * m) * wflat[ok]
-    model, J = _SubBatch(p, xf, yf, m).model_and_jac()
-    var = np.full((n, m * m), noise * noise)
+            mdl, U[ok], V[ok] = _SubBatch(p[ok], xf[ok], yf[ok], m).model_uv()
+            res[ok] = (data[ok] - mdl) * wgt[ok]
+    model, U, V = _SubBatch(p, xf, yf, m).model_uv()
     if gain:
-        var = var + np.clip((model - p[:, 5][:, None, None]).reshape(n, m * m), 0, None) / gain
-    Jw = J * (wflat / np.sqrt(var))[:, :, None]
-    A = np.matmul(Jw.transpose(0, 2, 1), Jw)
+        var = noise * noise + np.clip(model - p[:, 5][:, None, None], 0, None) / gain
+        A, _ = _normal_equations(U, V, res, wgt / np.sqrt(var), np.ones(n, dtype=bool))
+    else:
+        A, _ = _normal_equations(U, V, res, wgt, full)
+        A = A / (noise * noise)
     cov = np.full((n, 6, 6), np.nan)
     try:
         cov[:] = np.linalg.inv(A)
@@ -363,6 +360,25 @@ def _gauss_fit_batch(
     return p[:, 1], p[:, 2], sx, sy, p[:, 0], snr, ok_all, truncated, np.sqrt(p[:, 3] * p[:, 4])
 
 
+def _normal_equations(U: np.ndarray, V: np.ndarray, res: np.ndarray, wgt: np.ndarray,
+                      full: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """J^T W J and J^T W r of the separable model, J[:, y, x, a] = U[:, y, a] V[:, x, a].
+
+    With unit weights both separate: J^T J = (U^T U) * (V^T V) elementwise and
+    J^T r = sum_y U (r V), costing m instead of m^2 per entry. Windows with weights
+    (`full`: pixels left out, or shot noise) take the direct sums; res is already weighted.
+    """
+    A = np.matmul(U.transpose(0, 2, 1), U) * np.matmul(V.transpose(0, 2, 1), V)
+    g = (U * np.matmul(res, V)).sum(axis=1)
+    if full.any():
+        k = np.nonzero(full)[0]
+        n, m = len(k), U.shape[1]
+        J = (U[k][:, :, None, :] * V[k][:, None, :, :] * wgt[k][:, :, :, None]).reshape(n, m * m, 6)
+        A[k] = np.matmul(J.transpose(0, 2, 1), J)
+        g[k] = np.matmul(J.transpose(0, 2, 1), (res[k] * wgt[k]).reshape(n, m * m, 1))[:, :, 0]
+    return A, g
+
+
 class _SubBatch:
     """Model (and Jacobian) of the pixel-integrated Gaussian for a subset of the spots."""
 
@@ -375,23 +391,18 @@ class _SubBatch:
         ey = _edge_pieces(p[:, 2], p[:, 4], self.yf, self.m)[0]
         return p[:, 0][:, None, None] * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
 
-    def model_and_jac(self) -> tuple[np.ndarray, np.ndarray]:
+    def model_uv(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Model and the separable Jacobian factors U (n, m, 6) over rows, V (n, m, 6) over cols."""
         p, m = self.p, self.m
-        n = len(p)
         ex, dex_x, dex_s = _edge_pieces(p[:, 1], p[:, 3], self.xf, m)
         ey, dey_y, dey_s = _edge_pieces(p[:, 2], p[:, 4], self.yf, m)
-        f = p[:, 0][:, None, None]
-        model = f * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
-        J = np.empty((n, m, m, 6))
-        fey = p[:, 0][:, None, None] * ey[:, :, None]
-        fex = p[:, 0][:, None, None] * ex[:, None, :]
-        np.multiply(ey[:, :, None], ex[:, None, :], out=J[..., 0])
-        np.multiply(fey, dex_x[:, None, :], out=J[..., 1])
-        np.multiply(dey_y[:, :, None], fex, out=J[..., 2])
-        np.multiply(fey, dex_s[:, None, :], out=J[..., 3])
-        np.multiply(dey_s[:, :, None], fex, out=J[..., 4])
-        J[..., 5] = 1.0
-        return model, J.reshape(n, m * m, 6)
+        f = p[:, 0][:, None]
+        model = p[:, 0][:, None, None] * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
+        one = np.ones_like(ex)
+        U = np.stack([ey, f * ey, f * dey_y, f * ey, f * dey_s, one], axis=-1)
+        V = np.stack([ex, dex_x, ex, dex_s, ex, one], axis=-1)
+        return model, U, V
+
 
 
 def _measure_many(
