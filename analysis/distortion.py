@@ -10,8 +10,8 @@ Method
    Brown-Conrady k1, k2, k3, p1, p2 (D. C. Brown, Photogramm. Eng. 32:444, 1966; OpenCV calib3d
    convention). k1 is always fitted; p1+p2, k2 and k3 only where an F-test on the nested fits
    says the data support them (stated in the result). One plain least-squares pass; only when
-   it leaves outliers, a robust (soft-L1) pass flags them and the terms are chosen again without
-   them. Points whose residual exceeds n_sigma robust sigmas (MAD, Rousseeuw & Croux 1993) and a
+   it leaves outliers (judged on the MAD scale, which they cannot inflate) a second pass
+   without them, the terms chosen again. Points whose residual exceeds n_sigma robust sigmas (MAD, Rousseeuw & Croux 1993) and a
    floor in pixels are local defects.
 2. Per point: ideal position (fitted paraxial model: same centre, scale, aspect, skew and roll,
    no distortion), error = measured - ideal (px and mrad), residual = measured - full model,
@@ -453,7 +453,7 @@ def _verdicts(spec: Mapping[str, float] | None, figures: Mapping[str, tuple[floa
 def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeometry, sig_fit: np.ndarray | None,
                        terms: Sequence[str] | None, loss: str, n_sigma: float,
                        floor_px: float) -> tuple[FitModel, np.ndarray]:
-    """One plain pass (terms chosen by the data); a robust pass only when it leaves outliers.
+    """One plain pass (terms chosen by the data); a second only when it leaves outliers.
 
     Returns the model and the mask of points kept in the fit.
     """
@@ -476,14 +476,16 @@ def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeome
     r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
     out = _flag(r, s_px, _robust_scale(r[keep]), n_sigma, floor_px)
     if out.any() and not np.array_equal(~out, keep):
-        if loss == "linear":  # outliers in the plain pass: a robust pass finds them all
-            robust, rr = fit_camera_model(m_xy, m_dir, nominal, sigma_px=sig_fit, terms=model.fitted_terms,
-                                          loss="soft_l1", f_scale=3.0 if sig_fit is not None else 0.05,
-                                          start=model.geometry)
-            out = _flag(rr, s_px, _robust_scale(rr), n_sigma, floor_px)
+        # Outliers (flagged on the robust MAD scale, which they cannot inflate): fit again
+        # without them and flag once more against that model.
         keep = ~out
         if keep.sum() >= MIN_POINTS:
             model, _ = fit(keep)
+            r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
+            out = _flag(r, s_px, _robust_scale(r[keep]), n_sigma, floor_px)
+            if out.any() and not np.array_equal(~out, keep) and (~out).sum() >= MIN_POINTS:
+                keep = ~out
+                model, _ = fit(keep)
     return model, keep
 
 
