@@ -445,12 +445,13 @@ def _spots_from(raw: np.ndarray, resid: np.ndarray, window_px: int, method: str,
         bad = np.isneginf(raw_win[:, core[0]:core[1], core[0]:core[1]]).any(axis=(1, 2))
     else:
         bad = np.isneginf(raw_win).any(axis=(1, 2))
-    spots = []
-    none, nc, tr, sat, bp = SpotFlag.NONE, SpotFlag.NOT_CONVERGED, SpotFlag.TRUNCATED, SpotFlag.SATURATED, SpotFlag.BAD_PIXEL
-    for i in range(cx.size):
-        flags = (none if conv[i] else nc) | (tr if trunc[i] else none) | (sat if saturated[i] else none) | (bp if bad[i] else none)
-        spots.append(Spot(x=float(cx[i]), y=float(cy[i]), sigma_x=float(sx[i]), sigma_y=float(sy[i]),
-                          flux=float(flux[i]), peak=float(peak[i]), snr=float(snr[i]), flags=flags))
+    bits = (np.where(conv, 0, SpotFlag.NOT_CONVERGED.value) | np.where(trunc, SpotFlag.TRUNCATED.value, 0)
+            | np.where(saturated, SpotFlag.SATURATED.value, 0) | np.where(bad, SpotFlag.BAD_PIXEL.value, 0))
+    flag_of = {int(b): SpotFlag(int(b)) for b in np.unique(bits)}
+    spots = [Spot(x=x, y=y, sigma_x=a, sigma_y=b, flux=f, peak=pk, snr=q, flags=flag_of[fl])
+             for x, y, a, b, f, pk, q, fl in zip(cx.tolist(), cy.tolist(), np.asarray(sx, float).tolist(),
+                                                  np.asarray(sy, float).tolist(), np.asarray(flux, float).tolist(),
+                                                  peak.tolist(), np.asarray(snr, float).tolist(), bits.tolist())]
     return spots
 
 

@@ -477,15 +477,10 @@ def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeome
     out = _flag(r, s_px, _robust_scale(r[keep]), n_sigma, floor_px)
     if out.any() and not np.array_equal(~out, keep):
         # Outliers (flagged on the robust MAD scale, which they cannot inflate): fit again
-        # without them and flag once more against that model.
+        # without them; the defects are then flagged once more against that model.
         keep = ~out
         if keep.sum() >= MIN_POINTS:
             model, _ = fit(keep)
-            r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
-            out = _flag(r, s_px, _robust_scale(r[keep]), n_sigma, floor_px)
-            if out.any() and not np.array_equal(~out, keep) and (~out).sum() >= MIN_POINTS:
-                keep = ~out
-                model, _ = fit(keep)
     return model, keep
 
 

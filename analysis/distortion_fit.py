@@ -29,7 +29,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from analysis.geometry import BrownConrady, CameraGeometry, ideal_normalized
 
@@ -487,7 +487,7 @@ def select_terms(
             if dof1 <= 0 or rss1 <= 0:
                 continue
             f = max(0.0, (rss - rss1) / len(g)) / (rss1 / dof1)
-            p = float(stats.f.sf(f, len(g), dof1))
+            p = float(special.fdtrc(len(g), dof1, f))  # F-distribution survival function
             level = _level(g, alpha)
             if p < level:
                 trials.append((p / level, p, f, g, dof1, rss1))
