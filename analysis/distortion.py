@@ -701,7 +701,7 @@ def _spot_arrays(spots_or_xy: Sequence[Spot] | np.ndarray, sigma_px: np.ndarray 
         xy = np.asarray(spots_or_xy, dtype=float).reshape(-1, 2)
         sig = _sigma_or_nan(sigma_px, len(xy))
         return xy, sig
-    good = [s for s in spots_or_xy if not (s.flags & _UNUSABLE)]
+    good = [s for s in spots_or_xy if not (s.flags.value & _UNUSABLE.value)]
     xy = np.array([[s.x, s.y] for s in good], dtype=float).reshape(-1, 2)
     sig = np.array([[s.sigma_x, s.sigma_y] for s in good], dtype=float).reshape(-1, 2)
     if sigma_px is not None:
@@ -714,7 +714,7 @@ def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray
     if isinstance(spots, np.ndarray):
         return
     found = [s for s in spots if isinstance(s, Spot)]
-    bad = [s for s in found if s.flags & _UNUSABLE]
+    bad = [s for s in found if s.flags.value & _UNUSABLE.value]
     if found and len(bad) > MAX_FLAGGED_FRACTION * len(found):
         counts: dict[str, int] = {}
         for s in bad:
