@@ -212,3 +212,25 @@ def test_spec_verdicts_and_unknown_limit():
     assert res.passed is False
     with pytest.raises(ValueError, match="unknown distortion spec"):
         analyze_grid(noisy(truth, dirs), dirs, NOMINAL, spec={"max_wobble": 1.0})
+
+
+def test_refusals_instead_of_numbers():
+    """Data that cannot support a result end in DistortionRefused (a ValueError) with the cause."""
+    from analysis.distortion import DistortionRefused
+
+    truth = NOMINAL.replace(distortion=BrownConrady(k1=-0.3))
+    dirs = grid_directions(NOMINAL)
+    pts = noisy(truth, dirs)
+    # Residuals 2 px while the centroids claim 0.02 px: reduced chi-square ~1e4.
+    rough = pts + np.random.default_rng(1).normal(0, 2.0, pts.shape)
+    with pytest.raises(DistortionRefused, match="residuals"):
+        analyze_grid(rough, dirs, NOMINAL, sigma_px=NOISE, assume_matched=True)
+    # A data sheet 3x off in focal length: fx ends at the edge of its range (0.5-2x nominal).
+    wrong = NOMINAL.replace(focal_length_mm=NOMINAL.focal_length_mm / 3)
+    with pytest.raises(DistortionRefused, match="edge of the physical range of fx"):
+        analyze_grid(pts, dirs, wrong, sigma_px=NOISE, assume_matched=True)
+    # Too few points.
+    few = np.full_like(pts, np.nan)
+    few[:5] = pts[:5]
+    with pytest.raises(DistortionRefused, match="only 5 of"):
+        analyze_grid(few, dirs, NOMINAL, sigma_px=NOISE, assume_matched=True)
