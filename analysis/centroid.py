@@ -516,24 +516,8 @@ def detect_spots(
     pos = np.array([divmod(best[int(lab)], sm.shape[1]) for lab in index]).reshape(-1, 2)
     xs, ys = pos[:, 1].astype(float), pos[:, 0].astype(float)
     if window_px is None:
-        # Start from the components' size and widen to +/-3.5 fitted spot sigmas until the
-        # window holds the spots.
-        sizes = np.array([max(slices[lab - 1][0].stop - slices[lab - 1][0].start,
-                              slices[lab - 1][1].stop - slices[lab - 1][1].start) for lab in index])
-        window_px = int(min(61, max(7, int(np.median(sizes)) + 2))) | 1
-        for _ in range(4):
-            fit = _centroids(raw, resid, noise, xs, ys, window_px, method if method == "gauss" else "gauss",
-                             saturation, gain)
-            ok = fit[6] & ~fit[7]
-            s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
-            need = int(max(7, 2 * math.ceil(3.5 * s_spot) + 1))
-            if need <= window_px:
-                break
-            window_px = min(need, 61)
-        if method != "gauss":
-            fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
-    else:
-        fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
+        window_px = _window_from_probe(raw, resid, noise, xs, ys, slices, index, saturation, gain)
+    fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
     spots = _spots_from(raw, resid, window_px, method, saturation, fit)
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
@@ -555,6 +539,27 @@ def detect_spots(
             spot = replace(spot, flags=spot.flags | SpotFlag.MERGED)
         out.append(spot)
     return out
+
+
+def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
+                       slices: list, index: np.ndarray, saturation: float | None, gain: float | None,
+                       probe: int = 32) -> int:
+    """Odd window of +/-3.5 fitted spot sigmas (at least 7 px), from Gaussian fits of up to
+    `probe` spots spread through the list, widened until the window holds them."""
+    pick = np.unique(np.linspace(0, len(xs) - 1, min(probe, len(xs))).astype(int))
+    sizes = np.array([max(slices[lab - 1][0].stop - slices[lab - 1][0].start,
+                          slices[lab - 1][1].stop - slices[lab - 1][1].start) for lab in index[pick]])
+    window = int(min(61, max(7, int(np.median(sizes)) + 2))) | 1
+    need = window
+    for _ in range(4):
+        fit = _gauss_fit_batch(resid, noise, xs[pick], ys[pick], window, gain, raw=raw, saturation=saturation)
+        ok = fit[6] & ~fit[7]
+        s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
+        need = int(min(61, max(7, 2 * math.ceil(3.5 * s_spot) + 1)))
+        if need <= window:
+            break
+        window = need
+    return need
 
 
 def repair_isolated_pixels(
