@@ -157,14 +157,14 @@ def match_points(
     dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
     score = np.isfinite(dist).reshape(len(shifts), len(sub)).sum(axis=1)
     # A shift by a whole grid pitch also fits the middle: re-score the distinct leading shifts
-    # (at most 9) on points spread over the whole pattern (every k-th, at most 512), where
+    # (at most 48) on points spread over the whole pattern (every k-th, at most 512), where
     # the rows that fall off the detected pattern tell them apart.
     lead_all = np.nonzero(score >= 0.7 * score.max())[0]
     lead_all = lead_all[np.argsort(-score[lead_all], kind="stable")]
     # Distinct shifts: the best of each cell of 0.3 pitch (one vectorised pass).
     cells = np.round(shifts[lead_all] / (0.3 * pitch)).astype(np.int64)
     _, first = np.unique(cells, axis=0, return_index=True)
-    lead = lead_all[np.sort(first)][:9].tolist()  # the best and its 8 one-pitch neighbours
+    lead = lead_all[np.sort(first)][:48].tolist()
     lead_arr = np.array(lead)
     spread = exp[:: max(1, len(exp) // 512)]
     moved = (spread[None, :, :] + shifts[lead_arr][:, None, :]).reshape(-1, 2)
@@ -172,7 +172,9 @@ def match_points(
     full = np.isfinite(dist).reshape(len(lead_arr), len(spread)).sum(axis=1)
     lead = lead_arr
     order: list[int] = []
-    for h in lead[np.argsort(-full, kind="stable")]:
+    # Equal scores: a periodic grid with an edge row or column unseen fits one pitch off just as
+    # well; the expectation decides, so the smaller shift from the nominal place goes first.
+    for h in lead[np.lexsort((np.hypot(*shifts[lead].T), -full))]:
         # Distinct hypotheses only: the same shift found from another seed adds nothing.
         if all(np.hypot(*(shifts[h] - shifts[o])) > 0.3 * pitch for o in order):
             order.append(int(h))
@@ -201,7 +203,8 @@ def match_points(
         pairs = _mutual(tree_det, det, pred_xy, gate)
         res = det[pairs[:, 0]] - pred_xy[pairs[:, 1]]
         rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
-        if best is None or len(pairs) > best[0] or (len(pairs) == best[0] and rms < best[1]):
+        # More pairs wins; on a tie the hypothesis nearer the nominal place (see above).
+        if best is None or len(pairs) > best[0] or (len(pairs) == best[0] and abs(t) < abs(best[3][2])):
             best = (len(pairs), rms, pairs, (a, b, t))
         if len(pairs) >= 0.95 * min(len(det), len(exp)):
             break  # (nearly) everything paired: no other hypothesis can do better
