@@ -150,7 +150,9 @@ class FieldPoint:
 
     extrapolated: the place lies outside the measured field (hull of the measured points);
     beyond_px: its distance outside that hull in ideal image pixels (0 when measured);
-    beyond_percent: its radius beyond the largest measured radius, percent of that radius.
+    beyond_percent: its radius beyond the largest measured radius, percent of that radius;
+    sigma_all_terms_percent: its sigma with every term the points allow free (extrapolation
+    depends on terms the F-test may have left out).
     """
 
     name: str
@@ -163,12 +165,17 @@ class FieldPoint:
     sigma_percent: float = float("nan")
     beyond_px: float = 0.0
     beyond_percent: float = 0.0
+    sigma_all_terms_percent: float = float("nan")
 
     @property
     def basis(self) -> str:
         if not self.extrapolated:
             return "measured"
-        return f"extrapolated {self.beyond_px:.0f} px ({self.beyond_percent:.0f} % in radius) beyond the measured field"
+        text = f"extrapolated {self.beyond_px:.0f} px ({self.beyond_percent:.0f} % in radius) beyond the measured field"
+        if self.sigma_all_terms_percent > 1.2 * self.sigma_percent:
+            text += (f"; sigma {self.sigma_percent:.2g} % with the terms the data support, "
+                     f"{self.sigma_all_terms_percent:.2g} % with every term free")
+        return text
 
 
 @dataclass(frozen=True)
@@ -364,10 +371,14 @@ def _place_radial_percent(g: CameraGeometry) -> np.ndarray:
     return radial_distortion_percent(g.distortion, np.hypot(p[:, 0], p[:, 1]))
 
 
-def _field_points(model: FitModel, hull: Hull, r_meas_max: float) -> tuple[tuple[FieldPoint, ...], tuple[FieldPoint, ...]]:
+def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
+                  full: FitModel | None = None) -> tuple[tuple[FieldPoint, ...], tuple[FieldPoint, ...]]:
     """Corners and edge midpoints: fitted radial distortion, sigma, measured or extrapolated.
 
-    r_meas_max: largest measured undistorted normalized radius.
+    r_meas_max: largest measured undistorted normalized radius. full: the same data fitted with
+    every term the points allow; beyond the measured field a term the F-test left out may still
+    matter, so an extrapolated place also states its sigma under that model (for information;
+    its own sigma is the selected model's, which the pull tests check).
     """
     g = model.geometry
     p = _places_norm(g)
@@ -375,6 +386,7 @@ def _field_points(model: FitModel, hull: Hull, r_meas_max: float) -> tuple[tuple
     dist = radial_distortion_percent(g.distortion, r)
     sig = propagate(model, _place_radial_percent)
     beyond = hull.distance_outside(p) * g.fx
+    sig_all = propagate(full, _place_radial_percent) if full is not None else sig
     theta = np.degrees(_theta_of_radius(r, g.projection))
     px = _place_pixels(g)
     out = []
@@ -382,7 +394,8 @@ def _field_points(model: FitModel, hull: Hull, r_meas_max: float) -> tuple[tuple
         extrap = bool(beyond[i] > 0.5)  # more than half a pixel outside the measured field
         out.append(FieldPoint(name, float(px[i, 0]), float(px[i, 1]), float(r[i] * g.fx), float(theta[i]),
                               float(dist[i]), extrap, float(sig[i]), float(beyond[i]) if extrap else 0.0,
-                              float(max(0.0, 100.0 * (r[i] / r_meas_max - 1.0))) if extrap and r_meas_max > 0 else 0.0))
+                              float(max(0.0, 100.0 * (r[i] / r_meas_max - 1.0))) if extrap and r_meas_max > 0 else 0.0,
+                              float(sig_all[i])))
     return tuple(out[:4]), tuple(out[4:])
 
 
@@ -595,7 +608,14 @@ def _analyze(
     # The measured field: hull of the measured points in undistorted normalized coordinates.
     hull = Hull(ideal_n[have])
     r_meas_max_n = float(np.nanmax(np.where(have, r_ideal, np.nan)))
-    corners, edges = _field_points(model, hull, r_meas_max_n)
+    allowed = tuple(terms) if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
+    full = None
+    if set(allowed) - set(model.fitted_terms):
+        # Terms held fixed by the F-test: refit with all of them for the extrapolated figures.
+        sf = None if sig_fit is None else sig_fit[keep]
+        full, _ = fit_camera_model(m_xy[keep], m_dir[keep], nominal, sigma_px=sf, terms=allowed,
+                                   start=model.geometry)
+    corners, edges = _field_points(model, hull, r_meas_max_n, full)
     r_top = max([c.radius_px / geom.fx for c in corners] + [r_meas_max_n])
     rr = np.linspace(0.0, r_top, 256)
     rr = np.unique(np.append(rr, r_meas_max_n))

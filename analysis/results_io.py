@@ -95,6 +95,7 @@ def distortion_summary(result: DistortionResult) -> dict[str, Any]:
         "edges_percent": {c.name: c.distortion_percent for c in result.edges},
         "corners_extrapolated": any(c.extrapolated for c in result.corners),
         "field_points": {c.name: {"percent": c.distortion_percent, "sigma_percent": c.sigma_percent,
+                                  "sigma_all_terms_percent": c.sigma_all_terms_percent,
                                   "basis": c.basis, "extrapolated": c.extrapolated,
                                   "beyond_measured_field_px": c.beyond_px,
                                   "beyond_measured_radius_percent": c.beyond_percent,
