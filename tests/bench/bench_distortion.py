@@ -202,6 +202,19 @@ def main() -> None:
     t_fit = time.perf_counter() - t0
     print(f"   detect + centroid {t_det:.3f} s, match + fit + figures {t_fit:.3f} s, total {t_det + t_fit:.3f} s "
           f"(target < 1 s); {int(dres.points.measured.sum())} points, k1 {dres.model.distortion.k1:+.5f}")
+    from analysis.matching import match_points
+
+    times = {}
+    for name, sp, d, nom in (("15x11", detect_spots(img, saturation=truth.full_scale),
+                              collimator_directions(GRID.points_mm(), F_COLL), NOMINAL),
+                             ("61x45", spots, dirs, dnom)):
+        xy = np.array([[q.x, q.y] for q in sp])
+        exp = project(nom, d)
+        (t,), _ = interleaved([lambda: match_points(xy, exp)], repeats=5)
+        times[name] = (t, len(exp))
+    (t1, n1), (t2, n2) = times["15x11"], times["61x45"]
+    print(f"   matching: {t1 * 1e3:.1f} ms for {n1} points, {t2 * 1e3:.1f} ms for {n2}: "
+          f"time ~ points^{math.log(t2 / t1) / math.log(n2 / n1):.2f}")
 
     print("\n4. scan mode: centroid_at per pose on a 640x512 frame")
     from analysis.targets import SinglePinhole
