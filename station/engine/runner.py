@@ -95,9 +95,14 @@ def _place(problem: Problem) -> tuple[str, int, int]:
 
 
 def instrument_origins(station: StationConfig) -> tuple[list[str], list[str]]:
-    """(simulated roles, real roles) of a station, from the instruments' resources."""
+    """(simulated roles, real roles) of a station, from the instruments' resources.
+
+    A camera replaying recorded frames (`replay:`) runs on whatever clock the rest of the bench
+    needs: it counts as simulated, so a simulated bench replaying a run stays in simulated time.
+    """
     sim = [r for r, e in station.instruments.items()
-           if station.simulated and e.resource.startswith("sim")]
+           if station.simulated and (e.resource.startswith("sim")
+                                     or (r == "camera" and e.resource.startswith("replay:")))]
     return sim, [r for r in station.instruments if r not in sim]
 
 
