@@ -176,12 +176,16 @@ def safing_incomplete_block(events: Sequence[Mapping[str, Any]]) -> list[str]:
 def run_exit_code(state: str, cause: str) -> int:
     """Exit code of `run`: safing that left an instrument live gives SAFING_FAILED (it outranks
     every other outcome: a person must act); an instrument that did not answer gives
-    INSTRUMENT, as in `bench`."""
+    INSTRUMENT, as in `bench` (also when it made safing fail at preflight, before anything
+    moved: the console still shows what could not be safed)."""
     from station.engine.safing import INCOMPLETE_MARK
 
+    unreachable = state == "faulted" and any(mark in (cause or "") for mark in UNREACHABLE_MARKS)
+    if unreachable and (cause or "").startswith("preflight:"):
+        return exitcodes.INSTRUMENT  # nothing was moved: the bench is as it was before the run
     if state != "complete" and INCOMPLETE_MARK in (cause or ""):
         return exitcodes.SAFING_FAILED
-    if state == "faulted" and any(mark in (cause or "") for mark in UNREACHABLE_MARKS):
+    if unreachable:
         return exitcodes.INSTRUMENT
     return exitcodes.BY_STATE.get(state, exitcodes.FAULTED)
 
