@@ -37,7 +37,9 @@ def demo_truth(**geometry_changes):
 def frames(truth, seeds, n_avg=4):
     """A camera per seed: its own fixed pattern and bad pixels, and its own temporal noise."""
     for s in seeds:
-        r = CameraRenderer(truth, seed=100 + s)
+        # the fixed pattern and bad pixels come from the truth's own seed: one camera per seed
+        camera = type(truth)(**{**truth.__dict__, "seed": 100 + s})
+        r = CameraRenderer(camera, seed=100 + s)
         yield np.mean([r.render(SCENE, i).astype(np.float64) for i in range(n_avg)], axis=0)
 
 
