@@ -124,6 +124,7 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
     from drivers.errors import InstrumentError
     from station.cli.plan_view import folded_text, full_text
     from station.engine.bench import open_bench
+    from station.engine.prechecks import check_simulated_camera
     from station.engine.runner import load_inputs, make_clock
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
