@@ -31,7 +31,7 @@ OPTIONS = {
                               "which edge to measure: auto (the stronger), vertical (gives the "
                               "horizontal MTF) or horizontal (the vertical MTF)",
                               choices=("auto", "vertical", "horizontal")),
-    "roi_length": OptionSpec("roi_length", "count", 128,
+    "roi_length": OptionSpec("roi_length", "count", 400,
                              "region length along the edge, pixels (less if the edge is shorter)",
                              minimum=16),
     "roi_half_width": OptionSpec("roi_half_width", "count", 32,
@@ -52,7 +52,7 @@ def mtf_of_frame(image: np.ndarray, options: Mapping[str, OptionValue], *,
     orientation = options.get("orientation", "auto")
     roi = find_edge_roi(np.asarray(image, dtype=np.float64),
                         None if orientation == "auto" else orientation,  # type: ignore[arg-type]
-                        length_px=int(options.get("roi_length", 128)),  # type: ignore[arg-type]
+                        length_px=int(options.get("roi_length", 400)),  # type: ignore[arg-type]
                         half_width_px=int(options.get("roi_half_width", 32)))  # type: ignore
     rows, cols = np.shape(image)
     cx, cy = roi.x0 + roi.width / 2.0, roi.y0 + roi.height / 2.0
