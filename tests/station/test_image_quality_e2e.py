@@ -1,0 +1,145 @@
+"""The image-quality recipe end to end on the simulated bench, against the camera's truth.
+
+One in-process `nightbench run image-quality` (the built-in simulated bench, simulated time),
+then its results are compared with the simulated camera's truth file
+(station/data/demo_camera_truth.yaml, read through simulators.camera_truth; the analysis never
+reads it):
+- NETD: the truth states 50.0 mK at 30 C; the measurement must agree within 2 of its own
+  reported 1-sigma uncertainties (coverage factor k = 2, GUM JCGM 100:2008 6.3); sitf-sweep
+  (shortened with --set frames=8, hold=2 so the test stays fast) must agree with it within
+  their combined uncertainty (k = 2).
+- MTF at Nyquist at the centre: within 0.02 of the closed-form system MTF (diffraction x
+  Gaussian x pixel aperture, analysis.optics) at 0.5 cycles/pixel in the edge's direction.
+- Bad pixels: every planted pixel (dead, hot, noisy, non-responsive), positions equal to those
+  the renderer draws from the truth file's own seed.
+- Re-analysis (`nightbench analyze NAME RUN`) reproduces the run's own result files to 1e-9
+  (same frames, same code), and `analyze mtf --frame` on the saved edge frame reproduces the
+  run's centre MTF to 1e-9.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import io
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+import yaml
+
+from simulators.camera_render import CameraRenderer
+from simulators.camera_truth import truth_from_mapping
+from station.cli.main import main
+from station.inputs.config import BUILTIN_DIR
+
+SAME = 1e-9
+TRUTH = truth_from_mapping(yaml.safe_load((BUILTIN_DIR / "demo_camera_truth.yaml")
+                                          .read_text(encoding="utf-8")))
+
+
+def _run(root: Path, *args: str) -> Path:
+    runs = root / "runs"
+    with contextlib.redirect_stdout(io.StringIO()):
+        code = main(["run", *args, "--runs", str(runs), "--plain"])
+    assert code in (0, 1), code  # 1: the unit judged FAILED/MARGINAL is not a test failure
+    (folder,) = [p for p in runs.iterdir() if p.is_dir()]
+    return folder
+
+
+@pytest.fixture(scope="module")
+def iq_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    return _run(tmp_path_factory.mktemp("iq"), "image-quality")
+
+
+def _json(path: Path) -> dict:
+    return json.loads(path.read_text(encoding="utf-8"))
+
+
+def _numbers(a: object, b: object, where: str = "") -> None:
+    if isinstance(a, dict):
+        assert isinstance(b, dict) and set(a) == set(b), where
+        for k in a:
+            _numbers(a[k], b[k], f"{where}.{k}")
+    elif isinstance(a, list):
+        assert isinstance(b, list) and len(a) == len(b), where
+        for i, (x, y) in enumerate(zip(a, b)):
+            _numbers(x, y, f"{where}[{i}]")
+    elif isinstance(a, float):
+        if math.isnan(a):
+            assert isinstance(b, float) and math.isnan(b), where
+        else:
+            assert b == pytest.approx(a, abs=SAME, rel=SAME), where
+    else:
+        assert a == b, where
+
+
+def test_netd_recovers_the_truth_at_30c(iq_run: Path) -> None:
+    netd = _json(iq_run / "results" / "netd.json")
+    assert netd["conditions"]["source_c"] == 30.0 and netd["conditions"]["brackets_source"]
+    truth_mk = 1000.0 * TRUTH.netd_k  # 50.0 mK at netd_reference_c = 30 C
+    assert TRUTH.netd_reference_c == 30.0
+    assert abs(netd["netd_mk"] - truth_mk) <= 2.0 * netd["netd_sigma_mk"]
+    assert netd["bad_pixels_masked"] > 0
+
+
+def test_netd_from_sitf_sweep_agrees(iq_run: Path, tmp_path: Path) -> None:
+    sweep = _run(tmp_path, "sitf-sweep", "--set", "frames=8", "--set", "hold=2")
+    a = _json(iq_run / "results" / "netd.json")
+    b = _json(sweep / "results" / "netd.json")
+    assert b["conditions"]["source_c"] == 30.0 and b["conditions"]["brackets_source"]
+    assert abs(b["netd_mk"] - 1000.0 * TRUTH.netd_k) <= 2.0 * b["netd_sigma_mk"]
+    assert abs(a["netd_mk"] - b["netd_mk"]) <= 2.0 * math.hypot(a["netd_sigma_mk"],
+                                                               b["netd_sigma_mk"])
+
+
+def test_mtf_at_nyquist_matches_the_closed_form(iq_run: Path) -> None:
+    mtf = _json(iq_run / "results" / "mtf.json")
+    assert len(mtf["edges"]) == 3
+    for edge in mtf["edges"]:
+        # frequencies across the edge, at the edge's slant from the pixel axis
+        truth = float(TRUTH.system_mtf(0.5, edge["edge_angle_deg"]))
+        assert abs(edge["mtf_at_nyquist"] - truth) <= 0.02, edge["capture"]
+    fields = sorted(e["conditions"]["field_position"] for e in mtf["edges"])
+    assert fields[0] < 0.05 and fields[-1] > 0.4  # centre and through the field
+
+
+def test_every_planted_bad_pixel_is_found_where_the_truth_put_it(iq_run: Path) -> None:
+    found = _json(iq_run / "results" / "badpixels.json")
+    planted = CameraRenderer(TRUTH).bad_pixels.as_dict()  # from the truth file's own seed
+    width = TRUTH.geometry.width
+    for kind, flat in planted.items():
+        expected = sorted([int(i % width), int(i // width)] for i in flat)
+        assert sorted(found["positions_xy"][kind]) == expected, kind
+    total = sum(len(v) for v in planted.values())
+    assert found["bad_pixels"] == total
+    assert found["operability_percent"] == pytest.approx(100.0 * (1 - total / (640 * 512)))
+
+
+@pytest.mark.parametrize("name, files", [
+    ("netd", ["netd.json"]), ("mtf", ["mtf.json"]), ("noise3d", ["noise3d.json"]),
+    ("badpixels", ["badpixels.json"]), ("uniformity", ["uniformity.json"]),
+    ("sitf", ["sitf.json"]),
+])
+def test_reanalysis_reproduces_the_run(iq_run: Path, name: str, files: list[str]) -> None:
+    with contextlib.redirect_stdout(io.StringIO()):
+        assert main(["analyze", name, str(iq_run)]) in (0, 1)
+    again = sorted((iq_run / "reanalysis").iterdir(), key=lambda p: int(p.name))[-1]
+    for f in files:
+        _numbers(_json(iq_run / "results" / f), _json(again / "results" / f), f)
+
+
+def test_frame_captured_elsewhere_gives_the_runs_mtf(iq_run: Path, tmp_path: Path) -> None:
+    out = tmp_path / "out"
+    with contextlib.redirect_stdout(io.StringIO()):
+        code = main(["analyze", "mtf", "--frame", str(iq_run / "frames" / "edge_centre.avg.tif"),
+                     "--geometry", str(BUILTIN_DIR / "example_edge_geometry.yaml"),
+                     "--out", str(out)])
+    assert code == 0
+    run_edge = next(e for e in _json(iq_run / "results" / "mtf.json")["edges"]
+                    if e["capture"] == "edge_centre")
+    (alone,) = _json(out / "mtf.json")["edges"]
+    assert alone["mtf_at_nyquist"] == pytest.approx(run_edge["mtf_at_nyquist"], abs=SAME)
+    assert np.allclose(alone["mtf"], run_edge["mtf"], atol=SAME)
+    assert (out / "plots" / "mtf.png").is_file()
