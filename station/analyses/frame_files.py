@@ -74,10 +74,14 @@ def analyze_iq_frames(analysis: str, frames: Sequence[str | Path], geometry: str
             raise ValueError("mtf takes one --frame (a frame or a stack, averaged)")
         options = {k: spec.default for k, spec in mtf_glue.OPTIONS.items()}
         name = Path(frames[0]).stem
-        result = mtf_glue.mtf_of_frame(read_frame(frames[0], geom.shape), options,
-                                       pixel_pitch_um=nominal.pixel_pitch_um,
-                                       focal_length_mm=nominal.focal_length_mm,
-                                       conditions={"capture": name, "frame_file": str(frames[0])})
+        image = read_frame(frames[0], geom.shape)
+        try:
+            result = mtf_glue.mtf_of_frame(image, options, pixel_pitch_um=nominal.pixel_pitch_um,
+                                           focal_length_mm=nominal.focal_length_mm,
+                                           conditions={"capture": name,
+                                                       "frame_file": str(frames[0])})
+        except ValueError as exc:
+            raise ValueError(f"{frames[0]}: {exc}") from None
         limit = geom.spec.get("min_mtf_at_nyquist")
         verdict = mtf_glue.verdict_of([result], limit, {})
         mtf_glue.write_mtf(site, [result], [name], verdict, limit, geom.shape)
@@ -90,6 +94,14 @@ def analyze_iq_frames(analysis: str, frames: Sequence[str | Path], geometry: str
         raise ValueError(f"{geometry}: {analysis} needs target kind open_aperture (flat "
                          f"fields), not {geom.target.kind}")
     stacks = [read_stack(f, geom.shape) for f in frames]
+    try:
+        return _flat_analysis(analysis, frames, stacks, geom, site)
+    except ValueError as exc:
+        raise ValueError(f"{', '.join(str(f) for f in frames)}: {exc}") from None
+
+
+def _flat_analysis(analysis: str, frames: Sequence[str | Path], stacks: list[np.ndarray],
+                   geom: GeometrySpec, site: FolderSite) -> dict[str, JsonValue]:
     temps = geom.flat_temperatures_c
     conditions = ({"cool_c": temps[0], "warm_c": temps[1]} if temps else {})
     if analysis == "badpixels":

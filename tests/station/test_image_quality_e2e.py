@@ -132,3 +132,30 @@ def test_frame_captured_elsewhere_gives_the_runs_mtf(iq_run: Path, tmp_path: Pat
     assert alone["mtf_at_nyquist"] == pytest.approx(run_edge["mtf_at_nyquist"], abs=SAME)
     assert np.allclose(alone["mtf"], run_edge["mtf"], atol=SAME)
     assert (out / "plots" / "mtf.png").is_file()
+
+
+@pytest.mark.parametrize("analysis, shape, words", [
+    ("mtf", (512, 640), "no straight edge"),             # a flat frame has no edge
+    ("noise3d", (512, 640), "needs a stack of 2 or more frames"),
+    ("noise3d", (4, 100, 100), "geometry file says 512 x 640"),
+])
+def test_frames_from_elsewhere_that_do_not_fit_are_refused_clearly(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str], analysis: str,
+        shape: tuple[int, ...], words: str) -> None:
+    import tifffile
+
+    frame = tmp_path / "frame.tif"
+    rng = np.random.default_rng(0)
+    tifffile.imwrite(frame, (1000 + rng.normal(0, 5, shape)).astype(np.uint16),
+                     photometric="minisblack")
+    geometry = tmp_path / "g.yaml"
+    text = (BUILTIN_DIR / "example_edge_geometry.yaml").read_text(encoding="utf-8")
+    if analysis != "mtf":
+        text = text.replace("kind: slanted_edge", "kind: open_aperture").replace(
+            "  angle_deg: 5.0", "")
+    geometry.write_text(text, encoding="utf-8")
+    code = main(["analyze", analysis, "--frame", str(frame), "--geometry", str(geometry),
+                 "--out", str(tmp_path / "out")])
+    out = " ".join(capsys.readouterr().out.split())
+    assert code == 2 and str(frame) in out and words in out  # exitcodes.INVALID, file named
+    assert "Traceback" not in out
