@@ -32,6 +32,7 @@ def spec_findings(uut: UutSpec, sources: Mapping[str, SourceRef], fallback: Sour
     used = {s.analysis for s in analyze}
     problems: list[Problem] = []
     warnings: list[Problem] = []
+    unjudged: list[tuple[SourceRef, str, str]] = []
     for key in uut.spec_limits:
         where = sources.get(key, fallback)
         if key not in declared:
@@ -41,9 +42,13 @@ def spec_findings(uut: UutSpec, sources: Mapping[str, SourceRef], fallback: Sour
             problems.append(Problem(where, f"spec key '{key}' is not a quantity any analysis "
                                            "evaluates, so it could never be judged", hint))
         elif declared[key] not in used:
-            warnings.append(Problem(where, f"spec key '{key}' is not judged by this recipe (it "
-                                           f"is evaluated by the {declared[key]} analysis, "
-                                           "which the recipe does not run)"))
+            unjudged.append((where, key, declared[key]))
+    if unjudged:  # one line for all of them: a UUT file covers more than one recipe measures
+        listed = ", ".join(f"{key} ({name})" for _, key, name in unjudged)
+        warnings.append(Problem(unjudged[0][0], f"{len(unjudged)} spec key(s) not judged by "
+                                f"this recipe: {listed}",
+                                "their analyses are not in the recipe; add them to judge those "
+                                "limits"))
     for step in analyze:
         analysis = registry[step.analysis]
         planned = analysis.planned_conditions(step, steps)

@@ -74,17 +74,28 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
         with watching.console as live:
             live.start(len(inputs.plan.steps), inputs.estimate.total_s, **console_plan(inputs))
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
-        watching.finished(outcome.state, outcome.cause, str(run.path))
+        watching.finished(outcome.state, outcome.cause, str(run.path),
+                          outcome.safing_incomplete)
         close_manifest(run, manifest, outcome.state, outcome.cause, clock)
     run.release_writer_lock()
     _after_run(console, run.path)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False,
                   soft_wrap=True)
     if outcome.state != "complete":
-        for line in run_guard.safing_lines(run_guard.read_run_events(run.path), inputs.station):
+        events = run_guard.read_run_events(run.path)
+        for line in run_guard.safing_lines(events, inputs.station):
             console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+        _print_safing_incomplete(console, events)
     console.print(f"run folder: {run.path}", highlight=False, markup=False, soft_wrap=True)
     return _finish(console, outcome.state, outcome.cause, outcome.verdicts)
+
+
+def _print_safing_incomplete(console: Console, events: list[dict]) -> None:
+    """The loud block when safing left an instrument live (nothing when the bench is safe)."""
+    from station.cli import run_guard
+
+    for line in run_guard.safing_incomplete_block(events):
+        console.print(line, style="bold red", highlight=False, markup=False, soft_wrap=True)
 
 
 def _finish(console: Console, state: str, cause: str, verdicts: tuple[Verdict, ...]) -> int:
@@ -342,9 +353,10 @@ def cmd_resume(args: argparse.Namespace, console: Console) -> int:
     console.print(f"run {state}: {cause}", highlight=False, markup=False, soft_wrap=True)
     if state not in ("complete",):
         simulated = _was_simulated(path)
-        for line in run_guard.safing_lines(run_guard.read_run_events(path),
-                                           simulated=simulated):
+        events = run_guard.read_run_events(path)
+        for line in run_guard.safing_lines(events, simulated=simulated):
             console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+        _print_safing_incomplete(console, events)
     console.print(f"run folder: {path}", highlight=False, markup=False, soft_wrap=True)
     verdicts: tuple[Verdict, ...] = ()
     if state == "complete":
