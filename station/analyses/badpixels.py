@@ -9,7 +9,10 @@ stated with no uncertainty).
 
 from __future__ import annotations
 
+from pathlib import Path
+
 from analysis.badpixels import KINDS, SPEC_KEYS, BadPixelMap, write_mask_tiff
+from analysis.uut import UutSpec
 from analysis.verdicts import Verdict
 from sequences.plansteps import AnalyzeStep
 from station.analyses.common import judge_spec, write_result
@@ -23,8 +26,7 @@ NEED = CaptureNeed(targets=frozenset({"open_aperture"}), keep=frozenset({"stack"
                    why="flat fields at two source temperatures, kept as stacks")
 
 
-def write_bad_pixels(site: AnalysisSite, bad: BadPixelMap, uut_limits: object = None
-                     ) -> list:
+def write_bad_pixels(site: AnalysisSite, bad: BadPixelMap) -> list[Path]:
     """badpixels.json, badpixels.csv, bad_pixels.tif and badpixels.png into the site."""
     from analysis.iq_plots import plot_bad_pixels
 
@@ -40,7 +42,7 @@ def write_bad_pixels(site: AnalysisSite, bad: BadPixelMap, uut_limits: object = 
     return files
 
 
-def verdicts_of(bad: BadPixelMap, uut: object) -> list[Verdict]:
+def verdicts_of(bad: BadPixelMap, uut: UutSpec) -> list[Verdict]:
     values = {"max_bad_pixel_percent": bad.bad_percent,
               "min_operability_percent": bad.operability_percent,
               "max_cluster_size": float(bad.largest_cluster)}
@@ -48,7 +50,7 @@ def verdicts_of(bad: BadPixelMap, uut: object) -> list[Verdict]:
                 if k in bad.conditions}
     out = []
     for key, spec in SPEC_KEYS.items():
-        verdict = judge_spec(uut, spec, values[key], 0.0, measured)  # type: ignore[arg-type]
+        verdict = judge_spec(uut, spec, values[key], 0.0, measured)
         if verdict is not None:
             out.append(verdict)
     return out

@@ -12,8 +12,6 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-import numpy as np
-
 from analysis.badpixels import BadPixelMap, bad_pixel_map
 from station.analyses.registry import AnalysisFailed, AnalysisSite, JsonValue
 
@@ -91,7 +89,3 @@ def spec_source_c(spec_conditions: Mapping[str, Mapping[str, float]], key: str
     stated = spec_conditions.get(key, {})
     value = stated.get("source_c")
     return None if value is None else float(value)
-
-
-def stack_of(site: AnalysisSite, name: str) -> np.ndarray:
-    return site.load_stack(name)

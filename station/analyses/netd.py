@@ -11,7 +11,6 @@ cannot bracket the spec's source temperature (station/analyses/spec_check.py).
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping, Sequence
 
 from analysis.netd import SPEC_KEYS, measure_netd
