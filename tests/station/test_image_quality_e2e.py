@@ -9,6 +9,7 @@ reads it):
   built-in recipes that measure NETD: tests/station/test_netd_recipes.py.
 - MTF at Nyquist at the centre: within 0.02 of the closed-form system MTF (diffraction x
   Gaussian x pixel aperture, analysis.optics) at 0.5 cycles/pixel in the edge's direction.
+- 3-D noise: the random component equals the renderer's temporal noise (plus ADC rounding).
 - Bad pixels: every planted pixel (dead, hot, noisy, non-responsive), positions equal to those
   the renderer draws from the truth file's own seed.
 - Re-analysis (`nightbench analyze NAME RUN`) reproduces the run's own result files to 1e-9
@@ -104,6 +105,22 @@ def test_every_planted_bad_pixel_is_found_where_the_truth_put_it(iq_run: Path) -
     total = sum(len(v) for v in planted.values())
     assert found["bad_pixels"] == total
     assert found["operability_percent"] == pytest.approx(100.0 * (1 - total / (640 * 512)))
+
+
+def test_random_noise_component_is_the_cameras_temporal_noise(iq_run: Path) -> None:
+    noise = _json(iq_run / "results" / "noise3d.json")
+    # The renderer's temporal noise is white per pixel and frame: all of it lands in the random
+    # component tvh (D'Agostino & Webb 1991), plus the ADC's rounding q^2/12 (q = 1 count,
+    # Sheppard's correction; common practice). Bad pixels replaced by the mean of 8 neighbours
+    # carry noise / sqrt(8): that lowers tvh by at most sigma x (replaced / pixels) x 7/16.
+    expected = math.sqrt(TRUTH.temporal_noise_counts ** 2 + 1.0 / 12.0)
+    pixels = noise["rows"] * noise["cols"]
+    bias = expected * noise["conditions"]["bad_pixels_replaced"] / pixels * 7.0 / 16.0
+    tvh, u = noise["sigma_counts"]["tvh"], noise["sigma_uncertainty_counts"]["tvh"]
+    assert abs(tvh - expected) <= 3.0 * u + bias
+    # in mK through the SiTF at 30 C: the truth's 50 mK, within 0.5 % (the ADC rounding adds
+    # 0.09 %, the SiTF's statistical uncertainty is below 0.05 %)
+    assert noise["sigma_mk"]["tvh"] == pytest.approx(1000.0 * TRUTH.netd_k, rel=0.005)
 
 
 @pytest.mark.parametrize("name, files", [
