@@ -137,11 +137,12 @@ def test_run_ends_with_the_results_table_and_the_failed_unit_code(recorded) -> N
     table = out[out.index("what the run found"):]
     row = next(line for line in table.splitlines() if "netd_mk" in line)
     assert "FAIL" in row and "+/-" in row and "<= 1 mK" in row
-    # netd, bad pixels and three distortion keys of the demo UUT judged; only netd fails
-    assert out.rstrip().endswith("UUT FAILED (1 of 5)")
+    # netd, bad pixels, gain and offset non-uniformity and three distortion keys of the demo UUT
+    # judged; only netd fails
+    assert out.rstrip().endswith("UUT FAILED (1 of 7)")
     verdicts = _json(folder / "results" / "verdicts.json")
     assert verdicts["outcome"] == "FAILED" and verdicts["failed"] == 1
-    assert verdicts["judged"] == 5
+    assert verdicts["judged"] == 7
     assert verdicts["uut"]["serial"] == "DEMO-0042"
     keys = {v["key"]: v for v in verdicts["verdicts"]}
     assert {"netd_mk", "max_bad_pixel_percent", "max_distortion_percent"} <= set(keys)

@@ -9,6 +9,7 @@ reads it):
   built-in recipes that measure NETD: tests/station/test_netd_recipes.py.
 - MTF at Nyquist at the centre: within 0.02 of the closed-form system MTF (diffraction x
   Gaussian x pixel aperture, analysis.optics) at 0.5 cycles/pixel in the edge's direction.
+- Uniformity: the two-point gain non-uniformity equals the renderer's gain pattern.
 - 3-D noise: the random component equals the renderer's temporal noise (plus ADC rounding).
 - Bad pixels: every planted pixel (dead, hot, noisy, non-responsive), positions equal to those
   the renderer draws from the truth file's own seed.
@@ -121,6 +122,16 @@ def test_random_noise_component_is_the_cameras_temporal_noise(iq_run: Path) -> N
     # in mK through the SiTF at 30 C: the truth's 50 mK, within 0.5 % (the ADC rounding adds
     # 0.09 %, the SiTF's statistical uncertainty is below 0.05 %)
     assert noise["sigma_mk"]["tvh"] == pytest.approx(1000.0 * TRUTH.netd_k, rel=0.005)
+
+
+def test_gain_nonuniformity_is_the_cameras_gain_pattern(iq_run: Path) -> None:
+    u = _json(iq_run / "results" / "uniformity.json")
+    # The renderer draws each pixel's gain as 1 + gain_fpn_rel N(0, 1); the std of N pixels is
+    # uncertain by 1/sqrt(2 (N - 1)) relative (normal sample; common practice): 3 of those.
+    truth = 100.0 * TRUTH.gain_fpn_rel
+    rel = 1.0 / math.sqrt(2.0 * (u["pixels_used"] - 1))
+    assert abs(u["gain_nonuniformity_percent"] - truth) <= 3.0 * rel * truth
+    assert u["conditions"]["bad_pixels_excluded"] > 0
 
 
 @pytest.mark.parametrize("name, files", [
