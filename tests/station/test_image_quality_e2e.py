@@ -9,7 +9,8 @@ reads it):
   built-in recipes that measure NETD: tests/station/test_netd_recipes.py.
 - MTF at Nyquist at the centre: within 0.02 of the closed-form system MTF (diffraction x
   Gaussian x pixel aperture, analysis.optics) at 0.5 cycles/pixel in the edge's direction.
-- Uniformity: the two-point gain non-uniformity equals the renderer's gain pattern.
+- Uniformity: the two-point gain and offset non-uniformity equal the renderer's gain and offset
+  patterns.
 - 3-D noise: the random component equals the renderer's temporal noise (plus ADC rounding).
 - Bad pixels: every planted pixel (dead, hot, noisy, non-responsive), positions equal to those
   the renderer draws from the truth file's own seed.
@@ -28,6 +29,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import tifffile
 import yaml
 
 from simulators.camera_render import CameraRenderer
@@ -132,6 +134,12 @@ def test_gain_nonuniformity_is_the_cameras_gain_pattern(iq_run: Path) -> None:
     rel = 1.0 / math.sqrt(2.0 * (u["pixels_used"] - 1))
     assert abs(u["gain_nonuniformity_percent"] - truth) <= 3.0 * rel * truth
     assert u["conditions"]["bad_pixels_excluded"] > 0
+    # Offset: the renderer's offset map over the same good pixels. Within 1 %: 3 x 0.12 % for
+    # the sample std, plus the removal of the temporal noise left in the 16-frame means (a fifth
+    # of the level's variance here, itself known to about 0.1 %).
+    bad = tifffile.imread(iq_run / "results" / "bad_pixels.tif") != 0
+    offset = float(CameraRenderer(TRUTH).offset_map[~bad].std(ddof=1))
+    assert u["offset_nonuniformity_counts"] == pytest.approx(offset, rel=0.01)
 
 
 @pytest.mark.parametrize("name, files", [
@@ -170,8 +178,6 @@ def test_frame_captured_elsewhere_gives_the_runs_mtf(iq_run: Path, tmp_path: Pat
 def test_frames_from_elsewhere_that_do_not_fit_are_refused_clearly(
         tmp_path: Path, capsys: pytest.CaptureFixture[str], analysis: str,
         shape: tuple[int, ...], words: str) -> None:
-    import tifffile
-
     frame = tmp_path / "frame.tif"
     rng = np.random.default_rng(0)
     tifffile.imwrite(frame, (1000 + rng.normal(0, 5, shape)).astype(np.uint16),
