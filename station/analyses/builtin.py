@@ -7,7 +7,8 @@ Each module under station/analyses/ declares one :class:`~station.analyses.regis
 
 from __future__ import annotations
 
-from station.analyses import boresight, distortion, fov, netd, sitf, uniformity
+from station.analyses import (badpixels, boresight, distortion, fov, mtf, netd, noise3d, sitf,
+                              uniformity)
 from station.analyses.registry import Registry
 
 __all__ = ["builtin_registry"]
@@ -16,4 +17,5 @@ __all__ = ["builtin_registry"]
 def builtin_registry() -> Registry:
     """The built-in analyses by name (a new Registry each call: no shared state)."""
     return Registry([distortion.ANALYSIS, sitf.ANALYSIS, netd.ANALYSIS, uniformity.ANALYSIS,
-                     boresight.ANALYSIS, fov.ANALYSIS])
+                     boresight.ANALYSIS, fov.ANALYSIS, mtf.ANALYSIS,
+                     noise3d.ANALYSIS, badpixels.ANALYSIS])

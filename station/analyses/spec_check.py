@@ -78,12 +78,25 @@ def _differences(stated: Mapping[str, float], planned: Mapping[str, float]) -> s
     A planned blackbody difference is compared with the spec's source minus background.
     """
     out = []
+    source = stated.get("source_c")
+    if "difference_min_k" in planned and source is not None:
+        lo, hi = planned["difference_min_k"], planned["difference_max_k"]
+        out.append(f"flats set {lo:g} to {hi:g} K over the lab's reference, whose temperature "
+                   f"the recipe does not set: they bracket source_c = {source:g} only for a "
+                   f"reference between {source - hi:g} and {source - lo:g} C"
+                   + (f", and the background is that reference, not {stated['background_c']:g} C"
+                      if "background_c" in stated else ""))
+    if "source_min_c" in planned and source is not None:
+        lo, hi = planned["source_min_c"], planned["source_max_c"]
+        if not lo - TEMPERATURE_TOLERANCE_C <= source <= hi + TEMPERATURE_TOLERANCE_C:
+            out.append(f"flats at source temperatures {lo:g} to {hi:g} C, which do not bracket "
+                       f"source_c = {source:g} (the noise there would be extrapolated)")
     if "difference_k" in planned and "source_c" in stated and "background_c" in stated:
         spec_difference = stated["source_c"] - stated["background_c"]
         if abs(planned["difference_k"] - spec_difference) > DIFFERENCE_TOLERANCE_K:
             out.append(f"a {planned['difference_k']:g} K blackbody difference over the lab's "
                        f"reference (the spec's is {spec_difference:g} K)")
     for name, value in planned.items():
-        if name in stated and abs(stated[name] - value) > TEMPERATURE_TOLERANCE_C:
+        if name in stated and name in ("source_c", "background_c") and abs(stated[name] - value) > TEMPERATURE_TOLERANCE_C:
             out.append(f"{name} = {value:g}")
     return "; ".join(out)

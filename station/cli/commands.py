@@ -298,16 +298,25 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
     from station.cli.results_table import print_results
 
     if args.frame is not None:
-        if args.analysis != "distortion":
-            console.print("--frame works with distortion only (one grid frame); other analyses "
-                          "need a RUN_FOLDER")
+        from station.analyses.frame_files import FRAME_ANALYSES, analyze_iq_frames
+
+        if args.analysis not in ("distortion", *FRAME_ANALYSES):
+            console.print(f"--frame works with distortion, {', '.join(FRAME_ANALYSES)}; other "
+                          "analyses need a RUN_FOLDER")
             return exitcodes.INVALID
         if args.geometry is None:
             console.print("--frame needs --geometry (a file describing UUT, collimator and "
                           "target; see the README)")
             return exitcodes.INVALID
-        out = args.out or Path(args.frame).with_suffix("").parent / "distortion_out"
-        summary = analyze_frame_file(args.frame, args.geometry, out)
+        first = Path(args.frame[0])
+        out = args.out or first.with_suffix("").parent / f"{args.analysis}_out"
+        if args.analysis == "distortion":
+            if len(args.frame) != 1:
+                console.print("distortion takes one --frame")
+                return exitcodes.INVALID
+            summary = analyze_frame_file(first, args.geometry, out)
+        else:
+            summary = analyze_iq_frames(args.analysis, args.frame, args.geometry, out)
         _print_summary(console, summary)
         console.print(f"results in {out}", highlight=False, markup=False)
         return exitcodes.OK
