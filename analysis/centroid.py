@@ -526,13 +526,15 @@ def detect_spots(
         max_area_px = 4 * window_px * window_px
     # Two peaks in one component: only components holding two local maxima need the dip test.
     rr, cc = np.divmod(flat, sm.shape[1])
-    hh, ww = sm.shape
+    ww = sm.shape[1]
     v = sm.ravel()[flat]
+    sm_pad = np.pad(sm, 1, mode="edge").ravel()  # edge repeated, as clipped indices
+    centre = (rr + 1) * (ww + 2) + (cc + 1)
     is_max = np.ones(flat.size, dtype=bool)
     for dr in (-1, 0, 1):
         for dc in (-1, 0, 1):
             if dr or dc:
-                is_max &= v >= sm[np.clip(rr + dr, 0, hh - 1), np.clip(cc + dc, 0, ww - 1)]
+                is_max &= v >= sm_pad[centre + dr * (ww + 2) + dc]
     n_max = np.bincount(lab_of[is_max], minlength=n + 1)
     out: list[Spot] = []
     for lab, (r, c), spot in zip(index, pos, spots):
@@ -601,12 +603,14 @@ def repair_isolated_pixels(
     if flat.size == 0:
         return resid, none
     rr, cc = np.divmod(flat, w)
+    # Neighbours by flat offsets into the frame padded by its edge pixels (the edge repeated,
+    # as clipped indices would give): one gather per neighbour.
+    padded = np.pad(img, 1, mode="edge").ravel()
+    centre = (rr + 1) * (w + 2) + (cc + 1)
 
     def at(dr: int, dc: int) -> np.ndarray:  # neighbour values, edge pixels repeated
-        return img[np.clip(rr + dr, 0, h - 1), np.clip(cc + dc, 0, w - 1)]
+        return padded[centre + dr * (w + 2) + dc]
 
-    offsets = [(dr, dc) for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc]
-    neigh = np.stack([at(dr, dc) for dr, dc in offsets], axis=1)
     v = img.ravel()[flat]
     # The log-curvature test along the four lines through the pixel (pairs of opposite neighbours).
     v_lo = v - margin_sigma * noise
@@ -624,7 +628,8 @@ def repair_isolated_pixels(
     bad = hot | dead
     if not bad.any():
         return resid, none
-    med = np.median(neigh[bad], axis=1)
+    offsets = [dr * (w + 2) + dc for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc]
+    med = np.median(padded[centre[bad][:, None] + np.array(offsets)[None, :]], axis=1)
     out = img.copy()
     idx = (rr[bad], cc[bad])
     out[idx] = med
