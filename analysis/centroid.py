@@ -559,7 +559,7 @@ def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.
     for _ in range(4):
         # The probe needs the spot sigma to a few per cent only (it picks an odd window).
         fit = _gauss_fit_batch(resid, noise, xs[pick], ys[pick], window, gain, raw=raw,
-                               saturation=saturation, max_iter=10)
+                               saturation=saturation, max_iter=6)
         ok = fit[6] & ~fit[7]
         s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
         need = int(min(61, max(7, 2 * math.ceil(3.5 * s_spot) + 1)))
