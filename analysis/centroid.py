@@ -297,24 +297,26 @@ def _gauss_fit_batch(
     active = np.ones(n, dtype=bool)
     converged = np.zeros(n, dtype=bool)
     eye = np.eye(6)
+    lo_in, hi_in = lo + 1e-9, hi - 1e-9
     for _it in range(max_iter):
         if not active.any():
             break
         idx = np.nonzero(active)[0]
-        A, g = _normal_equations(U[idx], V[idx], res[idx], wgt[idx], full[idx])
+        sel = slice(None) if idx.size == n else idx  # views, not copies, while all are active
+        A, g = _normal_equations(U[sel], V[sel], res[sel], wgt[sel], full[sel])
         diag = np.einsum("nii->ni", A)
-        A_d = A + lam[idx, None, None] * diag[:, :, None] * eye
+        A_d = A + lam[sel, None, None] * diag[:, :, None] * eye
         try:
             step = np.linalg.solve(A_d, g[:, :, None])[:, :, 0]
         except np.linalg.LinAlgError:
             step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A_d, g)])
-        trial = np.clip(p[idx] + step, lo[idx] + 1e-9, hi[idx] - 1e-9)
+        trial = np.clip(p[sel] + step, lo_in[sel], hi_in[sel])
         # The trial's Jacobian factors come with its model (they share the erf pieces) and are
         # kept when the step is taken: one evaluation per iteration.
-        t_model, t_U, t_V = _SubBatch(trial, xf[idx], yf[idx], m).model_uv()
-        t_res = (data[idx] - t_model) * wgt[idx]
+        t_model, t_U, t_V = _SubBatch(trial, xf[sel], yf[sel], m).model_uv()
+        t_res = (data[sel] - t_model) * wgt[sel]
         t_cost = (t_res * t_res).sum(axis=(1, 2))
-        better = t_cost <= cost[idx]
+        better = t_cost <= cost[sel]
         ok = idx[better]
         moved = np.abs(trial[better] - p[ok])
         p[ok] = trial[better]
@@ -505,7 +507,6 @@ def detect_spots(
     labels, n = ndimage.label(mask, structure=np.ones((3, 3), dtype=bool))
     if n == 0:
         return []
-    slices = ndimage.find_objects(labels)
     flat = np.flatnonzero(mask)
     lab_of = labels.ravel()[flat]
     areas = np.bincount(lab_of, minlength=n + 1)[1:]
@@ -514,7 +515,14 @@ def detect_spots(
         return []
     # Brightest smoothed pixel of each component (one sort of the above-threshold pixels).
     order = np.lexsort((-sm.ravel()[flat], lab_of))
-    first = order[np.r_[True, lab_of[order][1:] != lab_of[order][:-1]]]
+    starts = np.flatnonzero(np.r_[True, lab_of[order][1:] != lab_of[order][:-1]])
+    first = order[starts]
+    # Bounding boxes of the components from the same sort (labels 1..n, in order).
+    rr, cc = np.divmod(flat, sm.shape[1])
+    r_lo, r_hi = np.minimum.reduceat(rr[order], starts), np.maximum.reduceat(rr[order], starts) + 1
+    c_lo, c_hi = np.minimum.reduceat(cc[order], starts), np.maximum.reduceat(cc[order], starts) + 1
+    slices = [(slice(a, b), slice(c, d)) for a, b, c, d in
+              zip(r_lo.tolist(), r_hi.tolist(), c_lo.tolist(), c_hi.tolist())]
     best = dict(zip(lab_of[first].tolist(), flat[first].tolist()))
     pos = np.array([divmod(best[int(lab)], sm.shape[1]) for lab in index]).reshape(-1, 2)
     xs, ys = pos[:, 1].astype(float), pos[:, 0].astype(float)
@@ -525,7 +533,6 @@ def detect_spots(
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
     # Two peaks in one component: only components holding two local maxima need the dip test.
-    rr, cc = np.divmod(flat, sm.shape[1])
     ww = sm.shape[1]
     v = sm.ravel()[flat]
     sm_pad = np.pad(sm, 1, mode="edge").ravel()  # edge repeated, as clipped indices
