@@ -533,15 +533,15 @@ def detect_spots(
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
     # Two peaks in one component: only components holding two local maxima need the dip test.
-    ww = sm.shape[1]
-    v = sm.ravel()[flat]
-    sm_pad = np.pad(sm, 1, mode="edge").ravel()  # edge repeated, as clipped indices
-    centre = (rr + 1) * (ww + 2) + (cc + 1)
+    hh, ww = sm.shape
+    sm_flat = sm.ravel()
+    v = sm_flat[flat]
     is_max = np.ones(flat.size, dtype=bool)
     for dr in (-1, 0, 1):
+        row = np.clip(rr + dr, 0, hh - 1) * ww
         for dc in (-1, 0, 1):
             if dr or dc:
-                is_max &= v >= sm_pad[centre + dr * (ww + 2) + dc]
+                is_max &= v >= sm_flat[row + np.clip(cc + dc, 0, ww - 1)]
     n_max = np.bincount(lab_of[is_max], minlength=n + 1)
     out: list[Spot] = []
     for lab, (r, c), spot in zip(index, pos, spots):
@@ -610,13 +610,13 @@ def repair_isolated_pixels(
     if flat.size == 0:
         return resid, none
     rr, cc = np.divmod(flat, w)
-    # Neighbours by flat offsets into the frame padded by its edge pixels (the edge repeated,
-    # as clipped indices would give): one gather per neighbour.
-    padded = np.pad(img, 1, mode="edge").ravel()
-    centre = (rr + 1) * (w + 2) + (cc + 1)
+    # Neighbours by flat indices (row and column clipped once each): one 1-D gather per neighbour.
+    pixels = img.ravel()
+    row_at = {dr: np.clip(rr + dr, 0, h - 1) * w for dr in (-1, 0, 1)}
+    col_at = {dc: np.clip(cc + dc, 0, w - 1) for dc in (-1, 0, 1)}
 
     def at(dr: int, dc: int) -> np.ndarray:  # neighbour values, edge pixels repeated
-        return padded[centre + dr * (w + 2) + dc]
+        return pixels[row_at[dr] + col_at[dc]]
 
     v = img.ravel()[flat]
     # The log-curvature test along the four lines through the pixel (pairs of opposite neighbours).
@@ -635,8 +635,8 @@ def repair_isolated_pixels(
     bad = hot | dead
     if not bad.any():
         return resid, none
-    offsets = [dr * (w + 2) + dc for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc]
-    med = np.median(padded[centre[bad][:, None] + np.array(offsets)[None, :]], axis=1)
+    neigh = np.stack([at(dr, dc)[bad] for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc], axis=1)
+    med = np.median(neigh, axis=1)
     out = img.copy()
     idx = (rr[bad], cc[bad])
     out[idx] = med
