@@ -44,7 +44,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analysis.centroid import Spot, SpotFlag
-from analysis.distortion_figures import Hull, local_distortion_percent, propagate
+from analysis.distortion_figures import Hull, local_distortion_percent, local_distortion_percent_models, propagate
 from analysis.distortion_fit import (
     ALL_TERMS,
     DistortionRefused,
@@ -671,7 +671,9 @@ def _analyze(
     k = int(np.argmax(np.abs(pct)))
     at = samples[k]
     max_d = float(pct[k])
-    max_sig = float(propagate(model, lambda g: local_distortion_percent(g.distortion, at[None, :]))[0])
+    max_sig = float(propagate(model, lambda g: local_distortion_percent(g.distortion, at[None, :]),
+                              many=lambda gs: local_distortion_percent_models([g.distortion for g in gs],
+                                                                              at[None, :]))[0])
     at_px = _ideal_to_pixels(geom, at[None, :])[0]
     max_at = (float(at_px[0]), float(at_px[1]))
     near = np.where(have, np.hypot(*(ideal - at_px).T), np.inf)
