@@ -157,7 +157,9 @@ def dense_frame():
     base = demo_truth(defects=())
     g = base.geometry.replace(width=2560, height=2048, pixel_pitch_um=4.25, cx=base.geometry.cx * 4,
                               cy=base.geometry.cy * 4)
-    truth = type(base)(**{**base.__dict__, "geometry": g})
+    # 4.25 um pixels: the blur spot must stay above the diffraction spot (about 1.0 px at these
+    # pixels; the truth refuses a sharper one), so 1.2 px.
+    truth = type(base)(**{**base.__dict__, "geometry": g, "blur_sigma_px": 1.2})
     grid = PinholeGrid(rows=45, cols=61, pitch_mm=3.2, diameter_mm=0.5)
     scene = SceneState(source_c=60.0, plate_c=20.0, target=grid, collimator_focal_mm=F_COLL)
     img = CameraRenderer(truth, seed=1).render(scene, 0).astype(np.float64)
