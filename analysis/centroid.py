@@ -232,7 +232,7 @@ def _edge_pieces(centre: np.ndarray, sigma: np.ndarray, start: np.ndarray, size:
 def _gauss_fit_batch(
     resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray, window_px: int,
     gain: float | None, s0: np.ndarray | None = None, mask: np.ndarray | None = None,
-    max_iter: int = 40, raw: np.ndarray | None = None, saturation: float | None = None,
+    max_iter: int = 20, raw: np.ndarray | None = None, saturation: float | None = None,
 ) -> tuple[np.ndarray, ...]:
     """Pixel-integrated Gaussian fits of many spots at once (Levenberg-Marquardt, per spot).
 
@@ -242,6 +242,9 @@ def _gauss_fit_batch(
     the raw frame, whose repaired (-inf) and saturated pixels are left out.
     Windows are centred on round(xs, ys); pixels outside the frame are left out and flagged.
     Returns x, y, sigma_x, sigma_y, flux, snr, converged, truncated, fitted spot sigma (arrays).
+    A well-posed spot converges in 4-8 iterations from the moment start; max_iter only bounds
+    the ill-posed ones (core pixel left out, spot at the window edge), which stay flagged
+    NOT_CONVERGED whatever the cap.
     """
     h_img, w_img = resid.shape
     n = xs.size
@@ -294,26 +297,31 @@ def _gauss_fit_batch(
     active = np.ones(n, dtype=bool)
     converged = np.zeros(n, dtype=bool)
     eye = np.eye(6)
+    lo_in, hi_in = lo + 1e-9, hi - 1e-9
     for _it in range(max_iter):
         if not active.any():
             break
         idx = np.nonzero(active)[0]
-        A, g = _normal_equations(U[idx], V[idx], res[idx], wgt[idx], full[idx])
+        sel = slice(None) if idx.size == n else idx  # views, not copies, while all are active
+        A, g = _normal_equations(U[sel], V[sel], res[sel], wgt[sel], full[sel])
         diag = np.einsum("nii->ni", A)
-        A_d = A + lam[idx, None, None] * diag[:, :, None] * eye
+        A_d = A + lam[sel, None, None] * diag[:, :, None] * eye
         try:
             step = np.linalg.solve(A_d, g[:, :, None])[:, :, 0]
         except np.linalg.LinAlgError:
             step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A_d, g)])
-        trial = np.clip(p[idx] + step, lo[idx] + 1e-9, hi[idx] - 1e-9)
-        t_model = _SubBatch(trial, xf[idx], yf[idx], m).model()
-        t_res = (data[idx] - t_model) * wgt[idx]
+        trial = np.clip(p[sel] + step, lo_in[sel], hi_in[sel])
+        # The trial's Jacobian factors come with its model (they share the erf pieces) and are
+        # kept when the step is taken: one evaluation per iteration.
+        t_model, t_U, t_V = _SubBatch(trial, xf[sel], yf[sel], m).model_uv()
+        t_res = (data[sel] - t_model) * wgt[sel]
         t_cost = (t_res * t_res).sum(axis=(1, 2))
-        better = t_cost <= cost[idx]
+        better = t_cost <= cost[sel]
         ok = idx[better]
         moved = np.abs(trial[better] - p[ok])
         p[ok] = trial[better]
         cost[ok] = t_cost[better]
+        U[ok], V[ok], res[ok] = t_U[better], t_V[better], t_res[better]
         lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
         lam[idx[~better]] *= 10.0
         # Converged when the centre moves less than 1e-4 px (a small fraction of any centroid
@@ -328,11 +336,8 @@ def _gauss_fit_batch(
         converged[stuck] = True
         active[done] = False
         active[stuck] = False
-        if ok.size:
-            mdl, U[ok], V[ok] = _SubBatch(p[ok], xf[ok], yf[ok], m).model_uv()
-            res[ok] = (data[ok] - mdl) * wgt[ok]
-    model, U, V = _SubBatch(p, xf, yf, m).model_uv()
     if gain:
+        model = _SubBatch(p, xf, yf, m).model()
         var = noise * noise + np.clip(model - p[:, 5][:, None, None], 0, None) / gain
         A, _ = _normal_equations(U, V, res, wgt / np.sqrt(var), np.ones(n, dtype=bool))
     else:
@@ -502,7 +507,6 @@ def detect_spots(
     labels, n = ndimage.label(mask, structure=np.ones((3, 3), dtype=bool))
     if n == 0:
         return []
-    slices = ndimage.find_objects(labels)
     flat = np.flatnonzero(mask)
     lab_of = labels.ravel()[flat]
     areas = np.bincount(lab_of, minlength=n + 1)[1:]
@@ -511,7 +515,14 @@ def detect_spots(
         return []
     # Brightest smoothed pixel of each component (one sort of the above-threshold pixels).
     order = np.lexsort((-sm.ravel()[flat], lab_of))
-    first = order[np.r_[True, lab_of[order][1:] != lab_of[order][:-1]]]
+    starts = np.flatnonzero(np.r_[True, lab_of[order][1:] != lab_of[order][:-1]])
+    first = order[starts]
+    # Bounding boxes of the components from the same sort (labels 1..n, in order).
+    rr, cc = np.divmod(flat, sm.shape[1])
+    r_lo, r_hi = np.minimum.reduceat(rr[order], starts), np.maximum.reduceat(rr[order], starts) + 1
+    c_lo, c_hi = np.minimum.reduceat(cc[order], starts), np.maximum.reduceat(cc[order], starts) + 1
+    slices = [(slice(a, b), slice(c, d)) for a, b, c, d in
+              zip(r_lo.tolist(), r_hi.tolist(), c_lo.tolist(), c_hi.tolist())]
     best = dict(zip(lab_of[first].tolist(), flat[first].tolist()))
     pos = np.array([divmod(best[int(lab)], sm.shape[1]) for lab in index]).reshape(-1, 2)
     xs, ys = pos[:, 1].astype(float), pos[:, 0].astype(float)
@@ -522,14 +533,15 @@ def detect_spots(
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
     # Two peaks in one component: only components holding two local maxima need the dip test.
-    rr, cc = np.divmod(flat, sm.shape[1])
     hh, ww = sm.shape
-    v = sm.ravel()[flat]
+    sm_flat = sm.ravel()
+    v = sm_flat[flat]
     is_max = np.ones(flat.size, dtype=bool)
     for dr in (-1, 0, 1):
+        row = np.clip(rr + dr, 0, hh - 1) * ww
         for dc in (-1, 0, 1):
             if dr or dc:
-                is_max &= v >= sm[np.clip(rr + dr, 0, hh - 1), np.clip(cc + dc, 0, ww - 1)]
+                is_max &= v >= sm_flat[row + np.clip(cc + dc, 0, ww - 1)]
     n_max = np.bincount(lab_of[is_max], minlength=n + 1)
     out: list[Spot] = []
     for lab, (r, c), spot in zip(index, pos, spots):
@@ -552,7 +564,9 @@ def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.
     window = int(min(61, max(7, int(np.median(sizes)) + 2))) | 1
     need = window
     for _ in range(4):
-        fit = _gauss_fit_batch(resid, noise, xs[pick], ys[pick], window, gain, raw=raw, saturation=saturation)
+        # The probe needs the spot sigma to a few per cent only (it picks an odd window).
+        fit = _gauss_fit_batch(resid, noise, xs[pick], ys[pick], window, gain, raw=raw,
+                               saturation=saturation, max_iter=6)
         ok = fit[6] & ~fit[7]
         s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
         need = int(min(61, max(7, 2 * math.ceil(3.5 * s_spot) + 1)))
@@ -596,12 +610,14 @@ def repair_isolated_pixels(
     if flat.size == 0:
         return resid, none
     rr, cc = np.divmod(flat, w)
+    # Neighbours by flat indices (row and column clipped once each): one 1-D gather per neighbour.
+    pixels = img.ravel()
+    row_at = {dr: np.clip(rr + dr, 0, h - 1) * w for dr in (-1, 0, 1)}
+    col_at = {dc: np.clip(cc + dc, 0, w - 1) for dc in (-1, 0, 1)}
 
     def at(dr: int, dc: int) -> np.ndarray:  # neighbour values, edge pixels repeated
-        return img[np.clip(rr + dr, 0, h - 1), np.clip(cc + dc, 0, w - 1)]
+        return pixels[row_at[dr] + col_at[dc]]
 
-    offsets = [(dr, dc) for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc]
-    neigh = np.stack([at(dr, dc) for dr, dc in offsets], axis=1)
     v = img.ravel()[flat]
     # The log-curvature test along the four lines through the pixel (pairs of opposite neighbours).
     v_lo = v - margin_sigma * noise
@@ -619,7 +635,8 @@ def repair_isolated_pixels(
     bad = hot | dead
     if not bad.any():
         return resid, none
-    med = np.median(neigh[bad], axis=1)
+    neigh = np.stack([at(dr, dc)[bad] for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc], axis=1)
+    med = np.median(neigh, axis=1)
     out = img.copy()
     idx = (rr[bad], cc[bad])
     out[idx] = med

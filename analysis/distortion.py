@@ -44,7 +44,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analysis.centroid import Spot, SpotFlag
-from analysis.distortion_figures import Hull, local_distortion_percent, propagate
+from analysis.distortion_figures import Hull, local_distortion_percent, local_distortion_percent_models, propagate
 from analysis.distortion_fit import (
     ALL_TERMS,
     DistortionRefused,
@@ -351,24 +351,66 @@ def _places_norm(g: CameraGeometry) -> np.ndarray:
 
 
 def _undistort(xy: np.ndarray, d: BrownConrady) -> np.ndarray:
-    """Inverse Brown-Conrady by fixed-point iteration (as cv2.undistortPoints), to 1e-13."""
-    xd, yd = xy[:, 0], xy[:, 1]
+    """Inverse Brown-Conrady to 1e-13 (see _undistort_xy)."""
+    x, y = _undistort_xy(xy[:, 0], xy[:, 1], d.k1, d.k2, d.k3, d.p1, d.p2)
+    return np.column_stack([x, y])
+
+
+def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2) -> tuple[np.ndarray, np.ndarray]:
+    """Inverse Brown-Conrady to 1e-13: Newton's method on D(p) = p_d with the analytic 2x2
+    Jacobian of the map (quadratic convergence, 3-5 steps for camera lenses); the fixed-point
+    iteration of cv2.undistortPoints takes over where Newton does not settle. The
+    coefficients may be arrays broadcasting against the points (many models at once)."""
+    x, y = xd.copy(), yd.copy()
+    with np.errstate(all="ignore"):
+        for _ in range(12):
+            r2 = x * x + y * y
+            radial = 1.0 + r2 * (k1 + r2 * (k2 + r2 * k3))
+            d_rad = k1 + r2 * (2.0 * k2 + 3.0 * r2 * k3)  # d radial / d r^2
+            fx = x * radial + 2.0 * p1 * x * y + p2 * (r2 + 2.0 * x * x) - xd
+            fy = y * radial + p1 * (r2 + 2.0 * y * y) + 2.0 * p2 * x * y - yd
+            a = radial + 2.0 * x * x * d_rad + 2.0 * p1 * y + 6.0 * p2 * x
+            b = 2.0 * x * y * d_rad + 2.0 * p1 * x + 2.0 * p2 * y
+            c = radial + 2.0 * y * y * d_rad + 6.0 * p1 * y + 2.0 * p2 * x
+            det = a * c - b * b  # the Jacobian is symmetric: [[a, b], [b, c]]
+            sx = (c * fx - b * fy) / det
+            sy = (a * fy - b * fx) / det
+            x, y = x - sx, y - sy
+            step = max(float(np.max(np.abs(sx), initial=0.0)), float(np.max(np.abs(sy), initial=0.0)))
+            if step < 1e-13:
+                return x, y
+            if not np.isfinite(step):
+                break
     x, y = xd.copy(), yd.copy()
     for _ in range(100):
         r2 = x * x + y * y
-        radial = 1.0 + r2 * (d.k1 + r2 * (d.k2 + r2 * d.k3))
-        nx = (xd - (2.0 * d.p1 * x * y + d.p2 * (r2 + 2.0 * x * x))) / radial
-        ny = (yd - (d.p1 * (r2 + 2.0 * y * y) + 2.0 * d.p2 * x * y)) / radial
+        radial = 1.0 + r2 * (k1 + r2 * (k2 + r2 * k3))
+        nx = (xd - (2.0 * p1 * x * y + p2 * (r2 + 2.0 * x * x))) / radial
+        ny = (yd - (p1 * (r2 + 2.0 * y * y) + 2.0 * p2 * x * y)) / radial
         done = max(float(np.max(np.abs(nx - x))), float(np.max(np.abs(ny - y)))) < 1e-13
         x, y = nx, ny
         if done:
             break
-    return np.column_stack([x, y])
+    return x, y
 
 
 def _place_radial_percent(g: CameraGeometry) -> np.ndarray:
     p = _places_norm(g)
     return radial_distortion_percent(g.distortion, np.hypot(p[:, 0], p[:, 1]))
+
+
+def _place_radial_percent_many(geoms: Sequence[CameraGeometry]) -> np.ndarray:
+    """_place_radial_percent of many models at once (G, 8): one undistortion for all of them
+    (the delta method evaluates the same figure for every perturbed term)."""
+    px = _place_pixels(geoms[0])  # same detector for every model
+    col = lambda f: np.array([f(g) for g in geoms])[:, None]  # noqa: E731
+    cx, cy = col(lambda g: g.principal_point[0]), col(lambda g: g.principal_point[1])
+    yn = (px[None, :, 1] - cy) / col(lambda g: g.fy)
+    xn = (px[None, :, 0] - cx) / col(lambda g: g.fx) - col(lambda g: math.tan(math.radians(g.skew_deg))) * yn
+    k1, k2, k3 = col(lambda g: g.distortion.k1), col(lambda g: g.distortion.k2), col(lambda g: g.distortion.k3)
+    x, y = _undistort_xy(xn, yn, k1, k2, k3, col(lambda g: g.distortion.p1), col(lambda g: g.distortion.p2))
+    r2 = x * x + y * y
+    return 100.0 * r2 * (k1 + r2 * (k2 + r2 * k3))
 
 
 def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
@@ -384,9 +426,9 @@ def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
     p = _places_norm(g)
     r = np.hypot(p[:, 0], p[:, 1])
     dist = radial_distortion_percent(g.distortion, r)
-    sig = propagate(model, _place_radial_percent)
+    sig = propagate(model, _place_radial_percent, many=_place_radial_percent_many)
     beyond = hull.distance_outside(p) * g.fx
-    sig_all = propagate(full, _place_radial_percent) if full is not None else sig
+    sig_all = propagate(full, _place_radial_percent, many=_place_radial_percent_many) if full is not None else sig
     theta = np.degrees(_theta_of_radius(r, g.projection))
     px = _place_pixels(g)
     out = []
@@ -629,7 +671,9 @@ def _analyze(
     k = int(np.argmax(np.abs(pct)))
     at = samples[k]
     max_d = float(pct[k])
-    max_sig = float(propagate(model, lambda g: local_distortion_percent(g.distortion, at[None, :]))[0])
+    max_sig = float(propagate(model, lambda g: local_distortion_percent(g.distortion, at[None, :]),
+                              many=lambda gs: local_distortion_percent_models([g.distortion for g in gs],
+                                                                              at[None, :]))[0])
     at_px = _ideal_to_pixels(geom, at[None, :])[0]
     max_at = (float(at_px[0]), float(at_px[1]))
     near = np.where(have, np.hypot(*(ideal - at_px).T), np.inf)

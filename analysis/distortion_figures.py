@@ -21,7 +21,7 @@ from scipy.spatial import ConvexHull, QhullError
 from analysis.distortion_fit import FitModel, _values, geometry_from_values
 from analysis.geometry import BrownConrady, CameraGeometry, apply_brown_conrady
 
-__all__ = ["local_distortion_percent", "propagate", "hull_of", "Hull"]
+__all__ = ["local_distortion_percent", "local_distortion_percent_models", "propagate", "hull_of", "Hull"]
 
 
 def local_distortion_percent(d: BrownConrady, xy_norm: np.ndarray) -> np.ndarray:
@@ -38,22 +38,48 @@ def local_distortion_percent(d: BrownConrady, xy_norm: np.ndarray) -> np.ndarray
         return np.where(r > 1e-12, 100.0 * (rd - r) / np.where(r > 1e-12, r, 1.0), 0.0)
 
 
-def propagate(model: FitModel, figure: Callable[[CameraGeometry], np.ndarray]) -> np.ndarray:
+def local_distortion_percent_models(models: list[BrownConrady], xy_norm: np.ndarray) -> np.ndarray:
+    """local_distortion_percent of many distortion models at the same points: (models, points),
+    one vectorised evaluation (the delta method's perturbed models).
+
+    >>> local_distortion_percent_models([BrownConrady(k1=-0.25)], np.array([[0.2, 0.0]])).round(6).tolist()
+    [[-1.0]]
+    """
+    p = np.asarray(xy_norm, dtype=float).reshape(-1, 2)
+    col = lambda name: np.array([getattr(d, name) for d in models])[:, None]  # noqa: E731
+    k1, k2, k3, p1, p2 = col("k1"), col("k2"), col("k3"), col("p1"), col("p2")
+    x, y = p[None, :, 0], p[None, :, 1]
+    r2 = x * x + y * y
+    radial = 1.0 + r2 * (k1 + r2 * (k2 + r2 * k3))
+    xd = x * radial + 2.0 * p1 * x * y + p2 * (r2 + 2.0 * x * x)  # Brown-Conrady, as apply_brown_conrady
+    yd = y * radial + p1 * (r2 + 2.0 * y * y) + 2.0 * p2 * x * y
+    r = np.sqrt(r2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(r > 1e-12, 100.0 * (np.hypot(xd, yd) - r) / np.where(r > 1e-12, r, 1.0), 0.0)
+
+
+def propagate(model: FitModel, figure: Callable[[CameraGeometry], np.ndarray],
+              many: Callable[[list[CameraGeometry]], np.ndarray] | None = None) -> np.ndarray:
     """1-sigma of figure(geometry) (a scalar or an array) from the fit covariance (delta method;
-    forward differences with steps of 1e-3 sigma, so the curvature error is negligible)."""
-    base = np.atleast_1d(np.asarray(figure(model.geometry), dtype=float))
+    forward differences with steps of 1e-3 sigma, so the curvature error is negligible).
+    many: the same figure for a list of geometries at once (rows), to evaluate the base and
+    every perturbed model in one vectorised call."""
     cov = model.covariance
     if cov is None:
-        return np.full(base.shape, np.nan)
+        return np.full(np.atleast_1d(np.asarray(figure(model.geometry), dtype=float)).shape, np.nan)
     v0 = _values(model.geometry)
-    grads = []
+    steps, geoms = [], [model.geometry]
     for i, t in enumerate(model.fitted_terms):
         h = 1e-3 * math.sqrt(max(cov[i, i], 0.0)) or 1e-9 * max(1.0, abs(v0[t]))
         up = dict(v0)
         up[t] += h
-        f_up = np.atleast_1d(figure(geometry_from_values(model.geometry, up)))
-        grads.append((f_up - base) / h)
-    g = np.array(grads)  # (P, M)
+        steps.append(h)
+        geoms.append(geometry_from_values(model.geometry, up))
+    if many is not None:
+        f = np.asarray(many(geoms), dtype=float).reshape(len(geoms), -1)
+    else:
+        f = np.array([np.atleast_1d(np.asarray(figure(g), dtype=float)) for g in geoms])
+    g = (f[1:] - f[0]) / np.array(steps)[:, None]  # (P, M)
     return np.sqrt(np.maximum(np.einsum("pm,pq,qm->m", g, cov, g), 0.0))
 
 
