@@ -1,5 +1,5 @@
 """Fixtures: the built-in recipes run once per session (small overrides, through the command
-line, three at a time), a faulted run, and headless Chromium driven by Playwright."""
+line, all at once), a faulted run, and headless Chromium driven by Playwright."""
 
 from __future__ import annotations
 
@@ -27,6 +27,12 @@ RECIPES = {
     "distortion-grid": ["--set", "frames=4"],
     "distortion-scan": ["--set", "az_step=11", "--set", "el_step=8.5", "--set", "frames=2"],
     "sitf-sweep": ["--set", "frames=8", "--set", "hold=5"],
+    # five short soaks, then a 3 x 3 scan with a 1 s dwell (231 poses and 90 s by default)
+    "overnight-soak": ["--set", "soak=5", "--set", "flat_frames=4", "--set", "frames=2",
+                       "--set", "dwell=1", "--set", "scan_az_step=11", "--set", "scan_el_step=8.5"],
+    # a 3 x 3 scan around the aligned pose (5 x 5 by default)
+    "geometry-family": ["--set", "frames=2", "--set", "az_from=-5", "--set", "az_to=5",
+                        "--set", "el_from=-4", "--set", "el_to=4"],
 }
 
 FAULT_RECIPE = """\
@@ -53,7 +59,7 @@ def history_sqlite(report_root: Path) -> str:
 
 @pytest.fixture(scope="session")
 def recipe_runs(report_root: Path, history_sqlite: str) -> dict[str, Path]:
-    """Each quick built-in recipe run by `nightbench run` (end-of-run hook included)."""
+    """Each built-in recipe run by `nightbench run` (end-of-run hook included), all at once."""
     env = dict(os.environ, NIGHTBENCH_HISTORY_URL=history_sqlite, PYTHONPATH=str(REPO))
     procs = {name: subprocess.Popen(
         [sys.executable, "-m", "station", "run", name, "--runs", str(report_root / name),

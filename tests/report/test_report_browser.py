@@ -28,7 +28,8 @@ def media_boxes(pdf: bytes) -> list[tuple[float, float]]:
     return [(float(x1) - float(x0), float(y1) - float(y0)) for x0, y0, x1, y1 in boxes]
 
 
-@pytest.mark.parametrize("name", ["distortion-grid", "distortion-scan", "sitf-sweep", "faulted"])
+@pytest.mark.parametrize("name", ["distortion-grid", "distortion-scan", "sitf-sweep",
+                                  "overnight-soak", "geometry-family", "faulted"])
 def test_report_in_a_real_browser(browser, all_runs, name: str) -> None:
     run = all_runs[name]
     record = read_run(run)

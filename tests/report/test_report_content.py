@@ -27,7 +27,8 @@ def html_of(run: Path) -> str:
     return (run / "report.html").read_text(encoding="utf-8")
 
 
-@pytest.mark.parametrize("name", ["distortion-grid", "distortion-scan", "sitf-sweep", "faulted"])
+@pytest.mark.parametrize("name", ["distortion-grid", "distortion-scan", "sitf-sweep",
+                                  "overnight-soak", "geometry-family", "faulted"])
 def test_sections_in_reading_order_and_nothing_fetched(all_runs, name: str) -> None:
     html = html_of(all_runs[name])
     where = [html.index(f'id="{s}"') for s in SECTION_ORDER]
