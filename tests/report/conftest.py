@@ -33,6 +33,8 @@ RECIPES = {
     # a 3 x 3 scan around the aligned pose (5 x 5 by default)
     "geometry-family": ["--set", "frames=2", "--set", "az_from=-5", "--set", "az_to=5",
                         "--set", "el_from=-4", "--set", "el_to=4"],
+    # three flats of 8 frames and the edge at three poses (16 and 8 frames by default)
+    "image-quality": ["--set", "frames=8", "--set", "hold=5", "--set", "edge_frames=4"],
 }
 
 FAULT_RECIPE = """\

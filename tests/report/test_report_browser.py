@@ -29,7 +29,8 @@ def media_boxes(pdf: bytes) -> list[tuple[float, float]]:
 
 
 @pytest.mark.parametrize("name", ["distortion-grid", "distortion-scan", "sitf-sweep",
-                                  "overnight-soak", "geometry-family", "faulted"])
+                                  "overnight-soak", "geometry-family", "image-quality",
+                                  "faulted"])
 def test_report_in_a_real_browser(browser, all_runs, name: str) -> None:
     run = all_runs[name]
     record = read_run(run)

@@ -28,7 +28,8 @@ def html_of(run: Path) -> str:
 
 
 @pytest.mark.parametrize("name", ["distortion-grid", "distortion-scan", "sitf-sweep",
-                                  "overnight-soak", "geometry-family", "faulted"])
+                                  "overnight-soak", "geometry-family", "image-quality",
+                                  "faulted"])
 def test_sections_in_reading_order_and_nothing_fetched(all_runs, name: str) -> None:
     html = html_of(all_runs[name])
     where = [html.index(f'id="{s}"') for s in SECTION_ORDER]
