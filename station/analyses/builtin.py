@@ -7,13 +7,22 @@ Each module under station/analyses/ declares one :class:`~station.analyses.regis
 
 from __future__ import annotations
 
-from station.analyses import boresight, distortion, fov, netd, sitf, uniformity
-from station.analyses.registry import Registry
+from typing import TYPE_CHECKING
 
-__all__ = ["builtin_registry"]
+if TYPE_CHECKING:
+    from station.analyses.registry import Registry
+
+__all__ = ["builtin_registry", "BUILTIN_NAMES"]
+
+BUILTIN_NAMES = ("boresight", "distortion", "fov", "netd", "sitf", "uniformity")
+"""Their names, known without importing them: the command line lists them at once (the modules
+import numpy, scipy and the image code, which `nightbench --help` never needs)."""
 
 
 def builtin_registry() -> Registry:
     """The built-in analyses by name (a new Registry each call: no shared state)."""
+    from station.analyses import boresight, distortion, fov, netd, sitf, uniformity
+    from station.analyses.registry import Registry
+
     return Registry([distortion.ANALYSIS, sitf.ANALYSIS, netd.ANALYSIS, uniformity.ANALYSIS,
                      boresight.ANALYSIS, fov.ANALYSIS])

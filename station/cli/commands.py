@@ -281,10 +281,6 @@ def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
-    from analysis.verdicts import FAIL
-    from station.analyses.reanalyze import analyze_frame_file, analyze_run_folder
-    from station.cli.results_table import print_results
-
     if args.frame is not None:
         if args.analysis != "distortion":
             console.print("--frame works with distortion only (one grid frame); other analyses "
@@ -294,14 +290,21 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
             console.print("--frame needs --geometry (a file describing UUT, collimator and "
                           "target; see the README)")
             return exitcodes.INVALID
+        from station.analyses.frame_file import analyze_frame_file
+
         out = args.out or Path(args.frame).with_suffix("").parent / "distortion_out"
-        summary = analyze_frame_file(args.frame, args.geometry, out)
+        summary = analyze_frame_file(args.frame, args.geometry, out,
+                                     plots=getattr(args, "plots", True))
         _print_summary(console, summary)
         console.print(f"results in {out}", highlight=False, markup=False)
         return exitcodes.OK
     if args.run_folder is None:
         console.print("give a RUN_FOLDER, or --frame TIFF --geometry FILE")
         return exitcodes.INVALID
+    from analysis.verdicts import FAIL
+    from station.analyses.reanalyze import analyze_run_folder
+    from station.cli.results_table import print_results
+
     report = analyze_run_folder(args.run_folder, args.analysis, args.out, args.replace)
     for step_id, summary in report.summaries.items():
         if len(report.summaries) > 1:
