@@ -264,10 +264,14 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def extra_handlers() -> dict[str, Any]:
-    """Sub-commands that live in their own modules."""
-    from station.cli.simulate import cmd_simulate
+    """Sub-commands that live in their own modules (imported only when that command runs)."""
 
-    return {"simulate": cmd_simulate}
+    def simulate(args: argparse.Namespace, console: Any) -> int:
+        from station.cli.simulate import cmd_simulate
+
+        return cmd_simulate(args, console)
+
+    return {"simulate": simulate}
 
 
 def report_error(exc: BaseException, console: Console) -> int:
