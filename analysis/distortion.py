@@ -5,24 +5,34 @@ Directions are unit vectors (N, 3) in the camera frame of analysis.geometry.
 
 Method
 ------
-1. Fit (scipy.optimize.least_squares, weighted by the centroid sigmas) of the camera model of
-   analysis.geometry to the measured spots: principal point cx, cy (the boresight: where the
-   bench axis lands), roll, fx (effective focal length, hence IFOV), aspect fy/fx, skew, radial
-   k1, k2, k3 and tangential p1, p2 (Brown-Conrady, D. C. Brown, Photogramm. Eng. 32:444, 1966;
-   OpenCV calib3d convention and order). Which terms are free follows from the data (see
-   choose_terms). A robust pass (soft-L1 loss) finds outliers; the final pass is plain least
-   squares without them, and the parameter covariance is (J^T J)^-1 times the reduced chi-square
-   (standard nonlinear least-squares practice, e.g. Press et al., Numerical Recipes, ch. 15).
-2. Decomposition per point: ideal position (fitted paraxial model: same centre, scale, aspect,
-   skew and roll, no distortion), error vector = measured - ideal (px and mrad), residual =
-   measured - full model. Local defects: |residual| above n_sigma robust sigmas (MAD-based,
-   Rousseeuw & Croux 1993) and above a floor in pixels.
-3. Percent distortion 100 (r_measured - r_ideal) / r_ideal in normalized image coordinates
-   (camera matrix removed), the ideal radius from the paraxial scale (ISO 17850:2015 dot-chart
-   method; ISO 9039:2008 for electro-optical systems; pincushion positive, barrel negative,
-   W. J. Smith, Modern Optical Engineering, ch. 5).
-4. Radial curve 100 (k1 r^2 + k2 r^4 + k3 r^6) of the fitted model, its values at the detector's
-   corners and edge midpoints, and the classification barrel / pincushion / mustache / none.
+1. Fit of the camera model (analysis.distortion_fit): principal point cx, cy (the boresight:
+   where the bench axis lands), roll, fx (effective focal length, hence IFOV), aspect, skew,
+   Brown-Conrady k1, k2, k3, p1, p2 (D. C. Brown, Photogramm. Eng. 32:444, 1966; OpenCV calib3d
+   convention). k1 is always fitted; p1+p2, k2 and k3 only where an F-test on the nested fits
+   says the data support them (stated in the result). One plain least-squares pass; only when
+   it leaves outliers (judged on the MAD scale, which they cannot inflate) a second pass
+   without them, the terms chosen again. Points whose residual exceeds n_sigma robust sigmas (MAD, Rousseeuw & Croux 1993) and a
+   floor in pixels are local defects.
+2. Per point: ideal position (fitted paraxial model: same centre, scale, aspect, skew and roll,
+   no distortion), error = measured - ideal (px and mrad), residual = measured - full model,
+   and the local percent distortion 100 (r_measured - r_ideal) / r_ideal in normalized image
+   coordinates (ISO 17850:2015 dot-chart method; ISO 9039:2008 for electro-optical systems;
+   pincushion positive, barrel negative, W. J. Smith, Modern Optical Engineering, ch. 5).
+3. Figures of the lens, not of the noise (analysis.distortion_figures): the maximum distortion
+   is the local distortion of the *fitted model* of largest magnitude over the measured field
+   (the convex hull of the measured points), with its 1-sigma from the fit covariance (delta
+   method, GUM JCGM 100:2008). The worst single measured point is reported separately with its
+   own sigma. Corner and edge figures say whether they are measured or extrapolated and how far
+   beyond the measured field they lie.
+4. Classification barrel / pincushion / mustache / none over the measured field: a distortion is
+   named only when the fitted curve exceeds both the threshold and 3 of its own sigmas, so noise
+   is never called distortion.
+5. Verdicts through analysis.verdicts (value, 1-sigma, limit, margin, PASS/FAIL/MARGINAL) for the
+   spec keys of DISTORTION_SPEC_KEYS.
+
+When the data cannot support a result (too few matched points, most spots flagged, residuals far
+above the noise, a fit at a bound of its physical range) the analysis raises DistortionRefused
+with the cause instead of reporting numbers.
 """
 
 from __future__ import annotations
@@ -32,9 +42,18 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize
 
 from analysis.centroid import Spot, SpotFlag
+from analysis.distortion_figures import Hull, local_distortion_percent, propagate
+from analysis.distortion_fit import (
+    ALL_TERMS,
+    DistortionRefused,
+    FitModel,
+    _sigma_array,
+    choose_terms,
+    fit_camera_model,
+    select_terms,
+)
 from analysis.geometry import (
     BrownConrady,
     CameraGeometry,
@@ -45,13 +64,17 @@ from analysis.geometry import (
     to_camera_frame,
 )
 from analysis.matching import MatchResult, match_points
+from analysis.verdicts import SpecKey, Verdict
 
 __all__ = [
     "ALL_TERMS",
+    "DISTORTION_SPEC_KEYS",
     "ClassificationRule",
     "Classification",
+    "DistortionRefused",
     "FieldPoint",
     "FitModel",
+    "Headline",
     "PointTable",
     "RadialCurve",
     "Verdict",
@@ -63,54 +86,16 @@ __all__ = [
     "radial_distortion_percent",
 ]
 
-ALL_TERMS = ("cx", "cy", "roll", "fx", "aspect", "skew", "k1", "k2", "p1", "p2", "k3")
-
 # Spots with these flags are left out of the fit: their centroids are biased or ambiguous.
 _UNUSABLE = SpotFlag.TRUNCATED | SpotFlag.MERGED | SpotFlag.NOT_CONVERGED | SpotFlag.BAD_PIXEL
 
-
-@dataclass(frozen=True)
-class FitModel:
-    """Fitted camera model with 1-sigma uncertainties; distortion in OpenCV's convention."""
-
-    geometry: CameraGeometry
-    fitted_terms: tuple[str, ...]
-    sigmas: Mapping[str, float]
-    reduced_chi2: float
-    n_points: int
-    rms_residual_px: float
-
-    @property
-    def fx(self) -> float:
-        return self.geometry.fx
-
-    @property
-    def fy(self) -> float:
-        return self.geometry.fy
-
-    @property
-    def cx(self) -> float:
-        return self.geometry.principal_point[0]
-
-    @property
-    def cy(self) -> float:
-        return self.geometry.principal_point[1]
-
-    @property
-    def distortion(self) -> BrownConrady:
-        return self.geometry.distortion
-
-    @property
-    def effective_focal_length_mm(self) -> float:
-        return self.geometry.focal_length_mm
-
-    @property
-    def ifov_mrad(self) -> float:
-        return self.geometry.ifov_mrad
-
-    def sigma(self, term: str) -> float:
-        """1-sigma of a term (0 when the term was held fixed)."""
-        return float(self.sigmas.get(term, 0.0))
+# Refusal thresholds (our documented rules).
+MIN_POINTS = 8                 # fewer cannot constrain centre, scale, roll, aspect, skew and k1
+MIN_MATCHED_FRACTION = 0.5     # of the expected points that land inside the detector
+MAX_FLAGGED_FRACTION = 0.5     # of the detected spots
+MAX_OUTLIER_FRACTION = 0.25    # of the measured points: beyond that the model does not fit
+MAX_REDUCED_CHI2 = 100.0       # residuals 10x the centroid noise: the model does not describe the data
+SIGNIFICANCE_SIGMAS = 3.0      # a distortion is named only beyond this many sigmas
 
 
 @dataclass(frozen=True)
@@ -118,8 +103,9 @@ class PointTable:
     """One row per point. Positions (N, 2) are (x, y) pixels; NaN where a point was not measured.
 
     error = measured - ideal (the distortion displacement); residual = measured - fitted.
-    distortion_percent is the local radial distortion; in_field_stats marks the points used for
-    the maximum (measured, not a defect, far enough from the centre for a stable percentage).
+    distortion_percent is the local radial distortion of the point (noisy near the centre);
+    distortion_sigma_percent its 1-sigma from the centroid sigma; in_field_stats marks the
+    points eligible for the worst-point figure (measured, not a defect, not near the centre).
     """
 
     labels: tuple[str, ...]
@@ -140,6 +126,7 @@ class PointTable:
     used_in_fit: np.ndarray
     defect: np.ndarray
     in_field_stats: np.ndarray
+    distortion_sigma_percent: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.labels)
@@ -147,17 +134,26 @@ class PointTable:
 
 @dataclass(frozen=True)
 class RadialCurve:
-    """Fitted radial distortion against image height and field angle (sampled to the corner)."""
+    """Fitted radial distortion 100 (k1 r^2 + k2 r^4 + k3 r^6) against image height and field
+    angle, sampled to the farthest corner, with its 1-sigma band."""
 
     radius_px: np.ndarray
     field_angle_deg: np.ndarray
     distortion_percent: np.ndarray
     measured_radius_max_px: float
+    sigma_percent: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
 class FieldPoint:
-    """Fitted radial distortion at a named place of the detector (corner or edge midpoint)."""
+    """Fitted radial distortion at a named place of the detector (corner or edge midpoint).
+
+    extrapolated: the place lies outside the measured field (hull of the measured points);
+    beyond_px: its distance outside that hull in ideal image pixels (0 when measured);
+    beyond_percent: its radius beyond the largest measured radius, percent of that radius;
+    sigma_all_terms_percent: its sigma with every term the points allow free (extrapolation
+    depends on terms the F-test may have left out).
+    """
 
     name: str
     x_px: float
@@ -166,19 +162,35 @@ class FieldPoint:
     field_angle_deg: float
     distortion_percent: float
     extrapolated: bool
+    sigma_percent: float = float("nan")
+    beyond_px: float = 0.0
+    beyond_percent: float = 0.0
+    sigma_all_terms_percent: float = float("nan")
+
+    @property
+    def basis(self) -> str:
+        if not self.extrapolated:
+            return "measured"
+        text = f"extrapolated {self.beyond_px:.0f} px ({self.beyond_percent:.0f} % in radius) beyond the measured field"
+        if self.sigma_all_terms_percent > 1.2 * self.sigma_percent:
+            text += (f"; sigma {self.sigma_percent:.2g} % with the terms the data support, "
+                     f"{self.sigma_all_terms_percent:.2g} % with every term free")
+        return text
 
 
 @dataclass(frozen=True)
 class ClassificationRule:
     """Thresholds of the classification, percent of image height (our rule, documented).
 
-    none_below_percent: |distortion| under this over the whole field -> "none" (about the
+    none_below_percent: |distortion| under this over the measured field -> "none" (about the
     smallest distortion a viewer notices; distortion specs commonly start at 0.1-1 %, common
-    practice). sign_change_percent: a mustache needs both signs beyond this.
+    practice). sign_change_percent: a mustache needs both signs beyond this. Every level must
+    also exceed significance_sigmas of its own uncertainty.
     """
 
     none_below_percent: float = 0.1
     sign_change_percent: float = 0.05
+    significance_sigmas: float = SIGNIFICANCE_SIGMAS
 
 
 @dataclass(frozen=True)
@@ -189,16 +201,24 @@ class Classification:
 
 
 @dataclass(frozen=True)
-class Verdict:
-    name: str
+class Headline:
+    """The one number of a distortion run, the same on every plot and in the JSON."""
+
+    key: str
     value: float
-    limit: float
-    passed: bool
+    sigma: float
+    unit: str
+    text: str
 
 
 @dataclass(frozen=True)
 class DistortionResult:
-    """Everything the distortion analysis found; see module docstring for the method."""
+    """Everything the distortion analysis found; see module docstring for the method.
+
+    max_distortion_percent: signed model distortion of largest magnitude over the measured
+    field (sigma in max_distortion_sigma_percent); worst_point_percent: the single measured
+    point of largest |local distortion| (noisy; sigma in worst_point_sigma_percent).
+    """
 
     mode: str
     model: FitModel
@@ -218,151 +238,46 @@ class DistortionResult:
     n_extra: int
     match: MatchResult | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)
+    max_distortion_sigma_percent: float = float("nan")
+    worst_point_percent: float = float("nan")
+    worst_point_sigma_percent: float = float("nan")
+    worst_point_label: str = ""
+    boresight_offset_sigma_px: tuple[float, float] = (float("nan"), float("nan"))
+    headline: Headline | None = None
+    figures: Mapping[str, tuple[float, float]] = field(default_factory=dict)
 
     @property
     def passed(self) -> bool | None:
-        """True/False when spec limits were given, None otherwise."""
-        return None if not self.verdicts else all(v.passed for v in self.verdicts)
+        """True/False when spec limits were given, None otherwise (MARGINAL does not fail)."""
+        return None if not self.verdicts else not any(v.status == "FAIL" for v in self.verdicts)
 
 
 # ----------------------------------------------------------------------------------------------
-# Model fit
+# Spec keys: each names exactly one quantity
 # ----------------------------------------------------------------------------------------------
 
-
-def choose_terms(ideal_norm: np.ndarray) -> tuple[str, ...]:
-    """Free terms the points can support, from their count and the field they cover.
-
-    Our rule (documented, conservative): centre, scale and roll always; aspect and skew when
-    the points spread in both x and y (n >= 6); k1 from n >= 8; p1, p2 from n >= 12; k2 from
-    n >= 15 and a normalized radius >= 0.15 (about 8.5 deg rectilinear); k3 from n >= 25 and a
-    radius >= 0.35 (about 19 deg): below that r^6 is nearly collinear with r^2 and r^4 over
-    the field and k3 only trades off against k2.
-    """
-    p = np.asarray(ideal_norm, dtype=float)
-    n = len(p)
-    r = np.hypot(p[:, 0], p[:, 1])
-    r_max = float(np.nanmax(r)) if n else 0.0
-    spread_2d = n >= 6 and r_max > 0 and min(np.nanstd(p[:, 0]), np.nanstd(p[:, 1])) > 0.2 * r_max
-    terms = ["cx", "cy", "fx"]
-    if n >= 3:
-        terms.append("roll")
-    if spread_2d:
-        terms += ["aspect", "skew"]
-    if n >= 8 and r_max > 0:
-        terms.append("k1")
-    if spread_2d and n >= 12:
-        terms += ["p1", "p2"]
-    if n >= 15 and r_max >= 0.15:
-        terms.append("k2")
-    if n >= 25 and r_max >= 0.35:
-        terms.append("k3")
-    return tuple(t for t in ALL_TERMS if t in terms)
-
-
-def _values(geom: CameraGeometry) -> dict[str, float]:
-    cx, cy = geom.principal_point
-    d = geom.distortion
-    return {"cx": cx, "cy": cy, "roll": geom.roll_deg, "fx": geom.fx, "aspect": geom.aspect,
-            "skew": geom.skew_deg, "k1": d.k1, "k2": d.k2, "p1": d.p1, "p2": d.p2, "k3": d.k3}
-
-
-def _geometry(base: CameraGeometry, v: Mapping[str, float]) -> CameraGeometry:
-    return base.replace(
-        cx=v["cx"], cy=v["cy"], roll_deg=v["roll"],
-        focal_length_mm=v["fx"] * base.pixel_pitch_um / 1000.0,
-        aspect=v["aspect"], skew_deg=v["skew"],
-        distortion=BrownConrady(k1=v["k1"], k2=v["k2"], p1=v["p1"], p2=v["p2"], k3=v["k3"]),
-        defects=(),
-    )
-
-
-def fit_camera_model(
-    measured_xy: np.ndarray,
-    directions_cam: np.ndarray,
-    nominal: CameraGeometry,
-    *,
-    sigma_px: np.ndarray | float | None = None,
-    terms: Sequence[str] | None = None,
-    loss: str = "linear",
-    f_scale: float = 1.0,
-    start: CameraGeometry | None = None,
-) -> tuple[FitModel, np.ndarray]:
-    """Least-squares fit of the camera model to measured spots (x, y) for known directions.
-
-    Terms not fitted keep their nominal value. sigma_px: per-point (N, 2) or (N,), or one
-    figure; None gives unit weights (uncertainties then rest on the reduced chi-square).
-    Returns the model and the weighted residuals (N, 2).
-    """
-    meas = np.asarray(measured_xy, dtype=float).reshape(-1, 2)
-    dirs = np.asarray(directions_cam, dtype=float).reshape(-1, 3)
-    if len(meas) != len(dirs):
-        raise ValueError(f"{len(meas)} measured points but {len(dirs)} directions; they must pair up")
-    sig = _sigma_array(sigma_px, len(meas))
-    base = start or nominal
-    v0 = _values(base)
-    if terms is None:
-        terms = choose_terms(ideal_normalized(nominal, dirs))
-    unknown = [t for t in terms if t not in ALL_TERMS]
-    if unknown:
-        raise ValueError(f"unknown fit terms {unknown}; choose from {ALL_TERMS}")
-    terms = tuple(t for t in ALL_TERMS if t in terms)
-    n_par = len(terms)
-    if 2 * len(meas) <= n_par:
-        raise ValueError(
-            f"{len(meas)} points cannot support {n_par} free terms {terms}; measure more points "
-            "or fix terms"
-        )
-
-    def resid(x: np.ndarray) -> np.ndarray:
-        v = dict(v0)
-        v.update(zip(terms, x))
-        pred = project(_geometry(base, v), dirs, include_defects=False)
-        return ((pred - meas) / sig).ravel()
-
-    x0 = np.array([v0[t] for t in terms])
-    # Typical sizes, so the solver's steps are balanced (pixels, degrees, ratio, coefficients).
-    typical = {"cx": 1.0, "cy": 1.0, "roll": 0.01, "fx": 1.0, "aspect": 1e-3, "skew": 0.01,
-               "k1": 1e-2, "k2": 1e-2, "p1": 1e-4, "p2": 1e-4, "k3": 1e-2}
-    res = optimize.least_squares(resid, x0, loss=loss, f_scale=f_scale, method="trf",
-                                 x_scale=np.array([typical[t] for t in terms]), xtol=1e-12, ftol=1e-12)
-    v = dict(v0)
-    v.update(zip(terms, res.x))
-    geom = _geometry(base, v)
-    r = res.fun
-    dof = max(1, r.size - n_par)
-    chi2 = float(r @ r) / dof
-    try:
-        cov = np.linalg.pinv(res.jac.T @ res.jac) * chi2
-        sig_par = {t: float(math.sqrt(max(cov[i, i], 0.0))) for i, t in enumerate(terms)}
-    except np.linalg.LinAlgError:
-        sig_par = {t: float("nan") for t in terms}
-    resid_px = (r.reshape(-1, 2) * sig)
-    rms = float(np.sqrt(np.mean(np.sum(resid_px ** 2, axis=1))))
-    model = FitModel(geometry=geom, fitted_terms=terms, sigmas=sig_par, reduced_chi2=chi2,
-                     n_points=len(meas), rms_residual_px=rms)
-    return model, r.reshape(-1, 2)
-
-
-def _sigma_array(sigma_px: np.ndarray | float | None, n: int) -> np.ndarray:
-    if sigma_px is None:
-        return np.ones((n, 2))
-    s = np.asarray(sigma_px, dtype=float)
-    if s.ndim == 0:
-        s = np.full((n, 2), float(s))
-    elif s.ndim == 1:
-        s = np.repeat(s[:, None], 2, axis=1)
-    s = s.reshape(n, 2).copy()
-    bad = ~np.isfinite(s) | (s <= 0)
-    if bad.any():
-        fill = float(np.nanmedian(np.where(bad, np.nan, s))) if (~bad).any() else 1.0
-        s[bad] = fill
-    return s
-
-
-# ----------------------------------------------------------------------------------------------
-# Figures of merit
-# ----------------------------------------------------------------------------------------------
+DISTORTION_SPEC_KEYS: Mapping[str, SpecKey] = {k.key: k for k in (
+    SpecKey("max_distortion_percent", "maximum distortion over the measured field", "%", "max",
+            "largest |local distortion| 100 (|D(p)| - |p|) / |p| of the fitted Brown-Conrady model "
+            "inside the convex hull of the measured points (not a single noisy point)",
+            conditions=("field",)),
+    SpecKey("max_corner_distortion_percent", "corner distortion", "%", "max",
+            "largest |fitted radial distortion| at the four detector corners; extrapolated from the "
+            "fitted model when a corner lies beyond the measured field, stated as such",
+            conditions=("field",)),
+    SpecKey("max_boresight_offset_px", "boresight offset", "px", "max",
+            "|principal point - detector centre ((W-1)/2, (H-1)/2)|"),
+    SpecKey("max_skew_deg", "skew", "deg", "max", "|skew angle of the pixel axes|"),
+    SpecKey("max_roll_deg", "roll", "deg", "max", "|rotation of the detector about the line of sight|"),
+    SpecKey("max_residual_rms_px", "RMS residual", "px", "max",
+            "RMS of measured - fitted model over the points used in the fit"),
+    SpecKey("max_defects", "local defects", "points", "max",
+            "number of points flagged as local defects (residual beyond n_sigma robust sigmas)"),
+    SpecKey("max_efl_error_percent", "effective focal length error", "%", "max",
+            "|fitted effective focal length - nominal| / nominal"),
+)}
+# Older name, kept for callers that read the keys.
+_SPEC_KEYS = DISTORTION_SPEC_KEYS
 
 
 def radial_distortion_percent(d: BrownConrady, r_norm: np.ndarray) -> np.ndarray:
@@ -410,68 +325,176 @@ def _undistorted_radius(d: BrownConrady, r_dist: np.ndarray) -> np.ndarray:
     return r
 
 
-def _field_points(model: FitModel, r_meas_max: float) -> tuple[tuple[FieldPoint, ...], tuple[FieldPoint, ...]]:
-    g = model.geometry
+def _ideal_to_pixels(geom: CameraGeometry, xy_norm: np.ndarray) -> np.ndarray:
+    """Undistorted normalized (after roll) -> pixels through the fitted distortion and camera matrix."""
+    from analysis.geometry import apply_brown_conrady
+
+    q = apply_brown_conrady(np.asarray(xy_norm, float).reshape(-1, 2), geom.distortion)
+    cx, cy = geom.principal_point
+    t = math.tan(math.radians(geom.skew_deg))
+    return np.column_stack([geom.fx * (q[:, 0] + t * q[:, 1]) + cx, geom.fy * q[:, 1] + cy])
+
+
+_PLACES = ("top_left", "top_right", "bottom_left", "bottom_right", "left", "right", "top", "bottom")
+
+
+def _place_pixels(g: CameraGeometry) -> np.ndarray:
     w, h = g.width, g.height
     mx, my = (w - 1) / 2.0, (h - 1) / 2.0
-    places = {
-        "top_left": (0.0, 0.0), "top_right": (w - 1.0, 0.0),
-        "bottom_left": (0.0, h - 1.0), "bottom_right": (w - 1.0, h - 1.0),
-        "left": (0.0, my), "right": (w - 1.0, my), "top": (mx, 0.0), "bottom": (mx, h - 1.0),
-    }
-    pts = np.array(list(places.values()))
-    nd = _normalized_from_pixels(g, pts)
-    r = _undistorted_radius(g.distortion, np.hypot(nd[:, 0], nd[:, 1]))
+    return np.array([(0.0, 0.0), (w - 1.0, 0.0), (0.0, h - 1.0), (w - 1.0, h - 1.0),
+                     (0.0, my), (w - 1.0, my), (mx, 0.0), (mx, h - 1.0)])
+
+
+def _places_norm(g: CameraGeometry) -> np.ndarray:
+    """Undistorted normalized positions (after roll) of the corners and edge midpoints."""
+    return _undistort(_normalized_from_pixels(g, _place_pixels(g)), g.distortion)
+
+
+def _undistort(xy: np.ndarray, d: BrownConrady) -> np.ndarray:
+    """Inverse Brown-Conrady by fixed-point iteration (as cv2.undistortPoints), to 1e-13."""
+    xd, yd = xy[:, 0], xy[:, 1]
+    x, y = xd.copy(), yd.copy()
+    for _ in range(100):
+        r2 = x * x + y * y
+        radial = 1.0 + r2 * (d.k1 + r2 * (d.k2 + r2 * d.k3))
+        nx = (xd - (2.0 * d.p1 * x * y + d.p2 * (r2 + 2.0 * x * x))) / radial
+        ny = (yd - (d.p1 * (r2 + 2.0 * y * y) + 2.0 * d.p2 * x * y)) / radial
+        done = max(float(np.max(np.abs(nx - x))), float(np.max(np.abs(ny - y)))) < 1e-13
+        x, y = nx, ny
+        if done:
+            break
+    return np.column_stack([x, y])
+
+
+def _place_radial_percent(g: CameraGeometry) -> np.ndarray:
+    p = _places_norm(g)
+    return radial_distortion_percent(g.distortion, np.hypot(p[:, 0], p[:, 1]))
+
+
+def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
+                  full: FitModel | None = None) -> tuple[tuple[FieldPoint, ...], tuple[FieldPoint, ...]]:
+    """Corners and edge midpoints: fitted radial distortion, sigma, measured or extrapolated.
+
+    r_meas_max: largest measured undistorted normalized radius. full: the same data fitted with
+    every term the points allow; beyond the measured field a term the F-test left out may still
+    matter, so an extrapolated place also states its sigma under that model (for information;
+    its own sigma is the selected model's, which the pull tests check).
+    """
+    g = model.geometry
+    p = _places_norm(g)
+    r = np.hypot(p[:, 0], p[:, 1])
     dist = radial_distortion_percent(g.distortion, r)
+    sig = propagate(model, _place_radial_percent)
+    beyond = hull.distance_outside(p) * g.fx
+    sig_all = propagate(full, _place_radial_percent) if full is not None else sig
     theta = np.degrees(_theta_of_radius(r, g.projection))
-    out = [FieldPoint(name, float(x), float(y), float(rr * g.fx), float(t), float(dd), bool(rr * g.fx > r_meas_max * 1.02))
-           for (name, (x, y)), rr, t, dd in zip(places.items(), r, theta, dist)]
+    px = _place_pixels(g)
+    out = []
+    for i, name in enumerate(_PLACES):
+        extrap = bool(beyond[i] > 0.5)  # more than half a pixel outside the measured field
+        out.append(FieldPoint(name, float(px[i, 0]), float(px[i, 1]), float(r[i] * g.fx), float(theta[i]),
+                              float(dist[i]), extrap, float(sig[i]), float(beyond[i]) if extrap else 0.0,
+                              float(max(0.0, 100.0 * (r[i] / r_meas_max - 1.0))) if extrap and r_meas_max > 0 else 0.0,
+                              float(sig_all[i])))
     return tuple(out[:4]), tuple(out[4:])
 
 
+def _curve_sigma(model: FitModel, r_norm: np.ndarray) -> np.ndarray:
+    """1-sigma of 100 (k1 r^2 + k2 r^4 + k3 r^6) from the covariance of the fitted k terms."""
+    cov = model.covariance
+    r2 = np.asarray(r_norm, float) ** 2
+    if cov is None:
+        return np.full(r2.shape, np.nan)
+    powers = {"k1": 1, "k2": 2, "k3": 3}
+    idx = [(i, powers[t]) for i, t in enumerate(model.fitted_terms) if t in powers]
+    if not idx:
+        return np.zeros(r2.shape)
+    g = np.array([100.0 * r2 ** p for _, p in idx])
+    sub = cov[np.ix_([i for i, _ in idx], [i for i, _ in idx])]
+    return np.sqrt(np.maximum(np.einsum("pm,pq,qm->m", g, sub, g), 0.0))
+
+
 def _classify(curve: RadialCurve, rule: ClassificationRule) -> Classification:
+    """Label of the fitted radial curve over the detector (to the farthest corner); a level
+    counts only beyond the threshold and k of its own sigmas, so noise (and an extrapolation
+    the data do not pin down) is never called distortion."""
     d = curve.distortion_percent
-    peak = float(d[np.argmax(np.abs(d))])
+    s = curve.sigma_percent if curve.sigma_percent is not None else np.zeros_like(d)
+    s = np.where(np.isfinite(s), s, np.inf)
+    k = rule.significance_sigmas
     t = rule.none_below_percent
-    if abs(peak) < t:
-        return Classification("none", t, f"|distortion| stays below {t:g} % over the field (largest {peak:+.3f} %)")
-    s = rule.sign_change_percent
-    if d.max() > s and d.min() < -s:
+    # The most significant level beyond the threshold decides; none when no level is significant.
+    signif = (np.abs(d) >= t) & (np.abs(d) >= k * s)
+    where = lambda i: ("measured field" if curve.radius_px[i] <= curve.measured_radius_max_px * (1 + 1e-9)
+                       else "extrapolated")  # noqa: E731
+    if not signif.any():
+        i = int(np.argmax(np.abs(d)))
+        why = (f"below the {t:g} % threshold" if abs(d[i]) < t
+               else f"within {k:g} sigma (sigma {s[i]:.3f} %) of zero")
+        return Classification("none", t, f"fitted radial distortion at most {d[i]:+.3f} % "
+                                         f"({where(i)}): {why}")
+    sc = rule.sign_change_percent
+    pos = (d > sc) & (d > k * s)
+    neg = (d < -sc) & (-d > k * s)
+    if pos.any() and neg.any():
         sign = np.signbit(d[1:]) != np.signbit(d[:-1])
-        k = int(np.argmax(sign)) if sign.any() else 0
+        j = int(np.argmax(sign)) if sign.any() else 0
         return Classification(
-            "mustache", s,
-            f"radial curve changes sign at {curve.radius_px[k]:.0f} px ({curve.field_angle_deg[k]:.1f} deg): "
-            f"from {d.min():+.3f} % to {d.max():+.3f} %, both beyond +/-{s:g} %")
-    label = "barrel" if peak < 0 else "pincushion"
-    return Classification(label, t, f"radial distortion reaches {peak:+.3f} % (beyond {t:g} %) with one sign over the field")
+            "mustache", sc,
+            f"radial curve changes sign at {curve.radius_px[j]:.0f} px ({curve.field_angle_deg[j]:.1f} deg, "
+            f"{where(j)}): from {d.min():+.3f} % to {d.max():+.3f} %, both beyond +/-{sc:g} % and {k:g} sigma")
+    i = int(np.argmax(np.where(signif, np.abs(d), -np.inf)))
+    label = "barrel" if d[i] < 0 else "pincushion"
+    return Classification(label, t, f"fitted radial distortion reaches {d[i]:+.3f} +/- {s[i]:.3f} % "
+                                    f"({where(i)}), beyond {t:g} % and {k:g} sigma, one sign")
 
 
-_SPEC_KEYS = {
-    "max_distortion_percent": "largest |local distortion|, %",
-    "max_corner_distortion_percent": "largest |fitted distortion| at a corner, %",
-    "max_boresight_offset_px": "|principal point - detector centre|, px",
-    "max_skew_deg": "|skew|, deg",
-    "max_roll_deg": "|roll|, deg",
-    "max_residual_rms_px": "RMS residual after the full fit, px",
-    "max_defects": "number of points flagged as local defects",
-    "max_efl_error_percent": "|effective focal length - nominal| / nominal, %",
-}
-
-
-def _verdicts(spec: Mapping[str, float] | None, values: Mapping[str, float]) -> tuple[Verdict, ...]:
+def _verdicts(spec: Mapping[str, float] | None, figures: Mapping[str, tuple[float, float]],
+              conditions: Mapping[str, Mapping[str, object]]) -> tuple[Verdict, ...]:
     if not spec:
         return ()
-    unknown = [k for k in spec if k not in _SPEC_KEYS]
+    unknown = [k for k in spec if k not in DISTORTION_SPEC_KEYS]
     if unknown:
-        raise ValueError(f"unknown distortion spec limit(s) {unknown}; known: {sorted(_SPEC_KEYS)}")
-    return tuple(Verdict(k, float(values[k]), float(lim), bool(abs(values[k]) <= float(lim)))
-                 for k, lim in spec.items())
+        raise ValueError(f"unknown distortion spec limit(s) {unknown}; known: {sorted(DISTORTION_SPEC_KEYS)}")
+    out = []
+    for key, limit in spec.items():
+        value, sigma = figures[key]
+        out.append(DISTORTION_SPEC_KEYS[key].judge(value, sigma, float(limit), conditions.get(key, {})))
+    return tuple(out)
 
 
-# ----------------------------------------------------------------------------------------------
-# Shared core and the two entry points
-# ----------------------------------------------------------------------------------------------
+def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeometry, sig_fit: np.ndarray | None,
+                       terms: Sequence[str] | None, loss: str, n_sigma: float,
+                       floor_px: float) -> tuple[FitModel, np.ndarray]:
+    """One plain pass (terms chosen by the data); a second only when it leaves outliers.
+
+    Returns the model and the mask of points kept in the fit.
+    """
+    s_px = _sigma_array(sig_fit, len(m_xy))
+    allowed = terms if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
+
+    def fit(keep: np.ndarray) -> tuple[FitModel, np.ndarray]:
+        sf = None if sig_fit is None else sig_fit[keep]
+        if terms is not None:
+            return fit_camera_model(m_xy[keep], m_dir[keep], nominal, sigma_px=sf, terms=terms,
+                                    term_choice=("terms given by the caller",))
+        return select_terms(m_xy[keep], m_dir[keep], nominal, sigma_px=sf, allowed=allowed)
+
+    keep = np.ones(len(m_xy), dtype=bool)
+    if loss != "linear":
+        robust, r = fit_camera_model(m_xy, m_dir, nominal, sigma_px=sig_fit, terms=allowed, loss=loss,
+                                     f_scale=3.0 if sig_fit is not None else 0.05)
+        keep = ~_flag(r, s_px, _robust_scale(r), n_sigma, floor_px)
+    model, _ = fit(keep)
+    r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
+    out = _flag(r, s_px, _robust_scale(r[keep]), n_sigma, floor_px)
+    if out.any() and not np.array_equal(~out, keep):
+        # Outliers (flagged on the robust MAD scale, which they cannot inflate): fit again
+        # without them; the defects are then flagged once more against that model.
+        keep = ~out
+        if keep.sum() >= MIN_POINTS:
+            model, _ = fit(keep)
+    return model, keep
 
 
 def _analyze(
@@ -494,28 +517,42 @@ def _analyze(
 ) -> DistortionResult:
     n = len(directions)
     have = np.all(np.isfinite(measured), axis=1)
-    if have.sum() < 4:
-        raise ValueError(f"only {int(have.sum())} of {n} points were measured; at least 4 are needed for a fit")
+    expected_nominal = project(nominal.replace(defects=()), directions, include_defects=False)
+    in_frame = (np.all(np.isfinite(expected_nominal), axis=1)
+                & (expected_nominal[:, 0] > -0.5) & (expected_nominal[:, 0] < nominal.width - 0.5)
+                & (expected_nominal[:, 1] > -0.5) & (expected_nominal[:, 1] < nominal.height - 0.5))
+    n_have = int(have.sum())
+    if n_have < MIN_POINTS:
+        raise DistortionRefused(
+            f"only {n_have} of {n} points were measured; at least {MIN_POINTS} are needed. Check the "
+            "focus, the detection threshold, the target and the collimator and UUT focal lengths")
+    if n_have < MIN_MATCHED_FRACTION * int(in_frame.sum()):
+        raise DistortionRefused(
+            f"only {n_have} of the {int(in_frame.sum())} points expected inside the frame were matched "
+            f"(under {MIN_MATCHED_FRACTION:.0%}); the pattern found is not the expected one. Check "
+            "the target, the collimator and UUT focal lengths and the spot detection")
     m_xy, m_sig, m_dir = measured[have], sigma[have], directions[have]
-    sigma_given = np.isfinite(m_sig).all()
+    sigma_given = bool(np.isfinite(m_sig).all())
     sig_fit = m_sig if sigma_given else None
-    if terms is None:
-        terms = choose_terms(ideal_normalized(nominal, m_dir))
-
-    # Pass 1: soft-L1 fit, so a local defect does not drag the model (robust loss, f_scale of
-    # 3 sigmas; with unit weights 3 x the median centroid-free scale is unknown, so 0.05 px).
-    f0 = 3.0 if sig_fit is not None else 0.05
-    model, r = fit_camera_model(m_xy, m_dir, nominal, sigma_px=sig_fit, terms=terms, loss=loss, f_scale=f0)
-    scale = _robust_scale(r)
-    s_px = _sigma_array(sig_fit, len(m_xy))
-    outlier = _flag(r, s_px, scale, n_sigma, defect_floor_px)
-    keep = ~outlier
-    # Pass 2 (always when the loss was robust: its covariance is not the least-squares one):
-    # plain least squares without the flagged points; its covariance is the one reported.
-    if (loss != "linear" or outlier.any()) and keep.sum() * 2 > len(model.fitted_terms) + 2:
-        model, _ = fit_camera_model(m_xy[keep], m_dir[keep], nominal, sigma_px=None if sig_fit is None else sig_fit[keep],
-                                    terms=terms, start=model.geometry)
+    model, keep = _fit_with_outliers(m_xy, m_dir, nominal, sig_fit, terms, loss, n_sigma, defect_floor_px)
+    if (~keep).sum() > MAX_OUTLIER_FRACTION * len(keep):
+        raise DistortionRefused(
+            f"{int((~keep).sum())} of {len(keep)} points do not follow the camera model (more than "
+            f"{MAX_OUTLIER_FRACTION:.0%}); mismatched spots or a broken optic. Check the target and "
+            "the spot detection")
+    if model.at_bound:
+        raise DistortionRefused(
+            f"the fit ended at the edge of the physical range of {', '.join(model.at_bound)} "
+            f"({', '.join(f'{t} = {_term_value(model, t):.4g}' for t in model.at_bound)}); the data do "
+            "not determine the camera. Check the nominal geometry (focal length, pixel pitch, size)")
+    if sigma_given and model.reduced_chi2 > MAX_REDUCED_CHI2:
+        raise DistortionRefused(
+            f"the residuals are {math.sqrt(model.reduced_chi2):.0f}x the centroid noise (reduced "
+            f"chi-square {model.reduced_chi2:.3g} > {MAX_REDUCED_CHI2:g}); the camera model does not "
+            "describe these spots. Check for mismatched spots, a wrong projection or strong local defects")
+    notes.extend(model.term_choice)
     geom = model.geometry
+    s_px = _sigma_array(sig_fit, len(m_xy))
     fitted_all = project(geom, m_dir, include_defects=False)
     r_all = (m_xy - fitted_all) / s_px
     scale = _robust_scale(r_all[keep])
@@ -529,7 +566,6 @@ def _analyze(
     # Per-point table (all points, NaN where not measured).
     nan2 = np.full((n, 2), np.nan)
     ideal_geom = geom.replace(distortion=BrownConrady(), defects=())
-    expected_nominal = project(nominal.replace(defects=()), directions, include_defects=False)
     ideal = project(ideal_geom, directions, include_defects=False)
     fitted = project(geom, directions, include_defects=False)
     meas_full = nan2.copy()
@@ -547,6 +583,10 @@ def _analyze(
     r_meas = np.hypot(meas_n[:, 0], meas_n[:, 1])
     with np.errstate(divide="ignore", invalid="ignore"):
         dist_pct = np.where(r_ideal > 0, 100.0 * (r_meas - r_ideal) / r_ideal, np.nan)
+        # Radial centroid sigma over the ideal radius (pixels along the radial direction).
+        u = (ideal - np.array(geom.principal_point)) / np.hypot(*(ideal - np.array(geom.principal_point)).T)[:, None]
+        sig_r = np.hypot(u[:, 0] * sig_full[:, 0], u[:, 1] * sig_full[:, 1])
+        dist_sig = np.where(r_ideal > 0, 100.0 * sig_r / (r_ideal * geom.fx), np.nan)
     residual = meas_full - fitted
     res_sig = nan2[:, 0].copy()
     res_sig[have] = res_sig_m
@@ -562,44 +602,101 @@ def _analyze(
         measured_px=meas_full, sigma_px=sig_full, error_px=error, error_mrad=error_mrad,
         error_fov_percent=err_fov, field_angle_deg=theta, radius_ideal_px=r_ideal_px,
         distortion_percent=dist_pct, residual_px=residual, residual_sigmas=res_sig, measured=have,
-        used_in_fit=used, defect=defect, in_field_stats=in_stats,
+        used_in_fit=used, defect=defect, in_field_stats=in_stats, distortion_sigma_percent=dist_sig,
     )
 
-    # Radial curve from the centre to the farthest corner, and the named field points.
-    r_meas_max = float(np.nanmax(np.where(have, r_ideal_px, np.nan)))
-    corners, edges = _field_points(model, r_meas_max)
-    r_top = max([c.radius_px for c in corners] + [r_meas_max]) / geom.fx
+    # The measured field: hull of the measured points in undistorted normalized coordinates.
+    hull = Hull(ideal_n[have])
+    r_meas_max_n = float(np.nanmax(np.where(have, r_ideal, np.nan)))
+    allowed = tuple(terms) if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
+    full = None
+    if set(allowed) - set(model.fitted_terms):
+        # Terms held fixed by the F-test: refit with all of them for the extrapolated figures.
+        sf = None if sig_fit is None else sig_fit[keep]
+        full, _ = fit_camera_model(m_xy[keep], m_dir[keep], nominal, sigma_px=sf, terms=allowed,
+                                   start=model.geometry)
+    corners, edges = _field_points(model, hull, r_meas_max_n, full)
+    r_top = max([c.radius_px / geom.fx for c in corners] + [r_meas_max_n])
     rr = np.linspace(0.0, r_top, 256)
+    rr = np.unique(np.append(rr, r_meas_max_n))
     curve = RadialCurve(radius_px=rr * geom.fx, field_angle_deg=np.degrees(_theta_of_radius(rr, geom.projection)),
                         distortion_percent=radial_distortion_percent(geom.distortion, rr),
-                        measured_radius_max_px=r_meas_max)
+                        measured_radius_max_px=r_meas_max_n * geom.fx, sigma_percent=_curve_sigma(model, rr))
+
+    # Maximum of the fitted model over the measured field, with its sigma (delta method).
+    samples = hull.samples()
+    pct = local_distortion_percent(geom.distortion, samples)
+    k = int(np.argmax(np.abs(pct)))
+    at = samples[k]
+    max_d = float(pct[k])
+    max_sig = float(propagate(model, lambda g: local_distortion_percent(g.distortion, at[None, :]))[0])
+    at_px = _ideal_to_pixels(geom, at[None, :])[0]
+    max_at = (float(at_px[0]), float(at_px[1]))
+    near = np.where(have, np.hypot(*(ideal - at_px).T), np.inf)
+    max_label = labels[int(np.argmin(near))] if have.any() else ""
+    # The worst single measured point, reported beside it (never instead of it).
     if in_stats.any():
-        k = int(np.nanargmax(np.where(in_stats, np.abs(dist_pct), -np.inf)))
-        max_d, max_at, max_label = float(dist_pct[k]), (float(meas_full[k, 0]), float(meas_full[k, 1])), labels[k]
+        j = int(np.nanargmax(np.where(in_stats, np.abs(dist_pct), -np.inf)))
+        worst, worst_sig, worst_label = float(dist_pct[j]), float(dist_sig[j]), labels[j]
     else:
-        max_d, max_at, max_label = float("nan"), (float("nan"), float("nan")), ""
-        notes.append("no point far enough from the centre for a percent distortion")
-    if any(c.extrapolated for c in corners):
-        notes.append("corner distortion extrapolated from the fitted curve beyond the measured field")
+        worst, worst_sig, worst_label = float("nan"), float("nan"), ""
+        notes.append("no point far enough from the centre for a per-point percent distortion")
+    extrap = [c for c in corners if c.extrapolated]
+    if extrap:
+        far = max(extrap, key=lambda c: c.beyond_px)
+        notes.append(f"corner distortion extrapolated from the fitted model beyond the measured field "
+                     f"(up to {far.beyond_px:.0f} px, {far.beyond_percent:.0f} % in radius, at {far.name})")
     cls = _classify(curve, rule)
     offset = (model.cx - (geom.width - 1) / 2.0, model.cy - (geom.height - 1) / 2.0)
-    values = {
-        "max_distortion_percent": max_d,
-        "max_corner_distortion_percent": max((abs(c.distortion_percent) for c in corners), default=0.0),
-        "max_boresight_offset_px": math.hypot(*offset),
-        "max_skew_deg": geom.skew_deg,
-        "max_roll_deg": geom.roll_deg,
-        "max_residual_rms_px": model.rms_residual_px,
-        "max_defects": float(defect.sum()),
-        "max_efl_error_percent": 100.0 * (geom.focal_length_mm - nominal.focal_length_mm) / nominal.focal_length_mm,
+    off_sig = (model.sigma("cx"), model.sigma("cy"))
+    off_mag = math.hypot(*offset)
+    worst_corner = max(corners, key=lambda c: abs(c.distortion_percent))
+    efl_err = 100.0 * (geom.focal_length_mm - nominal.focal_length_mm) / nominal.focal_length_mm
+    n_used = int(keep.sum())
+    figures = {
+        "max_distortion_percent": (abs(max_d), max_sig),
+        "max_corner_distortion_percent": (abs(worst_corner.distortion_percent), worst_corner.sigma_percent),
+        "max_boresight_offset_px": (off_mag, math.hypot(offset[0] * off_sig[0], offset[1] * off_sig[1]) / off_mag
+                                    if off_mag > 0 else math.hypot(*off_sig)),
+        "max_skew_deg": (abs(geom.skew_deg), model.sigma("skew")),
+        "max_roll_deg": (abs(geom.roll_deg), model.sigma("roll")),
+        "max_residual_rms_px": (model.rms_residual_px, model.rms_residual_px / math.sqrt(2.0 * max(1, n_used))),
+        "max_defects": (float(defect.sum()), 0.0),
+        "max_efl_error_percent": (abs(efl_err), 100.0 * model.sigma("fx") / nominal.fx),
     }
+    field_text = f"measured field: hull of {n_have} points, to {r_meas_max_n * geom.fx:.0f} px from the centre"
+    conditions = {
+        "max_distortion_percent": {"mode": mode, "field": field_text, "at_px": list(max_at)},
+        "max_corner_distortion_percent": {"mode": mode, "corner": worst_corner.name, "basis": worst_corner.basis},
+    }
+    for key in figures:
+        conditions.setdefault(key, {"mode": mode, "points": n_used})
+    basis = "fitted model over the measured field"
+    headline = Headline("max_distortion_percent", max_d, max_sig, "%",
+                        f"max distortion {_rounded(max_d, max_sig)} % ({basis})")
     return DistortionResult(
         mode=mode, model=model, nominal=nominal, points=points, curve=curve, corners=corners, edges=edges,
         max_distortion_percent=max_d, max_distortion_at_px=max_at, max_distortion_label=max_label,
         classification=cls, boresight_offset_px=offset, defect_threshold_px=threshold_px,
-        verdicts=_verdicts(spec, values), n_missing=int((~have).sum()), n_extra=n_extra, match=match,
-        notes=tuple(notes),
+        verdicts=_verdicts(spec, figures, conditions), n_missing=int((~have).sum()), n_extra=n_extra, match=match,
+        notes=tuple(notes), max_distortion_sigma_percent=max_sig, worst_point_percent=worst,
+        worst_point_sigma_percent=worst_sig, worst_point_label=worst_label, boresight_offset_sigma_px=off_sig,
+        headline=headline, figures=figures,
     )
+
+
+def _term_value(model: FitModel, term: str) -> float:
+    from analysis.distortion_fit import _values
+
+    return _values(model.geometry)[term]
+
+
+def _rounded(value: float, sigma: float) -> str:
+    """value +/- sigma with the sigma to two significant digits (GUM 7.2.6 practice)."""
+    if not (math.isfinite(value) and math.isfinite(sigma)) or sigma <= 0:
+        return f"{value:+.3f}"
+    digits = max(0, 1 - int(math.floor(math.log10(sigma))))
+    return f"{value:+.{digits}f} +/- {sigma:.{digits}f}"
 
 
 def _robust_scale(r: np.ndarray) -> float:
@@ -624,12 +721,29 @@ def _spot_arrays(spots_or_xy: Sequence[Spot] | np.ndarray, sigma_px: np.ndarray 
         xy = np.asarray(spots_or_xy, dtype=float).reshape(-1, 2)
         sig = _sigma_or_nan(sigma_px, len(xy))
         return xy, sig
-    good = [s for s in spots_or_xy if not (s.flags & _UNUSABLE)]
+    good = [s for s in spots_or_xy if not (s.flags.value & _UNUSABLE.value)]
     xy = np.array([[s.x, s.y] for s in good], dtype=float).reshape(-1, 2)
     sig = np.array([[s.sigma_x, s.sigma_y] for s in good], dtype=float).reshape(-1, 2)
     if sigma_px is not None:
         sig = _sigma_or_nan(sigma_px, len(xy))
     return xy, sig
+
+
+def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray) -> None:
+    """Refuse when most detected spots carry a flag that keeps them out of the fit."""
+    if isinstance(spots, np.ndarray):
+        return
+    found = [s for s in spots if isinstance(s, Spot)]
+    bad = [s for s in found if s.flags.value & _UNUSABLE.value]
+    if found and len(bad) > MAX_FLAGGED_FRACTION * len(found):
+        counts: dict[str, int] = {}
+        for s in bad:
+            for f in SpotFlag:
+                if f and f in _UNUSABLE and s.flags & f:
+                    counts[f.name or ""] = counts.get(f.name or "", 0) + 1
+        raise DistortionRefused(
+            f"{len(bad)} of {len(found)} spots are flagged unusable ({', '.join(f'{k}: {v}' for k, v in counts.items())}); "
+            "check the spot size against the window, the focus, and the grid pitch (spots too close merge)")
 
 
 def _sigma_or_nan(sigma_px: np.ndarray | float | None, n: int) -> np.ndarray:
@@ -647,7 +761,7 @@ def analyze_grid(
     sigma_px: np.ndarray | float | None = None,
     spec: Mapping[str, float] | None = None,
     terms: Sequence[str] | None = None,
-    loss: str = "soft_l1",
+    loss: str = "linear",
     assume_matched: bool = False,
     gate_px: float | None = None,
     n_sigma: float = 5.0,
@@ -673,6 +787,7 @@ def analyze_grid(
     labels = tuple(labels) if labels is not None else tuple(f"p{i}" for i in range(n))
     if len(labels) != n:
         raise ValueError(f"{len(labels)} labels for {n} expected points")
+    _refuse_if_mostly_flagged(spots_or_xy)
     xy, sig = _spot_arrays(spots_or_xy, sigma_px)
     notes: list[str] = []
     measured = np.full((n, 2), np.nan)
@@ -685,7 +800,10 @@ def analyze_grid(
         measured, sigma = xy, sig
     else:
         expected = project(nominal.replace(defects=()), dirs, include_defects=False)
-        match = match_points(xy, expected, gate_px=gate_px)
+        try:
+            match = match_points(xy, expected, gate_px=gate_px)
+        except ValueError as exc:
+            raise DistortionRefused(str(exc)) from exc
         measured[match.pairs[:, 1]] = xy[match.pairs[:, 0]]
         sigma[match.pairs[:, 1]] = sig[match.pairs[:, 0]]
         n_extra = len(match.unmatched_detected)
@@ -708,7 +826,7 @@ def analyze_scan(
     sigma_px: np.ndarray | float | None = None,
     spec: Mapping[str, float] | None = None,
     terms: Sequence[str] | None = None,
-    loss: str = "soft_l1",
+    loss: str = "linear",
     n_sigma: float = 5.0,
     defect_floor_px: float = 0.1,
     rule: ClassificationRule = ClassificationRule(),
@@ -743,6 +861,7 @@ def analyze_scan(
         sig = _sigma_array(sigma_px, n)
     if np.isnan(sig).any() and not np.isnan(sig).all():
         sig = np.where(np.isnan(sig), np.nanmedian(sig), sig)
+    _refuse_if_mostly_flagged(list(measured))
     labels = tuple(labels) if labels is not None else tuple(f"az{az:+.2f}_el{el:+.2f}" for az, el in poses)
     return _analyze("scan", xy, sig, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,
                     rule, min_radius_fraction, 0, None, [])

@@ -28,7 +28,7 @@ def distortion_from_grid_frame(image: np.ndarray, points_mm: np.ndarray,
                                saturation: float | None = None,
                                threshold_sigma: float = 5.0) -> DistortionResult:
     """Distortion from one (averaged) frame of a pinhole grid; points_mm are (x, y) on the target."""
-    spots = detect_spots(np.asarray(image, dtype=float), saturation=saturation,
+    spots = detect_spots(np.asarray(image, dtype=float), saturation=saturation, method="gauss",
                          threshold_sigma=threshold_sigma)
     directions = to_camera_frame(collimator_directions(np.asarray(points_mm, float),
                                                        collimator_focal_mm), az_deg, el_deg)

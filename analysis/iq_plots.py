@@ -89,7 +89,7 @@ def plot_mtf_through_field(results: Sequence[SfrResult], shape: tuple[int, int],
     ax.set_ylabel("row (y)")
     title = "MTF at Nyquist through the field"
     if spec_min_at_nyquist is not None:
-        title += f" (spec: at least {spec_min_at_nyquist:g}, below circled)"
+        title += f"\n(spec: at least {spec_min_at_nyquist:g}, below circled)"
     ax.set_title(title)
     return _save(fig, path)
 

@@ -3,9 +3,10 @@
 Survives missing spots, extra spots (a hot pixel, a reflection) and an unknown small offset,
 roll and scale of the target. All points are (x, y) = (column, row) in pixels, arrays (N, 2).
 
-Method: translation hypotheses by voting (each detected spot near the middle of the pattern
-paired with every expected point, each hypothesis scored by how many expected points then find
-a detected spot nearby; a generalised Hough / "alignment by voting" scheme, common practice in
+Method: translation hypotheses by voting (a few detected spots near the middle of the pattern
+paired with the expected points nearest to them, each hypothesis scored on a fixed-size subset
+by how many expected points then find a detected spot nearby, so the cost grows about linearly
+with the number of points; a generalised Hough / "alignment by voting" scheme, common practice in
 star-pattern and grid registration), then refinement of the best hypotheses by an iterative
 closest point loop (Besl & McKay, IEEE PAMI 14:239, 1992) with mutual nearest neighbours inside
 a shrinking gate. Each refinement step solves the complex-linear least-squares model
@@ -106,11 +107,15 @@ def match_points(
     max_offset_px: float | None = None,
     radial: bool = True,
     iterations: int = 12,
+    n_candidates: int = 16,
+    subset: int = 32,
 ) -> MatchResult:
     """Pair detected (M, 2) with expected (N, 2) points, both (x, y) pixels.
 
     gate_px: final pairing distance after the transform (default 0.3 x the expected grid
-    pitch). max_offset_px: largest plausible shift of the pattern (default: any). Raises
+    pitch). max_offset_px: largest plausible shift of the pattern (default: within the
+    n_candidates expected points nearest the middle seeds, i.e. a couple of grid pitches
+    beyond the nominal place). subset: expected points each hypothesis is scored on. Raises
     ValueError when fewer than 3 points can be paired, with the counts in the message.
     """
     det = np.asarray(detected, dtype=float).reshape(-1, 2)
@@ -131,29 +136,45 @@ def match_points(
     z_exp = exp[:, 0] + 1j * exp[:, 1] - c
     tree_det = cKDTree(det)
 
-    # 1. Translation hypotheses: seeds near the middle of the detected pattern against all
-    #    expected points; scored by the count of expected points with a detection within
-    #    0.45 pitch (the middle is least affected by an unknown roll or scale).
-    dmid = det.mean(axis=0)
-    seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(2, len(det))]]
-    shifts = (seeds[:, None, :] - exp[None, :, :]).reshape(-1, 2)
+    # 1. Translation hypotheses, near-linear in the number of points: a few detected spots near
+    #    the middle of the detected pattern (least affected by an unknown roll or scale), each
+    #    paired only with the expected points nearest to it; each hypothesis scored on a fixed
+    #    subset (the expected points nearest the pattern centre) by the count that find a
+    #    detection within 0.45 pitch.
+    dmid = np.median(det, axis=0)
+    seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(3, len(det))]]
+    k = min(n_candidates, len(exp))
+    _, cand = tree_exp.query(seeds, k=k)
+    cand = np.asarray(cand).reshape(len(seeds), k)
+    shifts = (seeds[:, None, :] - exp[cand]).reshape(-1, 2)
     if max_offset_px is not None:
         base = np.median(det, axis=0) - np.median(exp, axis=0)
         shifts = shifts[np.hypot(*(shifts - base).T) <= max_offset_px + pitch]
         if len(shifts) == 0:
             shifts = base[None, :]
-    near = exp[np.argsort(np.abs(z_exp))[: max(9, len(exp) // 3)]]
-    moved = (near[None, :, :] + shifts[:, None, :]).reshape(-1, 2)
+    sub = exp[np.argsort(np.abs(z_exp))[: min(subset, len(exp))]]
+    moved = (sub[None, :, :] + shifts[:, None, :]).reshape(-1, 2)
     dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
-    score = np.isfinite(dist).reshape(len(shifts), len(near)).sum(axis=1)
-    # A shift by a whole grid pitch also fits the middle: re-score the leaders on every point,
-    # where the rows that fall off the detected pattern tell them apart.
-    lead = np.nonzero(score >= 0.7 * score.max())[0]
-    moved = (exp[None, :, :] + shifts[lead][:, None, :]).reshape(-1, 2)
+    score = np.isfinite(dist).reshape(len(shifts), len(sub)).sum(axis=1)
+    # A shift by a whole grid pitch also fits the middle: re-score the distinct leading shifts
+    # (at most 48) on points spread over the whole pattern (every k-th, at most 512), where
+    # the rows that fall off the detected pattern tell them apart.
+    lead_all = np.nonzero(score >= 0.7 * score.max())[0]
+    lead_all = lead_all[np.argsort(-score[lead_all], kind="stable")]
+    # Distinct shifts: the best of each cell of 0.3 pitch (one vectorised pass).
+    cells = np.round(shifts[lead_all] / (0.3 * pitch)).astype(np.int64)
+    _, first = np.unique(cells, axis=0, return_index=True)
+    lead = lead_all[np.sort(first)][:48].tolist()
+    lead_arr = np.array(lead)
+    spread = exp[:: max(1, len(exp) // 512)]
+    moved = (spread[None, :, :] + shifts[lead_arr][:, None, :]).reshape(-1, 2)
     dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
-    full = np.isfinite(dist).reshape(len(lead), len(exp)).sum(axis=1)
+    full = np.isfinite(dist).reshape(len(lead_arr), len(spread)).sum(axis=1)
+    lead = lead_arr
     order: list[int] = []
-    for h in lead[np.argsort(-full, kind="stable")]:
+    # Equal scores: a periodic grid with an edge row or column unseen fits one pitch off just as
+    # well; the expectation decides, so the smaller shift from the nominal place goes first.
+    for h in lead[np.lexsort((np.hypot(*shifts[lead].T), -full))]:
         # Distinct hypotheses only: the same shift found from another seed adds nothing.
         if all(np.hypot(*(shifts[h] - shifts[o])) > 0.3 * pitch for o in order):
             order.append(int(h))
@@ -182,8 +203,11 @@ def match_points(
         pairs = _mutual(tree_det, det, pred_xy, gate)
         res = det[pairs[:, 0]] - pred_xy[pairs[:, 1]]
         rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
-        if best is None or len(pairs) > best[0] or (len(pairs) == best[0] and rms < best[1]):
+        # More pairs wins; on a tie the hypothesis nearer the nominal place (see above).
+        if best is None or len(pairs) > best[0] or (len(pairs) == best[0] and abs(t) < abs(best[3][2])):
             best = (len(pairs), rms, pairs, (a, b, t))
+        if len(pairs) >= 0.95 * min(len(det), len(exp)):
+            break  # (nearly) everything paired: no other hypothesis can do better
     if best is None or best[0] < 3:
         raise ValueError(
             f"could not pair the {len(det)} detected spots with the {len(exp)} expected points "

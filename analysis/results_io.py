@@ -19,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from analysis.distortion import DistortionResult
+from analysis.verdicts import overall
 
 __all__ = ["distortion_summary", "write_distortion_json", "write_distortion_points_csv", "write_distortion_results"]
 
@@ -64,20 +65,28 @@ def distortion_summary(result: DistortionResult) -> dict[str, Any]:
             "effective_focal_length_mm": m.sigma("fx") * g.pixel_pitch_um / 1000.0,
         },
         "fitted_terms": list(m.fitted_terms),
+        "term_choice": list(m.term_choice),
         "reduced_chi2": m.reduced_chi2,
         "rms_residual_px": m.rms_residual_px,
         "n_points_fitted": m.n_points,
     }
     pts = result.points
+    h = result.headline
     summary = {
         "mode": result.mode,
         "max_distortion_percent": result.max_distortion_percent,
         "max_distortion_at_px": list(result.max_distortion_at_px),
         "max_distortion_label": result.max_distortion_label,
+        "max_distortion_sigma_percent": result.max_distortion_sigma_percent,
+        "max_distortion_basis": "fitted model, largest |local distortion| inside the hull of the measured points",
+        "worst_point_percent": result.worst_point_percent,
+        "worst_point_sigma_percent": result.worst_point_sigma_percent,
+        "worst_point_label": result.worst_point_label,
         "classification": result.classification.label,
         "classification_threshold_percent": result.classification.threshold_percent,
         "classification_reason": result.classification.reason,
         "boresight_offset_px": list(result.boresight_offset_px),
+        "boresight_offset_sigma_px": list(result.boresight_offset_sigma_px),
         "skew_deg": g.skew_deg,
         "roll_deg": g.roll_deg,
         "efl_mm": g.focal_length_mm,
@@ -85,6 +94,13 @@ def distortion_summary(result: DistortionResult) -> dict[str, Any]:
         "corners_percent": {c.name: c.distortion_percent for c in result.corners},
         "edges_percent": {c.name: c.distortion_percent for c in result.edges},
         "corners_extrapolated": any(c.extrapolated for c in result.corners),
+        "field_points": {c.name: {"percent": c.distortion_percent, "sigma_percent": c.sigma_percent,
+                                  "sigma_all_terms_percent": c.sigma_all_terms_percent,
+                                  "basis": c.basis, "extrapolated": c.extrapolated,
+                                  "beyond_measured_field_px": c.beyond_px,
+                                  "beyond_measured_radius_percent": c.beyond_percent,
+                                  "x_px": c.x_px, "y_px": c.y_px}
+                         for c in (*result.corners, *result.edges)},
         "n_points": len(pts),
         "n_measured": int(pts.measured.sum()),
         "n_missing": result.n_missing,
@@ -92,6 +108,9 @@ def distortion_summary(result: DistortionResult) -> dict[str, Any]:
         "n_defects": int(pts.defect.sum()),
         "defect_labels": [lab for lab, f in zip(pts.labels, pts.defect) if f],
         "passed": result.passed,
+        "verdict": overall(result.verdicts),
+        "headline": None if h is None else {"key": h.key, "value": h.value, "sigma": h.sigma,
+                                            "unit": h.unit, "text": h.text},
     }
     return _clean({
         "schema_version": SCHEMA_VERSION,
@@ -101,7 +120,9 @@ def distortion_summary(result: DistortionResult) -> dict[str, Any]:
                     "cx_px": result.nominal.principal_point[0], "cy_px": result.nominal.principal_point[1],
                     "width": result.nominal.width, "height": result.nominal.height,
                     "pixel_pitch_um": result.nominal.pixel_pitch_um, "projection": result.nominal.projection},
-        "verdicts": [{"name": v.name, "value": v.value, "limit": v.limit, "passed": v.passed} for v in result.verdicts],
+        "headline": None if h is None else {"key": h.key, "value": h.value, "sigma": h.sigma,
+                                            "unit": h.unit, "text": h.text},
+        "verdicts": [{**v.to_dict(), "name": v.key, "passed": v.passed} for v in result.verdicts],
         "thresholds": {
             "classification_none_below_percent": result.classification.threshold_percent
             if result.classification.label != "mustache" else None,
@@ -116,7 +137,7 @@ CSV_COLUMNS = (
     "expected_x_px", "expected_y_px", "ideal_x_px", "ideal_y_px", "measured_x_px", "measured_y_px",
     "sigma_x_px", "sigma_y_px", "fitted_x_px", "fitted_y_px", "error_x_px", "error_y_px",
     "error_x_mrad", "error_y_mrad", "error_fov_percent", "field_angle_deg", "radius_ideal_px",
-    "distortion_percent", "residual_x_px", "residual_y_px", "residual_sigmas",
+    "distortion_percent", "residual_x_px", "residual_y_px", "residual_sigmas", "distortion_sigma_percent",
 )
 
 
@@ -135,7 +156,8 @@ def _points_csv_text(result: DistortionResult) -> str:
             *(f(v) for v in (
                 *p.expected_nominal_px[i], *p.ideal_px[i], *p.measured_px[i], *p.sigma_px[i], *p.fitted_px[i],
                 *p.error_px[i], *p.error_mrad[i], p.error_fov_percent[i], p.field_angle_deg[i],
-                p.radius_ideal_px[i], p.distortion_percent[i], *p.residual_px[i], p.residual_sigmas[i])),
+                p.radius_ideal_px[i], p.distortion_percent[i], *p.residual_px[i], p.residual_sigmas[i],
+                np.nan if p.distortion_sigma_percent is None else p.distortion_sigma_percent[i])),
         ])
     return buf.getvalue()
 

@@ -160,12 +160,19 @@ def two_point_uniformity(mean_cool: np.ndarray, mean_warm: np.ndarray,
     # level is response x (S_cool / dS), with S_cool / dS (the dark level) unknown. It is
     # estimated by regressing the cool level on the response over the pixels, which assumes
     # the offset and gain patterns are uncorrelated.
+    # The temporal noise left in the means would dilute the slope (errors in the regressor:
+    # the response's noise variance vc + vw inflates its variance, and since response = warm -
+    # cool its noise is anti-correlated with the cool level's by -vc), so both are removed
+    # first (the usual correction for regression dilution; common practice).
     c = cool[good]
     rc = r - mean_r
-    k = float(np.dot(c - c.mean(), rc) / np.dot(rc, rc)) if np.ptp(r) > 0 else 0.0
+    n = max(len(r) - 1, 1)
+    var_r = float(np.dot(rc, rc)) / n - vc - vw
+    cov_cr = float(np.dot(c - c.mean(), rc)) / n + vc
+    k = cov_cr / var_r if var_r > 0 else 0.0
     level_free = c - k * r
-    # the regression moves the cool mean's noise into the level as (1 - k) x, and k x warm's
-    noise_free = float(level_free.var(ddof=1)) - (1 - k) ** 2 * vc - k * k * vw
+    # level_free = (1 + k) cool - k warm: its temporal noise is (1 + k)^2 vc + k^2 vw
+    noise_free = float(level_free.var(ddof=1)) - (1 + k) ** 2 * vc - k * k * vw
     off = math.sqrt(max(noise_free, 0.0))
     off_k = off / abs(sitf_counts_per_k) if sitf_counts_per_k else None
     return TwoPointUniformity(gain_nu, off, off_k, mean_r, int(good.sum()), dict(conditions or {}))

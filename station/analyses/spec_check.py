@@ -32,6 +32,7 @@ def spec_findings(uut: UutSpec, sources: Mapping[str, SourceRef], fallback: Sour
     used = {s.analysis for s in analyze}
     problems: list[Problem] = []
     warnings: list[Problem] = []
+    unjudged: list[tuple[SourceRef, str, str]] = []
     for key in uut.spec_limits:
         where = sources.get(key, fallback)
         if key not in declared:
@@ -41,9 +42,13 @@ def spec_findings(uut: UutSpec, sources: Mapping[str, SourceRef], fallback: Sour
             problems.append(Problem(where, f"spec key '{key}' is not a quantity any analysis "
                                            "evaluates, so it could never be judged", hint))
         elif declared[key] not in used:
-            warnings.append(Problem(where, f"spec key '{key}' is not judged by this recipe (it "
-                                           f"is evaluated by the {declared[key]} analysis, "
-                                           "which the recipe does not run)"))
+            unjudged.append((where, key, declared[key]))
+    if unjudged:  # one line for all of them: a UUT file covers more than one recipe measures
+        listed = ", ".join(f"{key} ({name})" for _, key, name in unjudged)
+        warnings.append(Problem(unjudged[0][0], f"{len(unjudged)} spec key(s) not judged by "
+                                f"this recipe: {listed}",
+                                "their analyses are not in the recipe; add them to judge those "
+                                "limits"))
     for step in analyze:
         analysis = registry[step.analysis]
         planned = analysis.planned_conditions(step, steps)
@@ -73,12 +78,25 @@ def _differences(stated: Mapping[str, float], planned: Mapping[str, float]) -> s
     A planned blackbody difference is compared with the spec's source minus background.
     """
     out = []
+    source = stated.get("source_c")
+    if "difference_min_k" in planned and source is not None:
+        lo, hi = planned["difference_min_k"], planned["difference_max_k"]
+        out.append(f"flats set {lo:g} to {hi:g} K over the lab's reference, whose temperature "
+                   f"the recipe does not set: they bracket source_c = {source:g} only for a "
+                   f"reference between {source - hi:g} and {source - lo:g} C"
+                   + (f", and the background is that reference, not {stated['background_c']:g} C"
+                      if "background_c" in stated else ""))
+    if "source_min_c" in planned and source is not None:
+        lo, hi = planned["source_min_c"], planned["source_max_c"]
+        if not lo - TEMPERATURE_TOLERANCE_C <= source <= hi + TEMPERATURE_TOLERANCE_C:
+            out.append(f"flats at source temperatures {lo:g} to {hi:g} C, which do not bracket "
+                       f"source_c = {source:g} (the noise there would be extrapolated)")
     if "difference_k" in planned and "source_c" in stated and "background_c" in stated:
         spec_difference = stated["source_c"] - stated["background_c"]
         if abs(planned["difference_k"] - spec_difference) > DIFFERENCE_TOLERANCE_K:
             out.append(f"a {planned['difference_k']:g} K blackbody difference over the lab's "
                        f"reference (the spec's is {spec_difference:g} K)")
     for name, value in planned.items():
-        if name in stated and abs(stated[name] - value) > TEMPERATURE_TOLERANCE_C:
+        if name in stated and name in ("source_c", "background_c") and abs(stated[name] - value) > TEMPERATURE_TOLERANCE_C:
             out.append(f"{name} = {value:g}")
     return "; ".join(out)

@@ -74,17 +74,28 @@ def cmd_run(args: argparse.Namespace, console: Console) -> int:
         with watching.console as live:
             live.start(len(inputs.plan.steps), inputs.estimate.total_s, **console_plan(inputs))
             outcome = execute(inputs, run, clock, live, seed=args.seed, manifest=manifest)
-        watching.finished(outcome.state, outcome.cause, str(run.path))
+        watching.finished(outcome.state, outcome.cause, str(run.path),
+                          outcome.safing_incomplete)
         close_manifest(run, manifest, outcome.state, outcome.cause, clock)
     run.release_writer_lock()
     _after_run(console, run.path)
     console.print(f"run {outcome.state}: {outcome.cause}", highlight=False, markup=False,
                   soft_wrap=True)
     if outcome.state != "complete":
-        for line in run_guard.safing_lines(run_guard.read_run_events(run.path), inputs.station):
+        events = run_guard.read_run_events(run.path)
+        for line in run_guard.safing_lines(events, inputs.station):
             console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+        _print_safing_incomplete(console, events)
     console.print(f"run folder: {run.path}", highlight=False, markup=False, soft_wrap=True)
     return _finish(console, outcome.state, outcome.cause, outcome.verdicts)
+
+
+def _print_safing_incomplete(console: Console, events: list[dict]) -> None:
+    """The loud block when safing left an instrument live (nothing when the bench is safe)."""
+    from station.cli import run_guard
+
+    for line in run_guard.safing_incomplete_block(events):
+        console.print(line, style="bold red", highlight=False, markup=False, soft_wrap=True)
 
 
 def _finish(console: Console, state: str, cause: str, verdicts: tuple[Verdict, ...]) -> int:
@@ -124,6 +135,7 @@ def cmd_check(args: argparse.Namespace, console: Console) -> int:
     from drivers.errors import InstrumentError
     from station.cli.plan_view import folded_text, full_text
     from station.engine.bench import open_bench
+    from station.engine.prechecks import check_simulated_camera
     from station.engine.runner import load_inputs, make_clock
 
     inputs = load_inputs(args.recipe, station_path=args.station, uut_path=args.uut,
@@ -282,19 +294,31 @@ def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
 
 def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
     if args.frame is not None:
-        if args.analysis != "distortion":
-            console.print("--frame works with distortion only (one grid frame); other analyses "
-                          "need a RUN_FOLDER")
-            return exitcodes.INVALID
+        if args.analysis != "distortion":  # the image-quality frame analyses, imported only here
+            from station.analyses.frame_files import FRAME_ANALYSES
+
+            if args.analysis not in FRAME_ANALYSES:
+                console.print(f"--frame works with distortion, {', '.join(FRAME_ANALYSES)}; "
+                              "other analyses need a RUN_FOLDER")
+                return exitcodes.INVALID
         if args.geometry is None:
             console.print("--frame needs --geometry (a file describing UUT, collimator and "
                           "target; see the README)")
             return exitcodes.INVALID
-        from station.analyses.frame_file import analyze_frame_file
+        first = Path(args.frame[0])
+        out = args.out or first.with_suffix("").parent / f"{args.analysis}_out"
+        if args.analysis == "distortion":
+            if len(args.frame) != 1:
+                console.print("distortion takes one --frame")
+                return exitcodes.INVALID
+            from station.analyses.frame_file import analyze_frame_file
 
-        out = args.out or Path(args.frame).with_suffix("").parent / "distortion_out"
-        summary = analyze_frame_file(args.frame, args.geometry, out,
-                                     plots=getattr(args, "plots", True))
+            summary = analyze_frame_file(first, args.geometry, out,
+                                         plots=getattr(args, "plots", True))
+        else:
+            from station.analyses.frame_files import analyze_iq_frames
+
+            summary = analyze_iq_frames(args.analysis, args.frame, args.geometry, out)
         _print_summary(console, summary)
         console.print(f"results in {out}", highlight=False, markup=False)
         return exitcodes.OK
@@ -335,9 +359,10 @@ def cmd_resume(args: argparse.Namespace, console: Console) -> int:
     console.print(f"run {state}: {cause}", highlight=False, markup=False, soft_wrap=True)
     if state not in ("complete",):
         simulated = _was_simulated(path)
-        for line in run_guard.safing_lines(run_guard.read_run_events(path),
-                                           simulated=simulated):
+        events = run_guard.read_run_events(path)
+        for line in run_guard.safing_lines(events, simulated=simulated):
             console.print(f"  {line}", highlight=False, markup=False, soft_wrap=True)
+        _print_safing_incomplete(console, events)
     console.print(f"run folder: {path}", highlight=False, markup=False, soft_wrap=True)
     verdicts: tuple[Verdict, ...] = ()
     if state == "complete":

@@ -10,6 +10,7 @@
                                            also reports misspelt entry-point groups
     nightbench analyze NAME RUN_FOLDER [--out DIR | --replace]   re-run a registered analysis
     nightbench analyze distortion --frame TIFF --geometry FILE [--out DIR]
+    nightbench analyze mtf|noise3d|badpixels --frame TIFF [--frame TIFF] --geometry FILE
     nightbench resume RUN_FOLDER [--force]
     nightbench verify RUN_FOLDER
     nightbench simulate [--station FILE] [--seed N] [--out FILE]   serve the simulated bench
@@ -144,8 +145,9 @@ def build_parser() -> argparse.ArgumentParser:
                              "a new RUN/reanalysis/<n>/ unless --replace or --out)")
     analyze.add_argument("analysis", choices=sorted(BUILTIN_NAMES))
     analyze.add_argument("run_folder", nargs="?", type=Path, default=None)
-    analyze.add_argument("--frame", type=Path, default=None,
-                         help="a standalone TIFF frame (with --geometry)")
+    analyze.add_argument("--frame", type=Path, default=None, action="append",
+                         help="a standalone TIFF frame or stack (with --geometry); badpixels "
+                              "takes two: the cool flat's stack, then the warm one's")
     analyze.add_argument("--geometry", type=Path, default=None,
                          help="geometry file describing UUT, collimator and target")
     analyze.add_argument("--out", type=Path, default=None,

@@ -149,9 +149,43 @@ def safing_lines(events: Sequence[Mapping[str, Any]], station: Any = None, *,
     return lines
 
 
+def safing_incomplete_block(events: Sequence[Mapping[str, Any]]) -> list[str]:
+    """The loud block shown when the last safing left an instrument live: which instrument,
+    why, and what the operator must do by hand. Empty when the last safing (if any) was
+    complete. Read from the event log, so `run` and `resume` show the same."""
+    last = None
+    for event in events:
+        kind = str(event.get("type", ""))
+        if kind == "safing.incomplete":
+            last = event
+        elif kind == "safing.blackbody":  # a later safing supersedes an earlier shortfall
+            last = None
+    if last is None:
+        return []
+    bar = "=" * 24
+    lines = [f"{bar} SAFING INCOMPLETE {bar}",
+             "The bench was NOT left safe. Make it safe by hand before anything else:"]
+    for item in last.get("shortfalls") or []:
+        lines.append(f"  {item.get('instrument')}: {item.get('problem')}")
+        lines.append(f"    by hand: {item.get('by_hand')}")
+    lines += ["Then check every instrument at the bench before starting another run.",
+              "=" * (2 * len(bar) + 19)]
+    return lines
+
+
 def run_exit_code(state: str, cause: str) -> int:
-    """Exit code of `run`: an instrument that did not answer gives INSTRUMENT, as in `bench`."""
-    if state == "faulted" and any(mark in (cause or "") for mark in UNREACHABLE_MARKS):
+    """Exit code of `run`: safing that left an instrument live gives SAFING_FAILED (it outranks
+    every other outcome: a person must act); an instrument that did not answer gives
+    INSTRUMENT, as in `bench` (also when it made safing fail at preflight, before anything
+    moved: the console still shows what could not be safed)."""
+    from station.engine.safing import INCOMPLETE_MARK
+
+    unreachable = state == "faulted" and any(mark in (cause or "") for mark in UNREACHABLE_MARKS)
+    if unreachable and (cause or "").startswith("preflight:"):
+        return exitcodes.INSTRUMENT  # nothing was moved: the bench is as it was before the run
+    if state != "complete" and INCOMPLETE_MARK in (cause or ""):
+        return exitcodes.SAFING_FAILED
+    if unreachable:
         return exitcodes.INSTRUMENT
     return exitcodes.BY_STATE.get(state, exitcodes.FAULTED)
 

@@ -11,12 +11,14 @@ from __future__ import annotations
 
 import os
 import signal
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
 from drivers.clock import Clock
 from station.cli.tee import ConsoleTee
 from station.engine.notify import Notifier, NotifyFollower
+from station.engine.safing import Shortfall
 from station.record.live import LiveStatusWriter
 
 __all__ = ["Watching", "watch_run"]
@@ -32,10 +34,17 @@ class Watching:
     console: ConsoleTee
     notifier: Notifier
 
-    def finished(self, state: str, cause: str, run_path: str) -> None:
-        """Notify the end of the run (a fault is its own occasion)."""
-        occasion = "fault" if state == "faulted" else "end"
-        self.notifier.send(occasion, {"state": state, "cause": cause, "run_folder": run_path})
+    def finished(self, state: str, cause: str, run_path: str,
+                 safing_incomplete: Sequence[Shortfall] = ()) -> None:
+        """Notify the end of the run. A fault is its own occasion, and so is safing that left
+        an instrument live (even after an abort): the summary then lists each such instrument
+        and what must be done by hand, for whoever is paged."""
+        occasion = "fault" if state == "faulted" or safing_incomplete else "end"
+        summary: dict[str, Any] = {"state": state, "cause": cause, "run_folder": run_path}
+        if safing_incomplete:
+            summary["safing_incomplete"] = [s.as_dict() for s in safing_incomplete]
+            summary["by_hand"] = [f"{s.instrument}: {s.by_hand}" for s in safing_incomplete]
+        self.notifier.send(occasion, summary)
 
 
 def watch_run(screen: Any, run: Any, plan: Any, station: Any, uut_serial: str,

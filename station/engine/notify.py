@@ -4,7 +4,7 @@ The station file may name, under `notify:` (station.inputs.notify_settings), a c
 to, and on which occasions::
 
     notify:
-      on: [end, fault, operator]       # default: all three
+      when: [end, fault, operator]     # default: all three
       command: ["/usr/local/bin/page-oncall", "--bench", "bay2"]   # argv list; no shell
       url: http://127.0.0.1:9000/bench-events
       timeout_s: 5
@@ -12,7 +12,10 @@ to, and on which occasions::
 Why this shape: overnight nobody watches a terminal. A failure to notify is recorded in the run's
 event log and never affects the run: the run's record is the run folder, a notification is a
 courtesy. The command gets the summary as JSON on its standard input and the occasion in the
-environment variable NIGHTBENCH_OCCASION; the POST body is the same JSON.
+environment variable NIGHTBENCH_OCCASION; the POST body is the same JSON. When safing could not
+make the bench safe, the end of the run is a `fault` whatever its state, and the summary also
+carries `safing_incomplete` (instrument, problem, by_hand for each instrument left live) and
+`by_hand` (the manual steps as lines), so whoever is paged knows what to do at the bench.
 """
 
 from __future__ import annotations

@@ -292,7 +292,8 @@ def _resume_locked(run: RunFolder, run_path: Path, *, force: bool, seed: int | N
                               fault_plan=fault_plan, manifest=manifest,
                               expected_identities=None if force else first_identities(run))
         if watching is not None:
-            watching.finished(outcome.state, outcome.cause, str(run_path))
+            watching.finished(outcome.state, outcome.cause, str(run_path),
+                              outcome.safing_incomplete)
     close_manifest(run, manifest, outcome.state, outcome.cause, clock, wall=wall)
     return outcome.state, outcome.cause, run_path
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import time
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -18,7 +18,7 @@ from drivers.errors import InstrumentError
 from sequences.estimate import Estimate, estimate
 from sequences.library import find_recipe
 from sequences.plan import Plan, expand
-from sequences.plansteps import BlackbodyStep, MoveStep
+from sequences.plansteps import BlackbodyStep, MoveStep, PlanStep, TargetStep
 from sequences.recipe import load_recipe
 from station.engine.abort import OperatorRequests, abort_on_signals
 from station.analyses.builtin import builtin_registry
@@ -95,9 +95,14 @@ def _place(problem: Problem) -> tuple[str, int, int]:
 
 
 def instrument_origins(station: StationConfig) -> tuple[list[str], list[str]]:
-    """(simulated roles, real roles) of a station, from the instruments' resources."""
+    """(simulated roles, real roles) of a station, from the instruments' resources.
+
+    A camera replaying recorded frames (`replay:`) runs on whatever clock the rest of the bench
+    needs: it counts as simulated, so a simulated bench replaying a run stays in simulated time.
+    """
     sim = [r for r, e in station.instruments.items()
-           if station.simulated and e.resource.startswith("sim")]
+           if station.simulated and (e.resource.startswith("sim")
+                                     or (r == "camera" and e.resource.startswith("replay:")))]
     return sim, [r for r in station.instruments if r not in sim]
 
 
@@ -115,7 +120,8 @@ def make_clock(station: StationConfig, realtime_speed: float | None) -> Clock:
 def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Emit, console: Console,
               expected_identities: Mapping[str, str] | None = None) -> None:
     """Before anything moves: instruments answer (the same ones, when resuming), setpoints
-    within limits, disk is enough."""
+    within the station's limits and accepted by each instrument itself, the blackbody's safing
+    commands work (its dry run), disk is enough."""
     for role, inst in bench.instruments().items():
         try:
             identity = inst.identify()
@@ -143,6 +149,12 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Emit, console: 
             if refusal is not None:
                 raise PreflightFailed(f"{step.id} ({step.source}): {refusal.message}; "
                                       f"{refusal.hint}")
+    ask_instruments(inputs.plan.steps, bench)
+    safing = bench.blackbody.safing_problem()
+    if safing is not None and not safing.startswith("not exercised"):
+        raise PreflightFailed(f"blackbody safing dry run: {safing}; the bench could not be made "
+                              "safe this way: fix the blackbody's safing commands in the station "
+                              f"file ({inputs.station.path}) and run 'nightbench check'")
     for warning in inputs.warnings:
         emit("preflight.warning", text=str(warning))
         console.log("warning", str(warning))
@@ -154,6 +166,40 @@ def preflight(inputs: Inputs, bench: Bench, run_dir: Path, emit: Emit, console: 
          frames=inputs.estimate.frames)
     console.log("info", f"preflight passed: {len(inputs.plan.steps)} steps, "
                 f"{inputs.estimate.frames} frames, estimated {format_duration(inputs.estimate.total_s)}")
+
+
+def instrument_refusal(step: PlanStep, bench: Bench) -> str | None:
+    """Why the instrument itself refuses this step (its own declared ranges, slots, axes), or
+    None. Pure checks: nothing is sent to the instrument."""
+    if isinstance(step, BlackbodyStep):
+        return bench.blackbody.setpoint_problem(step.mode, step.setpoint)
+    if isinstance(step, MoveStep):
+        for axis, value in step.position.items():
+            problem = bench.stage.position_problem(axis, float(value))
+            if problem is not None:
+                return problem
+        return None
+    if isinstance(step, TargetStep):
+        by_name = {name: slot for slot, name in bench.wheel.slot_names().items()}
+        slot = by_name.get(step.target)
+        if slot is None:
+            return (f"no slot named {step.target!r}; slots are "
+                    f"{', '.join(repr(n) for n in by_name) or 'none'}")
+        return bench.wheel.slot_problem(slot)
+    return None
+
+
+def ask_instruments(steps: Sequence[PlanStep], bench: Bench) -> None:
+    """Preflight asks each instrument about every step it will be given (blackbody setpoints,
+    stage moves and scan poses, wheel targets), before anything moves; the first refusal stops
+    the run with the step, its recipe file:line and the instrument's own reason."""
+    roles = {BlackbodyStep: "blackbody", MoveStep: "stage", TargetStep: "wheel"}
+    for step in steps:
+        problem = instrument_refusal(step, bench)
+        if problem is not None:
+            role = roles.get(type(step), step.kind)
+            raise PreflightFailed(f"{step.id} ({step.source}): the {role} refuses: {problem}; "
+                                  "change the recipe or the station file's limits")
 
 
 def console_plan(inputs: Inputs, done_ids: Mapping[str, object] | None = None

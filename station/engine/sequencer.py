@@ -7,6 +7,7 @@ a resumed run skips them and first brings the bench back to the state the next s
 
 from __future__ import annotations
 
+import math
 import time
 import traceback
 from collections.abc import Callable, Mapping
@@ -15,7 +16,7 @@ from dataclasses import dataclass
 from drivers.errors import InstrumentError, LimitError
 from station.engine.abort import RunInterrupted
 from station.engine.machine import RunStatus, build_machine
-from station.engine.safing import make_safe
+from station.engine.safing import INCOMPLETE_MARK, Shortfall, make_safe, shortfalls
 from station.engine.steps import JOURNAL_RESTORERS, STEP_HANDLERS, StepContext, StepHandler
 from station.engine.waiting import StepFailed
 from analysis.verdicts import Verdict
@@ -39,6 +40,11 @@ class RunOutcome:
     steps_total: int
     safing_problems: tuple[str, ...] = ()
     verdicts: tuple[Verdict, ...] = ()  # every verdict of the run (complete runs only)
+    safing_incomplete: tuple[Shortfall, ...] = ()  # what safing left for the operator to do
+
+    @property
+    def safing_failed(self) -> bool:
+        return bool(self.safing_problems)
 
 
 def describe(step: PlanStep) -> str:
@@ -174,10 +180,30 @@ class Sequencer:
                              on_poll=self.ctx.requests.deliver_notices)
         for p in problems:
             self.console.log("error", p)
-        full_cause = cause if not problems else cause + "; SAFING INCOMPLETE: " + "; ".join(problems)
+        left = shortfalls(problems, self._safe_c())
+        if left:  # on disk at once: the one record that the bench was left live
+            self.ctx.emit("safing.incomplete", instruments=[s.instrument for s in left],
+                          shortfalls=[s.as_dict() for s in left])
+            for shortfall in left:
+                self.console.log("error", f"{INCOMPLETE_MARK}: {shortfall.instrument}: "
+                                 f"{shortfall.by_hand}")
+        full_cause = (cause if not problems
+                      else f"{cause}; {INCOMPLETE_MARK}: " + "; ".join(problems))
         if kind == "abort":
             self.status.safe_after_abort(cause=full_cause)
         else:
             self.status.safe_after_fault(cause=full_cause)
         return RunOutcome(self.status.state, full_cause, self.steps_done, len(self.plan.steps),
-                          tuple(problems))
+                          tuple(problems), safing_incomplete=tuple(left))
+
+    def _safe_c(self) -> float | None:
+        """The blackbody's safe setpoint (for the operator's manual steps), if known."""
+        value = getattr(self.ctx.bench.blackbody, "safe_c", None)
+        if value is None:
+            entry = getattr(self.ctx.station, "instruments", {}).get("blackbody")
+            value = getattr(entry, "settings", {}).get("safe_c") if entry is not None else None
+        try:
+            number = float(value) if value is not None else math.nan
+        except (TypeError, ValueError):
+            return None
+        return number if math.isfinite(number) else None

@@ -7,9 +7,13 @@ beam and the stage pose. Layout (see station/data/example_geometry.yaml)::
     uut:        {width, height, pixel_pitch_um, focal_length_mm, projection?, cx?, cy?, bit_depth?}
     collimator: {focal_length_mm}
     target:     {kind: pinhole_grid, rows, cols, pitch_mm, diameter_mm}   (as in a wheel slot)
+                {kind: slanted_edge, angle_deg}                           (mtf)
+                {kind: open_aperture}                                     (noise3d, badpixels)
     stage:      {az_deg?, el_deg?}                                        (optional, default 0)
     spec_limits: {max_distortion_percent: ..., ...}                       (optional)
     saturation_counts: ...                                                (optional)
+    sitf_counts_per_k: ...        (optional: noise3d in mK)
+    flat_temperatures_c: [cool, warm]   (optional: the flats' source temperatures, stated)
 
 Every problem is reported at once with file:line and what to write instead.
 """
@@ -23,11 +27,17 @@ from typing import Any
 
 from analysis.distortion import _SPEC_KEYS as DISTORTION_SPEC_KEYS
 from analysis.geometry import PROJECTIONS, CameraGeometry
-from analysis.targets import PinholeGrid, SinglePinhole, target_from_mapping
+from analysis.badpixels import SPEC_KEYS as BAD_PIXEL_SPEC_KEYS
+from analysis.mtf import SPEC_KEYS as MTF_SPEC_KEYS
+from analysis.targets import (OpenAperture, PinholeGrid, SinglePinhole, SlantedEdge,
+                              target_from_mapping)
 from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, is_number,
                                   load_yaml)
 
-_TOP = ("uut", "collimator", "target", "stage", "spec_limits", "saturation_counts", "notes")
+_TOP = ("uut", "collimator", "target", "stage", "spec_limits", "saturation_counts", "notes",
+        "sitf_counts_per_k", "flat_temperatures_c")
+_SPEC_KEYS = (*DISTORTION_SPEC_KEYS, *MTF_SPEC_KEYS, *BAD_PIXEL_SPEC_KEYS)
+Target = PinholeGrid | SinglePinhole | SlantedEdge | OpenAperture
 _UUT_REQUIRED = ("width", "height", "pixel_pitch_um", "focal_length_mm")
 _UUT_KEYS = _UUT_REQUIRED + ("projection", "cx", "cy", "bit_depth", "model", "serial")
 _STAGE_KEYS = ("az_deg", "el_deg")
@@ -44,11 +54,13 @@ class GeometrySpec:
     path: Path
     nominal: CameraGeometry
     collimator_focal_mm: float
-    target: PinholeGrid | SinglePinhole
+    target: Target
     az_deg: float = 0.0
     el_deg: float = 0.0
     spec: dict[str, float] = field(default_factory=dict)
     saturation: float | None = None
+    sitf_counts_per_k: float | None = None
+    flat_temperatures_c: tuple[float, ...] = ()
 
     @property
     def shape(self) -> tuple[int, int]:
@@ -135,7 +147,7 @@ def _uut(r: _Reader, sec: MarkedDict) -> tuple[CameraGeometry | None, float | No
                           focal_length_mm=focal, projection=projection, cx=cx, cy=cy), saturation
 
 
-def _target(r: _Reader, doc: MarkedDict, base_dir: Path) -> PinholeGrid | SinglePinhole | None:
+def _target(r: _Reader, doc: MarkedDict, base_dir: Path) -> Target | None:
     sec = r.section(doc, "target", "describe the target, e.g. target: {kind: pinhole_grid, "
                     "rows: 11, cols: 15, pitch_mm: 12.0, diameter_mm: 1.0}")
     if sec is None:
@@ -148,9 +160,10 @@ def _target(r: _Reader, doc: MarkedDict, base_dir: Path) -> PinholeGrid | Single
             where = sec.key_ref(key) if key in sec else sec.ref()
             r.add(where, f"target.{line}")
         return None
-    if not isinstance(target, (PinholeGrid, SinglePinhole)):
-        r.add(sec.ref_of("kind"), f"target.kind: {target.kind} has no spots to measure "
-              "distortion with", "use pinhole_grid (or single_pinhole for scan mode)")
+    if not isinstance(target, (PinholeGrid, SinglePinhole, SlantedEdge, OpenAperture)):
+        r.add(sec.ref_of("kind"), f"target.kind: {target.kind} is not analysed from a frame",
+              "use pinhole_grid (distortion), slanted_edge (mtf) or open_aperture (noise3d, "
+              "badpixels)")
         return None
     return target
 
@@ -186,20 +199,32 @@ def load_geometry(path: str | Path) -> GeometrySpec:
     spec: dict[str, float] = {}
     limits = r.section(doc, "spec_limits", "write one 'name: number' per limit", required=False)
     if limits is not None:
-        r.unknown_keys(limits, tuple(DISTORTION_SPEC_KEYS), "spec_limits.")
+        r.unknown_keys(limits, _SPEC_KEYS, "spec_limits.")
         for key in limits:
-            if key in DISTORTION_SPEC_KEYS:
+            if key in _SPEC_KEYS:
                 value = r.number(limits, key, f"spec_limits.{key}")
                 if value is not None:
                     spec[str(key)] = value
     if "saturation_counts" in doc:
         saturation = r.number(doc, "saturation_counts", "saturation_counts", positive=True)
+    sitf = (r.number(doc, "sitf_counts_per_k", "sitf_counts_per_k", positive=True)
+            if "sitf_counts_per_k" in doc else None)
+    temps: tuple[float, ...] = ()
+    if "flat_temperatures_c" in doc:
+        raw = doc["flat_temperatures_c"]
+        if (isinstance(raw, list) and len(raw) == 2
+                and all(is_number(getattr(v, "value", v)) for v in raw)):
+            temps = tuple(float(getattr(v, "value", v)) for v in raw)
+        else:
+            r.add(doc.ref_of("flat_temperatures_c"), f"flat_temperatures_c: expected two "
+                  f"numbers [cool, warm], got {_plain(raw)!r}", "write e.g. [26.0, 34.0]")
     if r.problems or nominal is None or focal is None or target is None:
         if not r.problems:
             r.add(doc.ref(), "the geometry file is incomplete")
         raise GeometryFileError(r.problems)
     return GeometrySpec(path=path, nominal=nominal, collimator_focal_mm=focal, target=target,
-                        az_deg=az, el_deg=el, spec=spec, saturation=saturation)
+                        az_deg=az, el_deg=el, spec=spec, saturation=saturation,
+                        sitf_counts_per_k=sitf, flat_temperatures_c=temps)
 
 
 def example_geometry_path() -> Path:

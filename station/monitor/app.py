@@ -33,6 +33,7 @@ from starlette.routing import Route
 from station.monitor.folders import (EventTail, find_runs, latest_capture, progress_of,
                                      results_of, iter_capture_images)
 from station.monitor.preview import preview_png
+from station.formatting import reading_lines
 from station.record.live import ACTIONS, post_request, read_status
 
 __all__ = ["MonitorSettings", "build_app"]
@@ -142,7 +143,8 @@ def build_app(settings: MonitorSettings) -> Starlette:
                 if snap["status"] != last_status:
                     last_status = snap["status"]
                     yield _sse("status", {"status": snap["status"], "progress": snap["progress"],
-                                          "state": snap["state"]})
+                                          "state": snap["state"],
+                                          "reading_lines": snap["reading_lines"]})
                 new = tail.read(limit=200)
                 if new:
                     yield _sse("events", new)
@@ -243,6 +245,8 @@ def _snapshot(path: Path) -> dict[str, Any]:
             preview = f"{found[0].name}:{found[0].stat().st_mtime}"
         except OSError:
             preview = None
-    return {"name": path.name, "state": state, "status": status,
+    readings = status.get("readings") or {}
+    lines = reading_lines(readings) if isinstance(readings, dict) else []
+    return {"name": path.name, "state": state, "status": status, "reading_lines": lines,
             "progress": progress_of({**status, "state": state}) if status else {},
             "results": results_of(path), "preview": preview, "served_at": time.time()}

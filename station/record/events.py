@@ -83,6 +83,7 @@ class Event(str, Enum):
     RESUME_RESTORE = ("resume.restore", True)
     SAFING_BLACKBODY = ("safing.blackbody", True)
     SAFING_STAGE = ("safing.stage", True)
+    SAFING_INCOMPLETE = ("safing.incomplete", True)  # an instrument left live: by-hand steps
     INTERNAL_ERROR = ("internal_error", True)
     LOG = ("log", False)
     LOG_REPAIRED = ("log_repaired", True)

@@ -38,6 +38,9 @@ MANIFEST_NAME = "manifest.json"
 MANIFEST_FORMAT = "nightbench-manifest"
 RUNNING = "running"
 NOT_RECORDED = frozenset({"writer.lock", "space.reserve"})
+DERIVED_AFTER_CLOSE = frozenset({"report.html", "report.pdf", "history-pending.json"})
+"""Written from the closed record after the manifest (the report, a history still to catch up):
+not part of the record, so never checksummed (a resume rewrites them)."""
 """Files at the top of a run folder that are machinery, not record: the writer lock (see
 writer_lock.py) and the disk reserve for the closing manifest (see closing.py)."""
 
@@ -169,8 +172,8 @@ def checksum_files(run_path: Path) -> dict[str, dict[str, Any]]:
         if not path.is_file():
             continue
         rel = path.relative_to(run_path).as_posix()
-        if (rel == MANIFEST_NAME or rel in NOT_RECORDED or path.name.endswith(TEMP_SUFFIX)
-                or is_live_view(rel)):  # the live view changes after the close: not record
+        if (rel == MANIFEST_NAME or rel in NOT_RECORDED or rel in DERIVED_AFTER_CLOSE
+                or path.name.endswith(TEMP_SUFFIX) or is_live_view(rel)):  # the live view changes after the close: not record
             continue
         files[rel] = {"sha256": sha256_file(path), "bytes": path.stat().st_size}
     return files

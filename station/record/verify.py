@@ -26,13 +26,10 @@ from station.record.frame_store import (ABANDONED, CAPTURE_FORMAT, META_SUFFIX, 
                                  partial_files, capture_stem)
 from station.record.journal import Journal, JournalError
 from station.record.live import is_live_view
-from station.record.manifest import (MANIFEST_NAME, NOT_RECORDED, RUNNING, ManifestError,
-                                     load_manifest)
+from station.record.manifest import (DERIVED_AFTER_CLOSE, MANIFEST_NAME, NOT_RECORDED, RUNNING,
+                                     ManifestError, load_manifest)
 from station.record.runfolder import EVENTS_NAME, JOURNAL_NAME, MARKER_NAME
 
-DERIVED_AFTER_CLOSE = frozenset({"report.html", "report.pdf", "history-pending.json"})
-"""Written from the closed record after the manifest (the report, a history still to catch up):
-not part of the record, so not checksummed."""
 
 
 @dataclass

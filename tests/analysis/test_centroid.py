@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy.special import ndtr
 
-from analysis.centroid import SpotFlag, centroid_at, detect_spots, estimate_background
+from analysis.centroid import SpotFlag, centroid_at, detect_spots, estimate_background, repair_isolated_pixels
 
 
 def gaussian_spot(shape, x, y, flux, s, bg=0.0):
@@ -128,7 +128,7 @@ def test_com_reported_sigma_matches_scatter():
     for _ in range(200):
         dx, dy = rng.uniform(-0.5, 0.5, 2)
         img = gaussian_spot((21, 21), 10 + dx, 10 + dy, flux, s) + rng.normal(0, sigma_n, (21, 21))
-        sp = centroid_at(img, 10, 10, 7, background=_known_bg(sigma_n))
+        sp = centroid_at(img, 10, 10, 7, background=_known_bg(sigma_n), method="com")
         errs.append(sp.x - 10 - dx)
         rep.append(sp.sigma_x)
     rms = float(np.sqrt(np.mean(np.square(errs))))
@@ -186,3 +186,42 @@ def test_centroid_at_finds_offset_spot_and_rejects_outside_start():
     assert sp.x == pytest.approx(300.3, abs=0.1) and sp.y == pytest.approx(200.7, abs=0.1)
     with pytest.raises(ValueError, match="outside"):
         centroid_at(img, 700.0, 10.0)
+
+
+@pytest.mark.parametrize("s", [0.5, 0.7, 0.9])
+def test_hot_pixel_repair_leaves_sharp_spots_alone(s):
+    """No pixel of a sharp spot is 'repaired', at every sub-pixel phase and brightness.
+
+    Physics (outside the code under test): an image through a Gaussian blur of sigma >= 0.5 px
+    is log-concave with curvature >= -1/s^2 (Brascamp & Lieb, J. Funct. Anal. 22:366, 1976),
+    so only a pixel breaking that can be a defect. Spots are pixel-integrated Gaussians (erf
+    differences, as in the simulated camera). 11 x 11 phases x 3 brightnesses = 363 spots.
+    """
+    rng = np.random.default_rng(11)
+    repaired = 0
+    for flux in (300.0, 5_000.0, 100_000.0):
+        for fx in np.linspace(-0.5, 0.5, 11):
+            for fy in np.linspace(-0.5, 0.5, 11):
+                img = gaussian_spot((15, 15), 7 + fx, 7 + fy, flux, s) + rng.normal(0, 1.0, (15, 15))
+                repaired += len(repair_isolated_pixels(img, 1.0)[1][0])
+    assert repaired == 0
+
+
+def test_hot_pixel_beside_a_sharp_spot_is_repaired_and_the_spot_kept():
+    """A full-scale hot pixel touching a sigma 0.7 px spot is repaired (and only it); the spot
+    is still found. Hot pixels read full scale in the simulated camera (camera_render)."""
+    rng = np.random.default_rng(5)
+    shape = (40, 40)
+    img = gaussian_spot(shape, 20.3, 19.8, 20_000.0, 0.7, bg=100.0) + rng.normal(0, 2.0, shape)
+    for dr, dc in ((0, 1), (1, 1), (-1, 0), (0, 2)):
+        frame = img.copy()
+        frame[20 + dr, 20 + dc] = 16383.0
+        bg = estimate_background(frame)
+        fixed, idx = repair_isolated_pixels(frame - bg.level, bg.noise)
+        assert list(zip(idx[0].tolist(), idx[1].tolist())) == [(20 + dr, 20 + dc)]
+        # The repaired value is the neighbours' median: within the spot's own range, not 16k.
+        assert fixed[20 + dr, 20 + dc] < 0.5 * 20_000.0
+    clean = img.copy()
+    spots = detect_spots(clean, window_px=7)
+    assert len(spots) == 1 and spots[0].ok
+    assert spots[0].x == pytest.approx(20.3, abs=0.05)

@@ -83,3 +83,50 @@ def test_undistortion_map_file_matches_opencv(result, tmp_path):
     assert map_x.shape == (512, 640) and map_y.shape == (512, 640)
     assert np.max(np.abs(map_x - ref_x)) < 2e-3 + skew_px
     assert np.max(np.abs(map_y - ref_y)) < 2e-3
+
+
+def test_json_verdicts_headline_and_uncertainties(result, tmp_path):
+    """Every figure a verdict uses carries a sigma; verdicts follow analysis.verdicts'
+    guarded acceptance (GUM/ILAC-G8 decision rule, k = 2); one headline in the JSON."""
+    doc = json.loads(write_distortion_results(result, tmp_path / "r")[0].read_text())
+    s = doc["summary"]
+    (v,) = doc["verdicts"]
+    assert v["key"] == v["name"] == "max_distortion_percent"
+    assert v["sigma"] > 0 and v["status"] == "PASS" and v["margin"] == pytest.approx(3.0 - v["value"])
+    # The verdict judges the fitted-model maximum, not the worst noisy point.
+    assert v["value"] == pytest.approx(abs(s["max_distortion_percent"]))
+    assert s["max_distortion_sigma_percent"] > 0 and s["worst_point_sigma_percent"] > 0
+    assert s["headline"] == doc["headline"]
+    assert f"{s['max_distortion_percent']:+.2f}"[:4] in s["headline"]["text"]
+    # Corners: measured or extrapolated, and how far beyond the measured field.
+    tl = s["field_points"]["top_left"]
+    assert tl["extrapolated"] is True and tl["beyond_measured_field_px"] > 0
+    assert tl["sigma_percent"] > 0
+    assert "extrapolated" in tl["basis"]
+    assert any("fitted" in t or "held" in t for t in doc["model"]["term_choice"])
+
+
+def test_every_plot_carries_verdict_headline_and_footer(result, tmp_path, monkeypatch):
+    from matplotlib.figure import Figure
+
+    from analysis.distortion_plots import headline_text
+
+    seen = []
+    real = Figure.savefig
+
+    def spy(fig, *a, **k):
+        texts = [t.get_text() for t in fig.texts]
+        lines = [ln for ax in fig.axes for ln in ax.get_lines()]
+        seen.append((texts, [ln.get_label() for ln in lines]))
+        return real(fig, *a, **k)
+
+    monkeypatch.setattr(Figure, "savefig", spy)
+    write_distortion_plots(result, tmp_path / "plots", uut_serial="OW-0042", run_id="20260101T000000Z",
+                           date="2026-01-01")
+    assert len(seen) == 3
+    for texts, _ in seen:
+        title = [t for t in texts if headline_text(result) in t]
+        assert title and title[0].startswith("PASS")
+        assert any("OW-0042" in t and "20260101T000000Z" in t and "2026-01-01" in t for t in texts)
+    # The radial plot draws the +/- 3 % spec limit.
+    assert any("limit max_distortion_percent" in lab for lab in seen[1][1])

@@ -53,3 +53,20 @@ def test_pairs_survive_missing_extra_offset_roll_and_barrel(roll, scale, shift):
 def test_too_few_points_is_a_clear_error():
     with pytest.raises(ValueError, match="at least 3"):
         match_points(np.zeros((2, 2)), _grid())
+
+
+def test_no_one_pitch_slip_with_an_edge_column_missing_and_extras():
+    """A grid is periodic: a hypothesis one pitch off fits every point but one column. With the
+    first column missing and 10 stray spots, every spot must still pair with its own point
+    (checked against the construction, the outside truth here)."""
+    rng = np.random.default_rng(16)
+    exp = _grid()
+    det = exp + np.array([3.0, -2.0]) + rng.normal(0, 0.05, exp.shape)
+    keep = exp[:, 0] > 31.0  # the first column (x = 30) is not seen
+    extras = rng.uniform([0, 0], [640, 512], (10, 2))
+    pts = np.vstack([det[keep], extras])
+    m = match_points(pts, exp)
+    got = {int(e): int(d) for d, e in m.pairs}
+    want = {int(e): i for i, e in enumerate(np.nonzero(keep)[0])}
+    assert all(got.get(e) == d for e, d in want.items())
+    assert m.transform.offset_px[0] == pytest.approx(3.0, abs=0.5)

@@ -368,3 +368,40 @@ def test_a_declared_stage_state_maps_words_to_busy_and_faults() -> None:
             st.is_moving()
     assert str(err.value) == ("stage: axis x jammed at 7.250; command 'ST x'. ZERO x after "
                               "checking the stage")
+
+
+def test_run_refuses_a_station_whose_safing_command_has_a_typo_before_anything_moves(
+        fake, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """Through `nightbench run` (not only `check`): preflight's safing dry run refuses the run
+    before any step starts. Safing on the way out goes through the same broken template, so the
+    console says SAFING INCOMPLETE with the manual steps and the exit code is SAFING_FAILED (7):
+    nightbench cannot set this source safe, and says so."""
+    import json
+
+    from station.cli import exitcodes
+    from station.cli.main import main
+    from station.inputs.config import BUILTIN_DIR
+
+    clock, bench, server, late = fake
+    doc = yaml.safe_load((BUILTIN_DIR / "sim_station.yaml").read_text(encoding="utf-8"))
+    entry = settings_of(station_text('set_temperature: "T.SET {value:.2f}"',
+                                     'set_temperature: "T.SETT {value:.2f}"'))
+    doc["instruments"]["blackbody"] = {"driver": "scpi-configurable-blackbody",
+                                       "resource": f"socket://127.0.0.1:{server.port}", **entry}
+    doc["simulation"]["camera_truth"] = str(BUILTIN_DIR / "demo_camera_truth.yaml")
+    station = tmp_path / "station.yaml"
+    station.write_text(yaml.safe_dump(doc, sort_keys=False), encoding="utf-8")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text("recipe: one\ndescription: one setpoint\nsteps:\n"
+                      "  - blackbody: {mode: absolute, value: 30.0, hold: 1, timeout: 60}\n")
+    code = main(["run", str(recipe), "--station", str(station), "--runs", str(tmp_path / "runs"),
+                 "--plain"])
+    out = " ".join(capsys.readouterr().out.split())
+    assert code == exitcodes.SAFING_FAILED
+    assert ("run faulted: preflight: blackbody safing dry run: the safing commands fail: "
+            "blackbody: refused (error 100); command 'T.SETT 22.00'; reply 'ERR 100'") in out
+    assert "SAFING INCOMPLETE" in out and "set it to 22 C at the front panel" in out
+    events = [json.loads(line) for line in
+              next((tmp_path / "runs").glob("*/events.jsonl")).read_text().splitlines()]
+    assert not [e for e in events if e["type"] == "step.start"]  # nothing moved
+    assert bench.blackbody.setpoint_c() == pytest.approx(22.0)  # the source was left as it was

@@ -62,7 +62,8 @@ def recipe_runs(report_root: Path, history_sqlite: str) -> dict[str, Path]:
     out = {}
     for name, proc in procs.items():
         text, _ = proc.communicate(timeout=240)
-        assert proc.returncode in (0,), f"{name}: exit {proc.returncode}\n{text[-2000:]}"
+        # 0: the UUT passed; 6: it completed and failed a spec limit (the demo fails NETD)
+        assert proc.returncode in (0, 6), f"{name}: exit {proc.returncode}\n{text[-2000:]}"
         assert "history: recorded" in text and "report: " in text, text[-1500:]
         (folder,) = [p for p in (report_root / name).iterdir() if p.is_dir()]
         out[name] = folder

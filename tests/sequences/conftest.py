@@ -16,7 +16,8 @@ def facts() -> StationFacts:
         limits=StationLimits.from_ranges(absolute_c=(5.0, 100.0), difference_k=(-10.0, 40.0),
                                          axes={"az": (-45.0, 45.0, "deg"),
                                                "el": (-30.0, 30.0, "deg")}),
-        analyses=frozenset({"distortion", "sitf", "netd", "uniformity"}),
+        analyses=frozenset({"distortion", "sitf", "netd", "uniformity", "badpixels", "noise3d",
+                            "mtf"}),
     )
 
 

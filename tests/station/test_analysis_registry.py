@@ -41,6 +41,7 @@ steps:
   - analyze: {analysis: sitf, captures: [flat]}
   - analyze: {analysis: netd, captures: [flat]}
   - analyze: {analysis: uniformity, captures: [flat]}
+  - analyze: {analysis: badpixels, captures: [flat]}
   - target: pinhole_grid
   - blackbody: {mode: difference, value: 30, tolerance: 0.05, hold: 2, timeout: 300}
   - capture: {name: grid, frames: 4, keep: average}
@@ -105,7 +106,7 @@ def _numbers(a: object, b: object, where: str = "") -> None:
 
 @pytest.mark.parametrize("name, files", [
     ("sitf", ["sitf.json"]), ("netd", ["netd.json"]), ("uniformity", ["uniformity.json"]),
-    ("distortion", ["distortion.json"]),
+    ("badpixels", ["badpixels.json"]), ("distortion", ["distortion.json"]),
 ])
 def test_analyze_reproduces_the_runs_own_results(recorded, name, files, capsys,
                                                  monkeypatch) -> None:
@@ -136,23 +137,27 @@ def test_run_ends_with_the_results_table_and_the_failed_unit_code(recorded) -> N
     table = out[out.index("what the run found"):]
     row = next(line for line in table.splitlines() if "netd_mk" in line)
     assert "FAIL" in row and "+/-" in row and "<= 1 mK" in row
-    # netd, bad pixels and three distortion keys of the demo UUT judged; only netd fails
-    assert out.rstrip().endswith("UUT FAILED (1 of 5)")
+    # netd, bad pixels, gain and offset non-uniformity and three distortion keys of the demo UUT
+    # judged; only netd fails
+    assert out.rstrip().endswith("UUT FAILED (1 of 7)")
     verdicts = _json(folder / "results" / "verdicts.json")
     assert verdicts["outcome"] == "FAILED" and verdicts["failed"] == 1
-    assert verdicts["judged"] == 5
+    assert verdicts["judged"] == 7
     assert verdicts["uut"]["serial"] == "DEMO-0042"
     keys = {v["key"]: v for v in verdicts["verdicts"]}
     assert {"netd_mk", "max_bad_pixel_percent", "max_distortion_percent"} <= set(keys)
     # the estimate's and the spec's warnings reach the run's log before anything moves
     events = [json.loads(x) for x in (folder / "events.jsonl").read_text().splitlines()]
     warned = [e["text"] for e in events if e["type"] == "preflight.warning"]
-    assert any("measures 'netd_mk' at a 2 K blackbody difference" in w for w in warned)
+    # flats set as differences over the lab reference: check says whether they can bracket 30 C
+    assert any("measures 'netd_mk' at flats set 2 to 10 K over the lab's reference" in w
+               for w in warned)
     assert max(i for i, e in enumerate(events) if e["type"] == "preflight.warning") < next(
         i for i, e in enumerate(events) if e["type"] == "step.start")
     netd = keys["netd_mk"]
     assert netd["conditions"]["spec_source_c"] == 30.0
-    assert netd["conditions"]["difference_k"] == pytest.approx(2.0, abs=0.1)
+    # evaluated at the spec's source temperature, from flats (22 C + 2..10 K) that bracket it
+    assert netd["conditions"]["source_c"] == 30.0 and netd["conditions"]["brackets_source"]
 
 
 def test_a_passing_unit_exits_zero(tmp_path, capsys, monkeypatch) -> None:

@@ -275,6 +275,7 @@ def test_a_resumed_run_moves_relative_to_the_origin_its_align_step_set(tmp_path:
     live = RunConsole(Console(file=io.StringIO()), plain=True, clock=clock)
     outcome = execute(inputs, run, clock, live, seed=5, manifest=manifest)
     run.close()
+    run.release_writer_lock()  # as `nightbench run` does when it ends
     assert outcome.state == "complete", outcome.cause
     # As if the power failed right after the align step: the journal ends there.
     journal = run.path / "journal.jsonl"

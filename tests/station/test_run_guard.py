@@ -95,7 +95,7 @@ def test_stage_envelope_covers_every_move_and_park(tmp_path: Path) -> None:
     inputs = load_inputs("distortion-scan", station_path=station, uut_path=DEMO_UUT,
                          overrides={})
     env = plan_envelope(inputs.plan.steps, inputs.station)
-    moves = [s.params["position"] for s in inputs.plan.steps if s.kind == "move"]
+    moves = [s.position for s in inputs.plan.steps if s.kind == "move"]
     for axis, (lo, hi, unit) in env.axes.items():
         values = [m[axis] for m in moves if axis in m] + [0.0]  # park of both axes is 0
         assert (lo, hi, unit) == (min(values), max(values), "deg")
@@ -110,7 +110,7 @@ def test_unattended_start_is_recorded_and_an_unreachable_bench_exits_4(
                  "--runs", str(runs), "--yes", "--plain"])
     out = capsys.readouterr().out
     assert code == exitcodes.INSTRUMENT, out  # as `bench` exits when an instrument is silent
-    (folder,) = list(runs.iterdir())
+    (folder,) = [p for p in runs.iterdir() if p.is_dir()]  # beside it: the history file
     manifest = json.loads((folder / "manifest.json").read_text())
     assert manifest["start_confirmation"].startswith("--yes: unattended start")
     assert manifest["state"] == "faulted"

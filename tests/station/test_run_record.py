@@ -76,6 +76,7 @@ def dry_run(recipe: Path, station: Path, runs: Path, wall_s: float, console_file
     run.close()
     manifest.close(run.path, state=outcome.state, cause=outcome.cause, clock=clock,
                    wall=lambda: wall_s + 0.5)
+    run.release_writer_lock()
     return outcome, run.path
 
 

@@ -69,7 +69,7 @@ def run_with_two_sigints(files: Path, runs: Path, monkeypatch: pytest.MonkeyPatc
     frames_seen = {"n": 0}
 
     def capture(step: Any, ctx: Any) -> dict:
-        if step.params["name"] == "long":
+        if step.name == "long":
             original_grab = ctx.bench.camera.grab
 
             def grab(count: int):

@@ -21,7 +21,7 @@ import pytest
 pexpect = pytest.importorskip("pexpect")
 pyte = pytest.importorskip("pyte")
 
-COLUMNS, ROWS = 110, 30
+COLUMNS, ROWS = 110, 60  # tall: the final frame stays on screen above the results and report lines
 SPEED = 200.0
 WAIT_S = 60.0
 RECIPE = f"""\

@@ -72,7 +72,9 @@ def test_altered_byte_truncation_and_deletion_are_each_named(tmp_path: Path) -> 
     assert report.missing == ["results/sitf.json"]
     assert report.extra == ["plots/late.png"]
     text = report.format()
-    assert "verdict: 4 problem(s)" in text
+    # the flipped bit and the cut are also caught by each capture's own checksums (metadata)
+    assert "flat_5K.stack.tif does not match the checksum in its metadata" in text
+    assert "verdict: 6 problem(s)" in text
     for name in ("flat_5K.stack.tif", "flat_10K.avg.tif", "results/sitf.json", "plots/late.png"):
         assert name in text
 

@@ -47,10 +47,11 @@
     var body = $("readings").querySelector("tbody");
     body.innerHTML = "";
     var readings = st.readings || {};
-    Object.keys(readings).forEach(function (k) {
+    // one text per instrument, with units, formatted by the station as on its own screen
+    (msg.reading_lines || []).forEach(function (pair) {
       var tr = document.createElement("tr");
-      var a = document.createElement("td"); a.textContent = k;
-      var b = document.createElement("td"); b.textContent = fmt(readings[k]);
+      var a = document.createElement("td"); a.textContent = pair[0];
+      var b = document.createElement("td"); b.textContent = pair[1];
       tr.appendChild(a); tr.appendChild(b); body.appendChild(tr);
     });
     var bb = readings.blackbody || {};
