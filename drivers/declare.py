@@ -22,6 +22,7 @@ declared in `Dialect`, never hand-coded.
 
 from __future__ import annotations
 
+import functools
 import re
 import string
 from collections.abc import Callable, Mapping
@@ -96,7 +97,7 @@ class Dialect:
     def error_pattern(self) -> str:
         if self.error is not None:
             return self.error
-        return template_regex(self.error_reply, {"code": r"-?\d+", "message": ".*"})
+        return _error_regex(self.error_reply)
 
     def refusal(self, code: int, message: str) -> str:
         """The error reply a simulator speaking this dialect sends."""
@@ -148,6 +149,12 @@ def template_regex(template: str, fields: Mapping[str, str] | None = None) -> st
         if name is not None:
             out.append(f"(?P<{name}>{fields.get(name, '.+?')})")
     return "".join(out)
+
+
+@functools.lru_cache(maxsize=64)
+def _error_regex(error_reply: str) -> str:
+    """The error reply's pattern: asked at every reply, built once per template (pure)."""
+    return template_regex(error_reply, {"code": r"-?\d+", "message": ".*"})
 
 
 def header(template: str) -> str:

@@ -293,17 +293,14 @@ def cmd_drivers(args: argparse.Namespace, console: Console) -> int:
 
 
 def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
-    from analysis.verdicts import FAIL
-    from station.analyses.reanalyze import analyze_frame_file, analyze_run_folder
-    from station.cli.results_table import print_results
-
     if args.frame is not None:
-        from station.analyses.frame_files import FRAME_ANALYSES, analyze_iq_frames
+        if args.analysis != "distortion":  # the image-quality frame analyses, imported only here
+            from station.analyses.frame_files import FRAME_ANALYSES
 
-        if args.analysis not in ("distortion", *FRAME_ANALYSES):
-            console.print(f"--frame works with distortion, {', '.join(FRAME_ANALYSES)}; other "
-                          "analyses need a RUN_FOLDER")
-            return exitcodes.INVALID
+            if args.analysis not in FRAME_ANALYSES:
+                console.print(f"--frame works with distortion, {', '.join(FRAME_ANALYSES)}; "
+                              "other analyses need a RUN_FOLDER")
+                return exitcodes.INVALID
         if args.geometry is None:
             console.print("--frame needs --geometry (a file describing UUT, collimator and "
                           "target; see the README)")
@@ -314,8 +311,13 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
             if len(args.frame) != 1:
                 console.print("distortion takes one --frame")
                 return exitcodes.INVALID
-            summary = analyze_frame_file(first, args.geometry, out)
+            from station.analyses.frame_file import analyze_frame_file
+
+            summary = analyze_frame_file(first, args.geometry, out,
+                                         plots=getattr(args, "plots", True))
         else:
+            from station.analyses.frame_files import analyze_iq_frames
+
             summary = analyze_iq_frames(args.analysis, args.frame, args.geometry, out)
         _print_summary(console, summary)
         console.print(f"results in {out}", highlight=False, markup=False)
@@ -323,6 +325,10 @@ def cmd_analyze(args: argparse.Namespace, console: Console) -> int:
     if args.run_folder is None:
         console.print("give a RUN_FOLDER, or --frame TIFF --geometry FILE")
         return exitcodes.INVALID
+    from analysis.verdicts import FAIL
+    from station.analyses.reanalyze import analyze_run_folder
+    from station.cli.results_table import print_results
+
     report = analyze_run_folder(args.run_folder, args.analysis, args.out, args.replace)
     for step_id, summary in report.summaries.items():
         if len(report.summaries) > 1:

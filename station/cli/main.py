@@ -139,11 +139,11 @@ def build_parser() -> argparse.ArgumentParser:
     drivers.add_argument("--check", action="store_true",
                          help="also report broken drivers and misspelt entry-point groups")
 
-    from station.analyses.builtin import builtin_registry
+    from station.analyses.builtin import BUILTIN_NAMES
 
     analyze = sub.add_parser("analyze", help="re-run an analysis on a finished run (results to "
                              "a new RUN/reanalysis/<n>/ unless --replace or --out)")
-    analyze.add_argument("analysis", choices=sorted(builtin_registry()))
+    analyze.add_argument("analysis", choices=sorted(BUILTIN_NAMES))
     analyze.add_argument("run_folder", nargs="?", type=Path, default=None)
     analyze.add_argument("--frame", type=Path, default=None, action="append",
                          help="a standalone TIFF frame or stack (with --geometry); badpixels "
@@ -154,6 +154,8 @@ def build_parser() -> argparse.ArgumentParser:
                          help="output folder (outside any run folder)")
     analyze.add_argument("--replace", action="store_true",
                          help="write over the run's own results/ and plots/")
+    analyze.add_argument("--no-plots", dest="plots", action="store_false",
+                         help="with --frame: write the results only, draw no PNG plots")
 
     resume = sub.add_parser("resume", help="continue an interrupted run")
     resume.add_argument("run_folder", type=Path)
@@ -264,10 +266,14 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def extra_handlers() -> dict[str, Any]:
-    """Sub-commands that live in their own modules."""
-    from station.cli.simulate import cmd_simulate
+    """Sub-commands that live in their own modules (imported only when that command runs)."""
 
-    return {"simulate": cmd_simulate}
+    def simulate(args: argparse.Namespace, console: Any) -> int:
+        from station.cli.simulate import cmd_simulate
+
+        return cmd_simulate(args, console)
+
+    return {"simulate": simulate}
 
 
 def report_error(exc: BaseException, console: Console) -> int:

@@ -13,11 +13,12 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
-from typing import Any
-
-from rich.console import Console
+from typing import TYPE_CHECKING, Any
 
 from station.cli import exitcodes
+
+if TYPE_CHECKING:
+    from rich.console import Console
 
 
 def add_parser(sub: argparse._SubParsersAction) -> None:

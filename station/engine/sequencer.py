@@ -129,7 +129,7 @@ class Sequencer:
             self.journal.record(step.id, step.kind, result)
             self.steps_done += 1
             self.ctx.emit("step.done", step=step.id, kind=step.kind, result=result)
-            self.console.readings(self.ctx.bench.readings())
+            self._refresh_readings()  # for a person: at most once a real second
         self.current_step = None
 
     def _restore_bench(self) -> None:

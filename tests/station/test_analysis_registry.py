@@ -220,3 +220,10 @@ def test_verify_notes_a_reanalysis_without_failing_the_run(recorded, capsys) -> 
     assert main(["analyze", "uniformity", str(folder)]) == exitcodes.OK
     assert main(["verify", str(folder)]) == exitcodes.OK
     assert "is not part of the run record" in capsys.readouterr().out
+
+
+def test_builtin_names_known_without_import_match_the_registry() -> None:
+    # The command line lists these names without importing the analyses (start-up time); the
+    # list must name exactly the registry's analyses.
+    from station.analyses.builtin import BUILTIN_NAMES
+    assert sorted(BUILTIN_NAMES) == sorted(builtin_registry())

@@ -173,3 +173,15 @@ def test_not_a_run_folder_is_refused_clearly(tmp_path: Path,
         analyze_run_folder(tmp_path)
     assert main(["analyze", "distortion", str(tmp_path / "nowhere")]) == 2  # exitcodes.INVALID
     assert "no such folder" in " ".join(capsys.readouterr().out.split())
+
+
+def test_no_plots_writes_the_same_results_and_no_png(grid_run: Path, tmp_path: Path) -> None:
+    frame = str(grid_run / "frames" / "grid.avg.tif")
+    geometry = str(example_geometry_path())
+    assert main(["analyze", "distortion", "--frame", frame, "--geometry", geometry,
+                 "--out", str(tmp_path / "plain"), "--no-plots"]) == 0
+    assert not list((tmp_path / "plain").rglob("*.png"))
+    # Same frame, same code: the same model as the run's own analysis (reference: the run).
+    run_model, alone = _distortion(grid_run / "results")["model"], _distortion(tmp_path / "plain")
+    for key in MODEL_KEYS:
+        assert alone["model"][key] == pytest.approx(run_model[key], abs=SAME), key
