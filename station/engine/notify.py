@@ -1,21 +1,9 @@
 """Telling someone elsewhere that a run ended, faulted or needs the operator.
 
-The station file may name, under `notify:` (station.inputs.notify_settings), a command to run and/or a URL to POST a JSON summary
-to, and on which occasions::
-
-    notify:
-      when: [end, fault, operator]     # default: all three
-      command: ["/usr/local/bin/page-oncall", "--bench", "bay2"]   # argv list; no shell
-      url: http://127.0.0.1:9000/bench-events
-      timeout_s: 5
-
-Why this shape: overnight nobody watches a terminal. A failure to notify is recorded in the run's
-event log and never affects the run: the run's record is the run folder, a notification is a
-courtesy. The command gets the summary as JSON on its standard input and the occasion in the
-environment variable NIGHTBENCH_OCCASION; the POST body is the same JSON. When safing could not
-make the bench safe, the end of the run is a `fault` whatever its state, and the summary also
-carries `safing_incomplete` (instrument, problem, by_hand for each instrument left live) and
-`by_hand` (the manual steps as lines), so whoever is paged knows what to do at the bench.
+What to do is the station file's `notify:` section (station.inputs.notify_settings). A failure
+to notify is recorded in the run's event log and never affects the run: the run's record is the
+run folder, a notification is a courtesy. A command gets the summary as JSON on its standard
+input and the occasion in NIGHTBENCH_OCCASION; a URL gets the same JSON by POST.
 """
 
 from __future__ import annotations

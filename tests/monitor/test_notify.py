@@ -4,14 +4,13 @@ a notification that cannot be delivered is logged and never affects the run."""
 from __future__ import annotations
 
 import json
-import threading
-from http.server import BaseHTTPRequestHandler, HTTPServer
 from pathlib import Path
 
 import pytest
 
 from station.cli.main import main
 from station.inputs.config import DEFAULT_SIM_STATION
+from tests.loopback_http import json_receiver
 
 RECIPE_OK = """\
 recipe: notify-ok
@@ -26,27 +25,10 @@ steps:
 """
 
 
-class _Receiver(BaseHTTPRequestHandler):
-    received: list[dict] = []
-
-    def do_POST(self) -> None:  # noqa: N802 (http.server's name)
-        body = self.rfile.read(int(self.headers["Content-Length"]))
-        type(self).received.append(json.loads(body))
-        self.send_response(204)
-        self.end_headers()
-
-    def log_message(self, *args: object) -> None:
-        pass
-
-
 @pytest.fixture()
 def receiver():
-    _Receiver.received = []
-    server = HTTPServer(("127.0.0.1", 0), _Receiver)
-    thread = threading.Thread(target=server.serve_forever, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{server.server_address[1]}/bench", _Receiver.received
-    server.shutdown()
+    with json_receiver() as (url, received):
+        yield url, received
 
 
 def _station_with(tmp_path: Path, notify: str) -> Path:

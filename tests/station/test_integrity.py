@@ -201,8 +201,6 @@ def test_reanalysis_out_inside_a_run_folder_is_refused(complete_run: Path, capsy
     assert not (complete_run / "results" / "again").exists()
 
 
-@pytest.mark.xfail(reason="analysis options are declared in the analysis registry (core "
-                   "branch), which refuses undeclared ones such as results_dir", strict=False)
 def test_analysis_option_naming_a_results_folder_outside_the_run_is_refused(
         files: Path, tmp_path: Path) -> None:
     (files / "escape.yaml").write_text(RECIPE + "  - analyze: {analysis: distortion, captures: "

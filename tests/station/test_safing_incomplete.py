@@ -13,8 +13,6 @@ person when it could not be, is common practice for unattended test benches.
 from __future__ import annotations
 
 import json
-import threading
-from http.server import BaseHTTPRequestHandler, HTTPServer
 from pathlib import Path
 
 import pytest
@@ -24,6 +22,7 @@ from drivers.errors import InstrumentRefused
 from station.cli import exitcodes, run_guard
 from station.cli.main import main
 from station.record.events import Event
+from tests.loopback_http import json_receiver
 from tests.station.fast_bench import fast_station_yaml
 
 # Cannot settle to 1 mK (and hold 2 s) in 3 s (the fast blackbody's time constant is 5 s): the step faults.
@@ -37,28 +36,10 @@ steps:
 REFUSAL = 'refused (error 222: setpoint locked at the front panel)'
 
 
-class _Receiver(BaseHTTPRequestHandler):
-    received: list[dict] = []
-
-    def do_POST(self) -> None:  # noqa: N802 (http.server's name)
-        body = self.rfile.read(int(self.headers["Content-Length"]))
-        type(self).received.append(json.loads(body))
-        self.send_response(204)
-        self.end_headers()
-
-    def log_message(self, *args: object) -> None:
-        pass
-
-
 @pytest.fixture()
 def receiver():
-    _Receiver.received = []
-    server = HTTPServer(("127.0.0.1", 0), _Receiver)
-    thread = threading.Thread(target=server.serve_forever, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{server.server_address[1]}/bench", _Receiver.received
-    server.shutdown()
-    server.server_close()
+    with json_receiver() as (url, received):
+        yield url, received
 
 
 def _refuse_safing(self: ScpiBlackbody) -> None:
