@@ -37,30 +37,16 @@ from typing import Sequence
 
 import numpy as np
 
-from analysis.geometry import (CameraGeometry, gimbal_rotation, undistort_normalized)
+from analysis.geometry import (CameraGeometry, field_angle_of_radius, gimbal_rotation,
+                               undistort_normalized)
 
-__all__ = ["pixel_to_direction", "inverse_radial", "axis_direction_at", "pose_seeing_axis_at",
+__all__ = ["pixel_to_direction", "axis_direction_at", "pose_seeing_axis_at",
            "aligned_pose",
            "aligned_pose_with_uncertainty", "AlignmentIteration", "AlignmentDecision",
            "next_decision", "converged_boresight", "ConvergedPose",
            "AlignmentFault", "align"]
 
 _E_Z = np.array([0.0, 0.0, 1.0])
-
-
-def inverse_radial(r: np.ndarray, projection: str) -> np.ndarray:
-    """Field angle (rad) for normalized image height r (units of focal length)."""
-    if projection == "rectilinear":
-        return np.arctan(r)
-    if projection == "equidistant":
-        return r
-    if projection == "stereographic":
-        return 2.0 * np.arctan(r / 2.0)
-    if projection == "equisolid":
-        return 2.0 * np.arcsin(np.clip(r / 2.0, -1.0, 1.0))
-    if projection == "orthographic":
-        return np.arcsin(np.clip(r, -1.0, 1.0))
-    raise ValueError(f"projection {projection!r} unknown")
 
 
 def pixel_to_direction(geom: CameraGeometry, pixels: np.ndarray) -> np.ndarray:
@@ -91,7 +77,7 @@ def pixel_to_direction(geom: CameraGeometry, pixels: np.ndarray) -> np.ndarray:
         d = np.column_stack([xn, yn, np.ones_like(xn)])
         return d / np.linalg.norm(d, axis=1, keepdims=True)
     r = np.hypot(xn, yn)
-    theta = inverse_radial(r, geom.projection)
+    theta = field_angle_of_radius(r, geom.projection)
     safe = np.where(r > 0, r, 1.0)
     scale = np.where(r > 0, np.sin(theta) / safe, 0.0)
     return np.column_stack([xn * scale, yn * scale, np.cos(theta)])

@@ -58,6 +58,7 @@ from analysis.geometry import (
     BrownConrady,
     CameraGeometry,
     collimator_directions,
+    field_angle_of_radius,
     field_angles,
     ideal_normalized,
     project,
@@ -286,22 +287,6 @@ def radial_distortion_percent(d: BrownConrady, r_norm: np.ndarray) -> np.ndarray
     return 100.0 * r2 * (d.k1 + r2 * (d.k2 + r2 * d.k3))
 
 
-def _theta_of_radius(r: np.ndarray, projection: str) -> np.ndarray:
-    """Field angle (rad) of an undistorted normalized radius, inverse of the projection."""
-    r = np.asarray(r, dtype=float)
-    if projection == "rectilinear":
-        return np.arctan(r)
-    if projection == "equidistant":
-        return r
-    if projection == "stereographic":
-        return 2.0 * np.arctan(r / 2.0)
-    if projection == "equisolid":
-        return 2.0 * np.arcsin(np.clip(r / 2.0, -1, 1))
-    if projection == "orthographic":
-        return np.arcsin(np.clip(r, -1, 1))
-    raise ValueError(f"projection {projection!r} unknown")
-
-
 def _normalized_from_pixels(geom: CameraGeometry, px: np.ndarray) -> np.ndarray:
     """Remove the camera matrix: pixels (x, y) -> distorted normalized (x'', y'')."""
     cx, cy = geom.principal_point
@@ -429,7 +414,7 @@ def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
     sig = propagate(model, _place_radial_percent, many=_place_radial_percent_many)
     beyond = hull.distance_outside(p) * g.fx
     sig_all = propagate(full, _place_radial_percent, many=_place_radial_percent_many) if full is not None else sig
-    theta = np.degrees(_theta_of_radius(r, g.projection))
+    theta = np.degrees(field_angle_of_radius(r, g.projection))
     px = _place_pixels(g)
     out = []
     for i, name in enumerate(_PLACES):
@@ -661,7 +646,7 @@ def _analyze(
     r_top = max([c.radius_px / geom.fx for c in corners] + [r_meas_max_n])
     rr = np.linspace(0.0, r_top, 256)
     rr = np.unique(np.append(rr, r_meas_max_n))
-    curve = RadialCurve(radius_px=rr * geom.fx, field_angle_deg=np.degrees(_theta_of_radius(rr, geom.projection)),
+    curve = RadialCurve(radius_px=rr * geom.fx, field_angle_deg=np.degrees(field_angle_of_radius(rr, geom.projection)),
                         distortion_percent=radial_distortion_percent(geom.distortion, rr),
                         measured_radius_max_px=r_meas_max_n * geom.fx, sigma_percent=_curve_sigma(model, rr))
 

@@ -23,10 +23,10 @@ from typing import Any
 import numpy as np
 from scipy import ndimage
 
-from analysis.alignment import axis_direction_at, inverse_radial
+from analysis.alignment import axis_direction_at
 from analysis.centroid import Background, estimate_background
 from analysis.fov import FieldOfView, _angle_deg, fov_from_model
-from analysis.geometry import CameraGeometry, _radial_map
+from analysis.geometry import CameraGeometry, _radial_map, field_angle_of_radius
 
 __all__ = ["spot_flux", "spot_flux_near", "EdgeProbe", "EdgeSearch", "find_edge",
            "CornerSearch", "find_corner", "line_of_sight_angle_deg", "fov_from_edge_poses",
@@ -317,7 +317,7 @@ def _diagonal_deg(h_deg: float, v_deg: float, projection: str) -> float:
     rh = _radial(math.radians(h_deg / 2.0), projection)
     rv = _radial(math.radians(v_deg / 2.0), projection)
     rd = math.hypot(rh, rv)
-    return 2.0 * math.degrees(float(inverse_radial(np.array([rd]), projection)[0]))
+    return 2.0 * math.degrees(float(field_angle_of_radius(np.array([rd]), projection)[0]))
 
 
 def fov_from_edge_poses(left: tuple[float, float], right: tuple[float, float],

@@ -222,6 +222,26 @@ def _radial_map(theta: np.ndarray, projection: str) -> np.ndarray:
     raise ValueError(f"projection {projection!r} unknown; use one of {PROJECTIONS}")
 
 
+def field_angle_of_radius(r: np.ndarray, projection: str) -> np.ndarray:
+    """Field angle (rad) of a normalized image height r: the inverse of the projection.
+
+    >>> round(float(field_angle_of_radius(np.array([1.0]), "rectilinear")[0]), 6)  # atan(1)
+    0.785398
+    """
+    r = np.asarray(r, dtype=float)
+    if projection == "rectilinear":
+        return np.arctan(r)
+    if projection == "equidistant":
+        return r
+    if projection == "stereographic":
+        return 2.0 * np.arctan(r / 2.0)
+    if projection == "equisolid":
+        return 2.0 * np.arcsin(np.clip(r / 2.0, -1.0, 1.0))
+    if projection == "orthographic":
+        return np.arcsin(np.clip(r, -1.0, 1.0))
+    raise ValueError(f"projection {projection!r} unknown; use one of {PROJECTIONS}")
+
+
 def ideal_normalized(geom: CameraGeometry, directions: np.ndarray) -> np.ndarray:
     """Camera-frame directions (N, 3) -> normalized (x', y') before distortion, after roll.
 
