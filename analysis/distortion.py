@@ -258,23 +258,23 @@ class DistortionResult:
 # ----------------------------------------------------------------------------------------------
 
 DISTORTION_SPEC_KEYS: Mapping[str, SpecKey] = {k.key: k for k in (
-    SpecKey("max_distortion_percent", "maximum distortion over the measured field", "%", "max",
+    SpecKey("max_distortion_percent", "largest |distortion| in the measured field", "%", "max",
             "largest |local distortion| 100 (|D(p)| - |p|) / |p| of the fitted Brown-Conrady model "
             "inside the convex hull of the measured points (not a single noisy point)",
             conditions=("field",)),
-    SpecKey("max_corner_distortion_percent", "corner distortion", "%", "max",
+    SpecKey("max_corner_distortion_percent", "largest |corner distortion|", "%", "max",
             "largest |fitted radial distortion| at the four detector corners; extrapolated from the "
             "fitted model when a corner lies beyond the measured field, stated as such",
             conditions=("field",)),
     SpecKey("max_boresight_offset_px", "boresight offset", "px", "max",
             "|principal point - detector centre ((W-1)/2, (H-1)/2)|"),
-    SpecKey("max_skew_deg", "skew", "deg", "max", "|skew angle of the pixel axes|"),
-    SpecKey("max_roll_deg", "roll", "deg", "max", "|rotation of the detector about the line of sight|"),
+    SpecKey("max_skew_deg", "|skew|", "deg", "max", "|skew angle of the pixel axes|"),
+    SpecKey("max_roll_deg", "|roll|", "deg", "max", "|rotation of the detector about the line of sight|"),
     SpecKey("max_residual_rms_px", "RMS residual", "px", "max",
             "RMS of measured - fitted model over the points used in the fit"),
     SpecKey("max_defects", "local defects", "points", "max",
             "number of points flagged as local defects (residual beyond n_sigma robust sigmas)"),
-    SpecKey("max_efl_error_percent", "effective focal length error", "%", "max",
+    SpecKey("max_efl_error_percent", "|effective focal length error|", "%", "max",
             "|fitted effective focal length - nominal| / nominal"),
 )}
 # Older name, kept for callers that read the keys.
