@@ -256,25 +256,32 @@ def _check_depth(file: str, text: str) -> None:
     """Refuse nesting deeper than MAX_DEPTH before composing (PyYAML's composer recurses, so
     5,000 nested brackets would end in a RecursionError); the parser's events are flat."""
     depth = 0
-    for event in _events_until_error(text):
+    for event in _events_until_error(file, text):
         if isinstance(event, (yaml.SequenceStartEvent, yaml.MappingStartEvent)):
             depth += 1
             if depth > MAX_DEPTH:
-                mark = event.start_mark
-                raise SourceError([Problem(
-                    SourceRef(file, mark.line + 1, mark.column + 1),
-                    f"mappings and lists are nested more than {MAX_DEPTH} deep here",
-                    "an input file needs only a few levels; check for unclosed brackets")])
+                raise _too_deep(file, event.start_mark)
         elif isinstance(event, (yaml.SequenceEndEvent, yaml.MappingEndEvent)):
             depth -= 1
 
 
-def _events_until_error(text: str) -> Any:
+def _too_deep(file: str, mark: Any) -> SourceError:
+    where = SourceRef(file, mark.line + 1, mark.column + 1) if mark else SourceRef(file, 1, 1)
+    return SourceError([Problem(where, f"mappings and lists are nested more than {MAX_DEPTH} "
+                                       "deep here",
+                                "an input file needs only a few levels; check for unclosed "
+                                "brackets")])
+
+
+def _events_until_error(file: str, text: str) -> Any:
     """Parser events up to the first syntax error (the composer then reports that error with
-    PyYAML's own marks); the C parser when PyYAML has it."""
+    PyYAML's own marks); the C parser when PyYAML has it. Newer C scanners refuse deep nesting
+    themselves while reading ahead: that is the same mistake, reported the same way."""
     try:
         yield from yaml.parse(text, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader))
-    except yaml.YAMLError:
+    except yaml.YAMLError as exc:
+        if "nesting depth" in str(exc):
+            raise _too_deep(file, getattr(exc, "problem_mark", None)) from None
         return
 
 
@@ -360,8 +367,7 @@ def load_yaml(path: Path | str, text: str | None = None) -> MarkedNode:
     except yaml.YAMLError as exc:
         raise SourceError([_syntax_problem(file, exc)]) from None
     except RecursionError:  # the depth check above makes this unreachable; never a traceback
-        raise SourceError([Problem(SourceRef(file, 1, 1), "nested too deeply to read",
-                                   "an input file needs only a few levels")]) from None
+        raise _too_deep(file, None) from None
     if root is None:
         return MarkedScalar(None, SourceRef(file, 1, 1))
     _check_expansion(file, root)
