@@ -1,25 +1,31 @@
-"""Pictures of a distortion result (matplotlib, Agg backend, PNG files).
+"""Pictures of a distortion result, written as SVG by analysis.svg_plot (no plotting library:
+the one-frame command stays well under a second, and the plots stay vector with text as text).
 
 Axis order: plots show the image as seen, x = column to the right, y = row downward.
 Every plot carries the run's one headline number (the same text as the JSON's "headline"), the
 overall verdict in its title when spec limits were judged, and a footer with the UUT serial, the
-run id and the date when given. The radial plot draws the spec limit lines.
+run id and the date when given. The vector maps draw a reference arrow of stated length; the
+radial plot draws the spec limit lines. Files: distortion_map.svg, distortion_radial.svg,
+distortion_residual.svg.
 """
 
 from __future__ import annotations
 
+import math
 import os
 from dataclasses import dataclass
 from pathlib import Path
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+from analysis.distortion import DistortionResult
+from analysis.svg_plot import Figure, LegendEntry, colour_of, nice_ticks
+from analysis.verdicts import overall
 
-from analysis.distortion import DistortionResult  # noqa: E402
-from analysis.verdicts import overall  # noqa: E402
+# Plot colours (our own choice): measured points, fitted curve, limit lines, muted grey.
+BLUE, RED, ORANGE, GREY = "#1f5fa8", "#c0282d", "#e07b00", "#8a8a8a"
+PLOT_NAMES = ("distortion_map", "distortion_radial", "distortion_residual")
+SUFFIX = ".svg"
 
 
 @dataclass(frozen=True)
@@ -53,12 +59,9 @@ def headline_text(result: DistortionResult) -> str:
     return f"max distortion {result.max_distortion_percent:+.3f} %"
 
 
-def _decorate(fig: plt.Figure, result: DistortionResult, what: str, labels: PlotLabels | None) -> None:
-    fig.suptitle(f"{verdict_word(result)}: {what} - {headline_text(result)}", fontsize=10)
-    fig.text(0.01, 0.005, (labels or PlotLabels()).footer(), fontsize=8, color="0.3", ha="left", va="bottom")
-
-__all__ = ["PlotLabels", "exaggeration_factor", "headline_text", "plot_distortion_map", "plot_radial_curve",
-           "plot_residual_map", "verdict_word", "write_distortion_plots"]
+__all__ = ["PLOT_NAMES", "PlotLabels", "exaggeration_factor", "headline_text", "plot_distortion_map",
+           "plot_radial_curve", "plot_residual_map", "reference_length", "verdict_word",
+           "write_distortion_plots"]
 
 
 def exaggeration_factor(vectors_px: np.ndarray, pitch_px: float) -> float:
@@ -84,38 +87,70 @@ def _pitch(points: np.ndarray) -> float:
     return float(np.median(d.min(axis=1)))
 
 
+def reference_length(max_px: float) -> float:
+    """The reference arrow's length: the largest 1, 2, 5 x 10^n not above the longest vector
+    (so the key never shows an arrow longer than any in the map)."""
+    if not math.isfinite(max_px) or max_px <= 0:
+        return 1.0
+    exp = 10.0 ** math.floor(math.log10(max_px))
+    return next(m * exp for m in (5.0, 2.0, 1.0) if m * exp <= max_px * (1 + 1e-12))
+
+
+def _title(fig: Figure, result: DistortionResult, what: str, labels: PlotLabels | None) -> None:
+    fig.text(fig.width / 2, 26, f"{verdict_word(result)}: {what} - {headline_text(result)}",
+             size=14, anchor="middle", weight="bold", cls="figure-title")
+
+
+def _footer(fig: Figure, labels: PlotLabels | None) -> None:
+    fig.text(10, fig.height - 10, (labels or PlotLabels()).footer(), size=10, colour="#555555",
+             cls="footer")
+
+
 def _vector_map(result: DistortionResult, vectors: np.ndarray, title: str, colour_label: str,
                 path: Path, mark_defects: bool, labels: PlotLabels | None = None) -> Path:
+    """Arrows from each measured point's ideal position, exaggerated by a round factor and
+    coloured by their true length; detector outline, principal point, points not measured."""
     pts = result.points
     base = pts.ideal_px
-    ok = pts.measured
+    ok = pts.measured & np.all(np.isfinite(base), axis=1) & np.all(np.isfinite(vectors), axis=1)
     factor = exaggeration_factor(vectors[ok], _pitch(base[ok]))
     mag = np.hypot(vectors[:, 0], vectors[:, 1])
+    vmax = float(mag[ok].max()) if ok.any() and mag[ok].max() > 0 else 1.0
     g = result.model.geometry
-    fig, ax = plt.subplots(figsize=(8, 6.4), dpi=100)
-    ax.add_patch(plt.Rectangle((-0.5, -0.5), g.width, g.height, fill=False, lw=1.0, ec="0.4"))
-    q = ax.quiver(base[ok, 0], base[ok, 1], vectors[ok, 0] * factor, vectors[ok, 1] * factor, mag[ok],
-                  angles="xy", scale_units="xy", scale=1.0, cmap="viridis", width=0.004)
-    ax.plot(base[~ok, 0], base[~ok, 1], "x", color="0.6", ms=5, label="not measured")
+    fig = Figure(860, 700, description=f"{title}; {headline_text(result)}")
+    _title(fig, result, title.split(" (")[0], labels)
+    ax = fig.axes((90, 70, 600, 470), (-0.05 * g.width, 1.05 * g.width),
+                  (-0.05 * g.height, 1.05 * g.height), y_down=True, equal_aspect=True)
+    ax.title(title)
+    ax.rect(-0.5, -0.5, g.width - 0.5, g.height - 0.5, colour="#666666")
+    ax.arrows(base[ok, 0], base[ok, 1], vectors[ok, 0] * factor, vectors[ok, 1] * factor,
+              [colour_of(m, 0.0, vmax) for m in mag[ok]], cls="vectors")
+    nm = ~pts.measured
+    ax.markers(base[nm, 0], base[nm, 1], shape="cross", size=7, colour="#999999",
+               label="not measured", cls="not-measured")
     if mark_defects and pts.defect.any():
         d = pts.defect
-        ax.plot(pts.measured_px[d, 0], pts.measured_px[d, 1], "o", mfc="none", mec="red", ms=12, label="local defect")
-    ax.plot(*result.model.geometry.principal_point, "+", color="red", ms=12, mew=1.5, label="principal point")
-    fig.colorbar(q, ax=ax, label=colour_label)
-    ax.set_xlim(-0.05 * g.width, 1.05 * g.width)
-    ax.set_ylim(1.05 * g.height, -0.05 * g.height)
-    ax.set_aspect("equal")
-    ax.set_xlabel("x (column), px")
-    ax.set_ylabel("y (row), px")
-    ax.set_title(title)
-    ax.text(0.01, 0.01, f"vectors exaggerated x{factor:g}", transform=ax.transAxes, fontsize=10,
-            bbox={"fc": "white", "ec": "0.5"})
-    ax.legend(loc="upper right", fontsize=8)
-    _decorate(fig, result, title.split(" (")[0], labels)
-    fig.tight_layout(rect=(0, 0.03, 1, 0.95))
-    fig.savefig(path)
-    plt.close(fig)
-    return path
+        ax.markers(pts.measured_px[d, 0], pts.measured_px[d, 1], shape="ring", size=16,
+                   colour="#e01010", width=1.5, label="local defect", cls="defects")
+    cx, cy = g.principal_point
+    ax.markers([cx], [cy], shape="plus", size=16, colour="#e01010", width=2.0,
+               label="principal point", cls="principal-point")
+    xt, xn = nice_ticks(0.0, float(g.width), 8)
+    step = xt[1] - xt[0]  # one spacing on both axes of an equal-aspect map
+    yt = [round(k * step, xn + 1) for k in range(math.ceil(g.height / step) + 1)]
+    ax.ticks(xt, yt, xnfrac=xn, ynfrac=xn, xlabel="x (column), px", ylabel="y (row), px",
+             grid=False)
+    left, top, w, h = ax.box
+    fig.colour_bar((left + w + 22, top, 18, h), 0.0, vmax, colour_label)
+    ref = reference_length(vmax)
+    px_per_unit = w / (ax.xlim[1] - ax.xlim[0])
+    entries = [LegendEntry(f"reference arrow: {ref:g} px (vectors drawn x{factor:g})", "arrow",
+                           "#000000", arrow_px=ref * factor * px_per_unit),
+               *ax.legend_entries]
+    _, lh = fig.legend(left, top + h + 56, entries, ncol=2)
+    fig.height = top + h + 56 + lh + 28
+    _footer(fig, labels)
+    return fig.save(path)
 
 
 def plot_distortion_map(result: DistortionResult, path: str | os.PathLike[str],
@@ -134,6 +169,11 @@ def plot_residual_map(result: DistortionResult, path: str | os.PathLike[str],
                        "|residual|, px", Path(path), mark_defects=True, labels=labels)
 
 
+def _finite_max(*arrays: np.ndarray) -> float:
+    vals = [float(np.max(a[np.isfinite(a)])) for a in arrays if np.isfinite(a).any()]
+    return max(vals) if vals else 1.0
+
+
 def plot_radial_curve(result: DistortionResult, path: str | os.PathLike[str],
                       labels: PlotLabels | None = None) -> Path:
     """Local percent distortion against image height and field angle: points, fitted curve with
@@ -143,44 +183,64 @@ def plot_radial_curve(result: DistortionResult, path: str | os.PathLike[str],
     ok = pts.measured & (pts.radius_ideal_px > 0)
     stats = ok & pts.in_field_stats
     limit_verdicts = [v for v in result.verdicts if v.unit == "%" and "distortion" in v.key]
-    fig, (a1, a2) = plt.subplots(1, 2, figsize=(11, 4.8), dpi=100)
-    for ax, xp, xc, lab in ((a1, pts.radius_ideal_px, c.radius_px, "ideal radial distance from the principal point, px"),
-                            (a2, pts.field_angle_deg, c.field_angle_deg, "field angle, deg")):
-        ax.plot(xp[stats], pts.distortion_percent[stats], ".", color="C0", label="measured points")
-        ax.plot(xp[ok & ~stats], pts.distortion_percent[ok & ~stats], ".", color="0.7",
-                label="near centre / defect (not in statistics)")
-        inside = c.radius_px <= c.measured_radius_max_px
-        ax.plot(xc[inside], c.distortion_percent[inside], "-", color="C3", label="fitted radial curve")
-        ax.plot(xc[~inside], c.distortion_percent[~inside], "--", color="C3", label="fitted curve, extrapolated")
-        if c.sigma_percent is not None and np.isfinite(c.sigma_percent).all():
-            ax.fill_between(xc, c.distortion_percent - c.sigma_percent, c.distortion_percent + c.sigma_percent,
-                            color="C3", alpha=0.2, lw=0, label="fitted curve +/- 1 sigma")
-        for v, style in zip(limit_verdicts, ("-.", ":")):
-            for sign in (1, -1):
-                ax.axhline(sign * v.limit, color="C1", ls=style, lw=1.2,
-                           label=f"limit {v.key} (+/-{v.limit:g} %)" if sign == 1 else None)
-        ax.axhline(0.0, color="0.5", lw=0.8)
-        ax.set_xlabel(lab)
-        ax.set_ylabel("distortion, % of ideal image height")
-        ax.grid(alpha=0.3)
-    lo, hi = np.nanpercentile(pts.distortion_percent[stats], [0, 100]) if stats.any() else (-1.0, 1.0)
-    span = max(abs(lo), abs(hi), float(np.max(np.abs(c.distortion_percent))), 0.05,
+    stat_vals = pts.distortion_percent[stats]
+    stat_vals = stat_vals[np.isfinite(stat_vals)]
+    curve_vals = np.abs(c.distortion_percent[np.isfinite(c.distortion_percent)])
+    span = max(float(np.max(np.abs(stat_vals))) if stat_vals.size else 1.0,
+               float(curve_vals.max()) if curve_vals.size else 0.0, 0.05,
                *(v.limit for v in limit_verdicts))
-    for ax in (a1, a2):
-        ax.set_ylim(-1.3 * span, 1.3 * span)
-    a1.legend(fontsize=8)
-    a1.set_title(f"{result.classification.label}: {result.classification.reason}", fontsize=7)
-    _decorate(fig, result, "Radial distortion", labels)
-    fig.tight_layout(rect=(0, 0.03, 1, 0.95))
-    fig.savefig(path)
-    plt.close(fig)
-    return Path(path)
+    yt, yn = nice_ticks(-1.3 * span, 1.3 * span, 9)
+    fig = Figure(1120, 640, description=f"Radial distortion; {headline_text(result)}")
+    _title(fig, result, "Radial distortion", labels)
+    fig.text(fig.width / 2, 48, f"{result.classification.label}: {result.classification.reason}",
+             size=11, anchor="middle", colour="#333333", cls="classification")
+    inside = c.radius_px <= c.measured_radius_max_px
+    axes = []
+    for left, xp, xc, lab in ((90, pts.radius_ideal_px, c.radius_px,
+                               "ideal radial distance from the principal point, px"),
+                              (640, pts.field_angle_deg, c.field_angle_deg, "field angle, deg")):
+        xt, xn = nice_ticks(0.0, _finite_max(xp[ok], xc), 6)
+        ax = fig.axes((left, 75, 440, 360), (xt[0], xt[-1]), (yt[0], yt[-1]))
+        axes.append(ax)
+        if c.sigma_percent is not None and np.isfinite(c.sigma_percent).all():
+            ax.band(xc, c.distortion_percent - c.sigma_percent,
+                    c.distortion_percent + c.sigma_percent, colour=RED, opacity=0.2,
+                    label="fitted curve +/- 1 sigma")
+        ax.hline(0.0, colour="#808080", width=0.8)
+        for v, dash in zip(limit_verdicts, ("dashdot", "dotted")):
+            ax.hline(v.limit, colour=ORANGE, width=1.4, dash=dash,
+                     label=f"limit {v.key} (+/-{v.limit:g} %)")
+            ax.hline(-v.limit, colour=ORANGE, width=1.4, dash=dash)
+        ax.line(xc[inside], c.distortion_percent[inside], colour=RED, width=2.0,
+                label="fitted radial curve", cls="fitted-curve")
+        # the extrapolated part starts at the last measured sample so the curve is unbroken
+        ext = ~inside
+        if ext.any():
+            first = int(np.argmax(ext))
+            ext[max(first - 1, 0)] = True
+        ax.line(xc[ext], c.distortion_percent[ext], colour=RED, width=2.0, dash="dashed",
+                label="fitted curve, extrapolated", cls="fitted-curve-extrapolated")
+        ax.markers(xp[ok & ~stats], pts.distortion_percent[ok & ~stats], shape="dot", size=4.5,
+                   colour="#aaaaaa", label="near centre / defect (not in statistics)",
+                   cls="points-excluded")
+        ax.markers(xp[stats], pts.distortion_percent[stats], shape="dot", size=4.5, colour=BLUE,
+                   label="measured points", cls="points-measured")
+        ax.ticks(xt, yt, xnfrac=xn, ynfrac=yn, xlabel=lab,
+                 ylabel="distortion, % of ideal image height")
+    entries = axes[0].legend_entries
+    order = ["measured points", "near centre / defect (not in statistics)", "fitted radial curve",
+             "fitted curve, extrapolated", "fitted curve +/- 1 sigma"]
+    entries = sorted(entries, key=lambda e: order.index(e.label) if e.label in order else len(order))
+    _, lh = fig.legend(90, 75 + 360 + 58, entries, ncol=3, col_width=330)
+    fig.height = 75 + 360 + 58 + lh + 30
+    _footer(fig, labels)
+    return fig.save(path)
 
 
 def write_distortion_plots(result: DistortionResult, folder: str | os.PathLike[str], *,
                            uut_serial: str | None = None, run_id: str | None = None,
                            date: str | None = None) -> dict[str, Path]:
-    """All three PNGs into folder (normally <run>/plots); returns name -> path.
+    """All three SVGs into folder (normally <run>/plots); returns name -> path.
 
     uut_serial, run_id and date go in the footer of every plot.
     """
@@ -188,7 +248,7 @@ def write_distortion_plots(result: DistortionResult, folder: str | os.PathLike[s
     d.mkdir(parents=True, exist_ok=True)
     labels = PlotLabels(uut_serial, run_id, date)
     return {
-        "distortion_map": plot_distortion_map(result, d / "distortion_map.png", labels),
-        "distortion_radial": plot_radial_curve(result, d / "distortion_radial.png", labels),
-        "distortion_residual": plot_residual_map(result, d / "distortion_residual.png", labels),
+        "distortion_map": plot_distortion_map(result, d / f"distortion_map{SUFFIX}", labels),
+        "distortion_radial": plot_radial_curve(result, d / f"distortion_radial{SUFFIX}", labels),
+        "distortion_residual": plot_residual_map(result, d / f"distortion_residual{SUFFIX}", labels),
     }
