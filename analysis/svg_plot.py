@@ -388,7 +388,7 @@ class Figure:
                 out.append(f'<rect x="{_n(cx)}" y="{_n(cy - 5)}" width="28" height="10" '
                            f'fill="{e.colour}" fill-opacity="{_n(e.opacity)}"/>')
             elif e.kind == "arrow":
-                out.append(_arrow(cx, cy, cx + e.arrow_px, cy, e.colour))
+                out.append(f'<g class="legend-arrow">{_arrow(cx, cy, cx + e.arrow_px, cy, e.colour)}</g>')
             else:
                 out.append(_marker(e.shape, cx + 14, cy, 8.0, e.colour, e.width))
             out.append(_text(cx + glyph, cy + size * 0.35, e.label, size=size))

@@ -74,7 +74,7 @@ def _as_verdict(item: object) -> Verdict | None:
 
 
 def _plots(result: object, site: AnalysisSite, context: AnalysisContext) -> tuple:
-    from analysis.distortion_plots import write_distortion_plots  # matplotlib: load on use
+    from analysis.distortion_plots import write_distortion_plots  # SVG writer: load on use
 
     extra = {"uut_serial": context.uut.serial, "run_id": site.run_id,
              "date": context.date_utc}

@@ -65,7 +65,7 @@ def analyze_frame_file(frame: str | Path, geometry: str | Path,
                        out: str | Path, *, plots: bool = True) -> dict[str, JsonValue]:
     """Grid-mode distortion of one TIFF frame described by a geometry file; files go in `out`.
 
-    Writes distortion.json, distortion_points.csv, then (unless ``plots`` is false) the PNG plots
+    Writes distortion.json, distortion_points.csv, then (unless ``plots`` is false) the SVG plots
     into `out`, and returns the short summary. The results are on the disk before the plots are
     drawn: a slow or failing plot never costs the numbers. Scan mode needs one frame per stage pose and a run folder, so a single-pinhole
     target is refused here with a clear message.
@@ -103,10 +103,8 @@ def analyze_frame_file(frame: str | Path, geometry: str | Path,
 
 
 def write_plots(result: object, out: Path) -> None:
-    """The distortion PNGs, drawn off screen (Agg: no display, no GUI toolkit imported)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
+    """The distortion SVGs (written as text by analysis.svg_plot: no plotting library, no
+    display, nothing heavy imported)."""
     from analysis.distortion_plots import write_distortion_plots
 
     write_distortion_plots(result, out)  # type: ignore[arg-type]

@@ -155,7 +155,7 @@ def build_parser() -> argparse.ArgumentParser:
     analyze.add_argument("--replace", action="store_true",
                          help="write over the run's own results/ and plots/")
     analyze.add_argument("--no-plots", dest="plots", action="store_false",
-                         help="with --frame: write the results only, draw no PNG plots")
+                         help="with --frame: write the results only, draw no plots")
 
     resume = sub.add_parser("resume", help="continue an interrupted run")
     resume.add_argument("run_folder", type=Path)

@@ -48,8 +48,17 @@ def format_number(value: Any, digits: int = 4) -> str:
     return str(value)
 
 
-def data_uri(png: bytes) -> str:
-    return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
+IMAGE_TYPES = {".png": "image/png", ".svg": "image/svg+xml"}
+
+
+def data_uri(data: bytes, media_type: str = "image/png") -> str:
+    """The picture inlined in the page (one self-contained HTML file, printable as PDF)."""
+    return f"data:{media_type};base64," + base64.b64encode(data).decode("ascii")
+
+
+def file_data_uri(path: Path) -> str:
+    """data_uri of a plot file, typed by its suffix (PNG or SVG)."""
+    return data_uri(path.read_bytes(), IMAGE_TYPES.get(path.suffix.lower(), "image/png"))
 
 
 def _analyses(record: RunRecord) -> list[dict[str, Any]]:
@@ -67,7 +76,7 @@ def _analyses(record: RunRecord) -> list[dict[str, Any]]:
             "more": max(0, len(figures) - KEY_FIGURES_MAX),
             "notes": (record.results.get(name) or {}).get("notes", [])
             if isinstance(record.results.get(name), Mapping) else [],
-            "plots": [{"name": p.stem, "uri": data_uri(p.read_bytes())}
+            "plots": [{"name": p.stem, "uri": file_data_uri(p)}
                       for p in record.plots.get(name, [])],
         })
     return out

@@ -1,6 +1,6 @@
 """Read a finished run folder into one record: identity, outcome, verdicts, figures, provenance.
 
-Reads only files (manifest.json, inputs/, results/*.json, plots/*.png): the report and the history
+Reads only files (manifest.json, inputs/, results/*.json, plots/*.png and *.svg): the report and the history
 both start from here, long after the run, on any machine that has the folder.
 """
 
@@ -22,6 +22,7 @@ from station.report.verdict_rows import RunVerdicts, read_verdicts, unit_of
 PENDING_NAME = "history-pending.json"
 """Left in a run folder whose history record failed; `nightbench index` records it and removes it."""
 _YAML_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)  # the C loader when built: faster
+PLOT_SUFFIXES = (".png", ".svg")  # matplotlib PNGs and the distortion SVGs
 SKIP_FIGURES = {"schema_version", "passed", "coverage_k", "version", "nominal", "thresholds"}
 
 
@@ -185,11 +186,15 @@ def read_results(run: Path) -> dict[str, Any]:
 
 
 def plots_by_analysis(run: Path, analyses: list[str]) -> dict[str, list[Path]]:
-    """plots/<analysis>_*.png grouped under their analysis; others under 'other'."""
+    """plots/<analysis>_*.png and *.svg grouped under their analysis; others under 'other'.
+
+    Some analyses draw PNG (matplotlib), the distortion plots are SVG; both are pictures."""
     out: dict[str, list[Path]] = {}
-    for png in sorted((run / "plots").glob("*.png")):
-        owner = next((a for a in analyses if png.stem.startswith(a)), "other")
-        out.setdefault(owner, []).append(png)
+    folder = run / "plots"
+    pictures = sorted(p for p in folder.glob("*") if p.suffix.lower() in PLOT_SUFFIXES and p.is_file())
+    for pic in pictures:
+        owner = next((a for a in analyses if pic.stem.startswith(a)), "other")
+        out.setdefault(owner, []).append(pic)
     return out
 
 

@@ -51,13 +51,17 @@ def test_json_and_csv_contract(result, tmp_path):
     assert not list(tmp_path.joinpath("results").glob("*.tmp"))  # atomic: no temp files left
 
 
-def test_plots_written_with_readable_factor(result, tmp_path):
-    import matplotlib.image as mpimg
+def test_plots_written_as_svg_with_readable_factor(result, tmp_path):
+    import xml.etree.ElementTree as ET
 
     paths = write_distortion_plots(result, tmp_path / "plots")
+    assert sorted(p.name for p in paths.values()) == [
+        "distortion_map.svg", "distortion_radial.svg", "distortion_residual.svg"]
     for p in paths.values():
-        img = mpimg.imread(p)
-        assert img.shape[0] > 300 and img.shape[1] > 500
+        root = ET.parse(p).getroot()  # well-formed XML (W3C SVG 1.1: root <svg> in its namespace)
+        assert root.tag == "{http://www.w3.org/2000/svg}svg"
+        assert float(root.get("width")) > 500 and float(root.get("height")) > 300
+    assert not list((tmp_path / "plots").glob("*.tmp"))  # written atomically
     # Exaggeration: the longest vector drawn between 0.1 and 0.5 grid pitch (1-2-5 steps).
     v = np.array([[3.0, 4.0], [0.1, 0.0]])
     f = exaggeration_factor(v, 40.0)
@@ -106,27 +110,24 @@ def test_json_verdicts_headline_and_uncertainties(result, tmp_path):
     assert any("fitted" in t or "held" in t for t in doc["model"]["term_choice"])
 
 
-def test_every_plot_carries_verdict_headline_and_footer(result, tmp_path, monkeypatch):
-    from matplotlib.figure import Figure
+def test_every_plot_carries_verdict_headline_and_footer(result, tmp_path):
+    import xml.etree.ElementTree as ET
 
     from analysis.distortion_plots import headline_text
 
-    seen = []
-    real = Figure.savefig
-
-    def spy(fig, *a, **k):
-        texts = [t.get_text() for t in fig.texts]
-        lines = [ln for ax in fig.axes for ln in ax.get_lines()]
-        seen.append((texts, [ln.get_label() for ln in lines]))
-        return real(fig, *a, **k)
-
-    monkeypatch.setattr(Figure, "savefig", spy)
-    write_distortion_plots(result, tmp_path / "plots", uut_serial="OW-0042", run_id="20260101T000000Z",
-                           date="2026-01-01")
-    assert len(seen) == 3
-    for texts, _ in seen:
-        title = [t for t in texts if headline_text(result) in t]
+    paths = write_distortion_plots(result, tmp_path / "plots", uut_serial="OW-0042",
+                                   run_id="20260101T000000Z", date="2026-01-01")
+    assert len(paths) == 3
+    texts = {}
+    for name, p in paths.items():
+        root = ET.parse(p).getroot()
+        texts[name] = ["".join(t.itertext()) for t in root.iter("{http://www.w3.org/2000/svg}text")]
+        title = [t for t in texts[name] if headline_text(result) in t]
         assert title and title[0].startswith("PASS")
-        assert any("OW-0042" in t and "20260101T000000Z" in t and "2026-01-01" in t for t in texts)
-    # The radial plot draws the +/- 3 % spec limit.
-    assert any("limit max_distortion_percent" in lab for lab in seen[1][1])
+        assert any("OW-0042" in t and "20260101T000000Z" in t and "2026-01-01" in t
+                   for t in texts[name])
+    # The radial plot draws the +/- 3 % spec limit and names it in its legend.
+    assert any("limit max_distortion_percent (+/-3 %)" in t for t in texts["distortion_radial"])
+    # Axis labels carry their units.
+    assert "x (column), px" in texts["distortion_map"]
+    assert "field angle, deg" in texts["distortion_radial"]

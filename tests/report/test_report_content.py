@@ -1,8 +1,9 @@
 """The report's contents, read from the HTML file the end of each run wrote.
 
 Outside references: SHA-256 of the input files recomputed with hashlib (FIPS 180-4); embedded
-plots decoded and compared byte for byte with plots/*.png, whose signature is the PNG one
-(ISO/IEC 15948, 89 50 4E 47 0D 0A 1A 0A).
+plots decoded and compared byte for byte with plots/*.png and plots/*.svg; a PNG starts with the
+PNG signature (ISO/IEC 15948, 89 50 4E 47 0D 0A 1A 0A), an SVG parses as XML with an <svg> root
+in the SVG namespace (W3C SVG 1.1).
 """
 
 from __future__ import annotations
@@ -10,6 +11,7 @@ from __future__ import annotations
 import base64
 import hashlib
 import re
+import xml.etree.ElementTree as ET
 import zlib
 from pathlib import Path
 
@@ -45,12 +47,19 @@ def test_sections_in_reading_order_and_nothing_fetched(all_runs, name: str) -> N
 def test_embedded_plots_are_the_run_plots_and_checksums_are_right(all_runs, name: str) -> None:
     run = all_runs[name]
     html = html_of(run)
-    embedded = [base64.b64decode(b) for b in re.findall(r'src="data:image/png;base64,([^"]+)"',
-                                                        html)]
-    assert all(png.startswith(PNG_SIGNATURE) for png in embedded)
-    on_disk = [p.read_bytes() for p in sorted((run / "plots").glob("*.png"))]
-    assert all(png in embedded for png in on_disk)
+    pngs = [base64.b64decode(b) for b in re.findall(r'src="data:image/png;base64,([^"]+)"', html)]
+    svgs = [base64.b64decode(b) for b in
+            re.findall(r'src="data:image/svg\+xml;base64,([^"]+)"', html)]
+    assert all(png.startswith(PNG_SIGNATURE) for png in pngs)
+    assert all(ET.fromstring(svg).tag == "{http://www.w3.org/2000/svg}svg" for svg in svgs)
+    embedded = pngs + svgs
+    plots = sorted((run / "plots").glob("*.png")) + sorted((run / "plots").glob("*.svg"))
+    on_disk = [p.read_bytes() for p in plots]
+    assert all(pic in embedded for pic in on_disk)
     assert len(embedded) == len(on_disk) + 1  # + the instrument readings chart
+    if name == "distortion-grid":  # the distortion plots are SVG (vector, text kept as text)
+        assert sorted(p.name for p in plots if p.suffix == ".svg") == [
+            "distortion_map.svg", "distortion_radial.svg", "distortion_residual.svg"]
     for copy in (run / "inputs").glob("*__*"):
         assert hashlib.sha256(copy.read_bytes()).hexdigest() in html, copy.name
 

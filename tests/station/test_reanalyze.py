@@ -25,6 +25,7 @@ from station.analyses.reanalyze import analyze_frame_file, analyze_run_folder
 
 SAME = 1e-9  # same input and code: only float rounding may differ
 MODEL_KEYS = ("k1", "k2", "p1", "p2", "fx_px", "fy_px", "cx_px", "cy_px")
+DISTORTION_PLOTS = ["distortion_map.svg", "distortion_radial.svg", "distortion_residual.svg"]
 
 
 def _distortion(folder: Path) -> dict[str, Any]:
@@ -62,8 +63,8 @@ def test_reanalysis_of_run_folder_reproduces_its_results(grid_run: Path, tmp_pat
     assert again["summary"]["classification"] == original["summary"]["classification"]
     assert again["summary"]["defect_labels"] == original["summary"]["defect_labels"]
     assert (out / "distortion_points.csv").is_file()
-    assert sorted(p.name for p in (out / "plots").glob("*.png")) == sorted(
-        p.name for p in (grid_run / "plots").glob("*.png"))
+    assert sorted(p.name for p in (out / "plots").glob("*.svg")) == sorted(
+        p.name for p in (grid_run / "plots").glob("*.svg")) == DISTORTION_PLOTS
 
 
 def test_reanalysis_writes_a_new_version_and_leaves_the_run_alone(grid_run: Path) -> None:
@@ -93,7 +94,28 @@ def test_standalone_frame_gives_the_runs_k1(grid_run: Path, tmp_path: Path) -> N
     k1_truth = truth["geometry"]["distortion"]["k1"]
     assert abs(alone["model"]["k1"] - k1_truth) <= 4 * alone["model"]["uncertainty"]["k1"]
     assert (out / "distortion_points.csv").is_file()
-    assert len(list(out.glob("*.png"))) == 3
+    assert sorted(p.name for p in out.glob("*.svg")) == DISTORTION_PLOTS
+    assert not list(out.glob("*.png"))
+
+
+def test_standalone_frame_with_plots_imports_no_plotting_library(grid_run: Path,
+                                                                 tmp_path: Path) -> None:
+    # A fresh process (as `nightbench analyze distortion --frame` is): after the whole command,
+    # plots included, matplotlib must not be loaded (its import alone costs about a second).
+    import subprocess
+    import sys
+
+    out = tmp_path / "fresh"
+    code = ("import sys\n"
+            "from station.cli.main import main\n"
+            f"rc = main(['analyze', 'distortion', '--frame', {str(grid_run / 'frames' / 'grid.avg.tif')!r},"
+            f" '--geometry', {str(example_geometry_path())!r}, '--out', {str(out)!r}])\n"
+            "print(rc, sorted(m for m in sys.modules if m.split('.')[0] == 'matplotlib'))\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=Path(__file__).resolve().parents[2], timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().splitlines()[-1] == "0 []"
+    assert sorted(p.name for p in out.glob("*.svg")) == DISTORTION_PLOTS
 
 
 def test_standalone_stack_is_averaged(grid_run: Path, tmp_path: Path) -> None:
@@ -175,12 +197,13 @@ def test_not_a_run_folder_is_refused_clearly(tmp_path: Path,
     assert "no such folder" in " ".join(capsys.readouterr().out.split())
 
 
-def test_no_plots_writes_the_same_results_and_no_png(grid_run: Path, tmp_path: Path) -> None:
+def test_no_plots_writes_the_same_results_and_no_plot(grid_run: Path, tmp_path: Path) -> None:
     frame = str(grid_run / "frames" / "grid.avg.tif")
     geometry = str(example_geometry_path())
     assert main(["analyze", "distortion", "--frame", frame, "--geometry", geometry,
                  "--out", str(tmp_path / "plain"), "--no-plots"]) == 0
     assert not list((tmp_path / "plain").rglob("*.png"))
+    assert not list((tmp_path / "plain").rglob("*.svg"))
     # Same frame, same code: the same model as the run's own analysis (reference: the run).
     run_model, alone = _distortion(grid_run / "results")["model"], _distortion(tmp_path / "plain")
     for key in MODEL_KEYS:

@@ -16,8 +16,6 @@ import json
 import os
 import signal
 import stat
-import sys
-import types
 from pathlib import Path
 from typing import Any
 
@@ -131,17 +129,9 @@ def test_folders_are_named_by_the_wall_clock_and_a_resume_keeps_its_folder(
                          for line in lines)
 
 
-def test_every_file_of_a_run_folder_has_the_umask_mode(station: Path, tmp_path: Path,
-                                                       monkeypatch: pytest.MonkeyPatch) -> None:
-    # plots are written by matplotlib through open(), which follows the umask; they are left
-    # out here because rendering them takes seconds (a stand-in writes one file the same way)
-    def write_plots(_result: Any, folder: Path) -> list[Path]:
-        path = Path(folder) / "stand-in.png"
-        path.write_bytes(b"png")
-        return [path]
-
-    monkeypatch.setitem(sys.modules, "analysis.distortion_plots",
-                        types.SimpleNamespace(write_distortion_plots=write_plots))
+def test_every_file_of_a_run_folder_has_the_umask_mode(station: Path, tmp_path: Path) -> None:
+    # the distortion plots (SVG, written atomically through a temporary file) are real here:
+    # drawing them takes a fraction of a second
     recipe = tmp_path / "grid.yaml"
     recipe.write_text(GRID, encoding="utf-8")
     old = os.umask(0o027)  # a lab umask: group may read, others nothing
@@ -155,7 +145,8 @@ def test_every_file_of_a_run_folder_has_the_umask_mode(station: Path, tmp_path: 
     for expected in ("manifest.json", "run-folder.json", "events.jsonl", "journal.jsonl",
                      "inputs/inputs.json", "frames/grid.json", "frames/grid.avg.tif",
                      "frames/grid.stack.tif", "results/distortion.json",
-                     "results/distortion_points.csv", "results/undistortion_map.tif"):
+                     "results/distortion_points.csv", "results/undistortion_map.tif",
+                     "plots/distortion_map.svg"):
         assert expected in names, sorted(names)
     wrong = {p.relative_to(run).as_posix(): oct(stat.S_IMODE(p.stat().st_mode))
              for p in files if stat.S_IMODE(p.stat().st_mode) != 0o666 & ~0o027}
