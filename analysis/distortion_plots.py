@@ -89,16 +89,24 @@ def _pitch(points: np.ndarray) -> float:
 
 def reference_length(max_px: float) -> float:
     """The reference arrow's length: the largest 1, 2, 5 x 10^n not above the longest vector
-    (so the key never shows an arrow longer than any in the map)."""
+    (so the key never shows an arrow longer than any in the map).
+
+    >>> reference_length(3.24), reference_length(0.87)
+    (2.0, 0.5)
+    """
     if not math.isfinite(max_px) or max_px <= 0:
         return 1.0
     exp = 10.0 ** math.floor(math.log10(max_px))
     return next(m * exp for m in (5.0, 2.0, 1.0) if m * exp <= max_px * (1 + 1e-12))
 
 
-def _title(fig: Figure, result: DistortionResult, what: str, labels: PlotLabels | None) -> None:
-    fig.text(fig.width / 2, 26, f"{verdict_word(result)}: {what} - {headline_text(result)}",
-             size=14, anchor="middle", weight="bold", cls="figure-title")
+def _title(fig: Figure, result: DistortionResult, what: str) -> None:
+    """Verdict, what the plot shows and the headline; a long headline gets a smaller font
+    (0.62 em per bold character, at least 9 px) rather than running off the page."""
+    text = f"{verdict_word(result)}: {what} - {headline_text(result)}"
+    size = max(9.0, min(14.0, (fig.width - 20) / (0.62 * max(len(text), 1))))
+    fig.text(fig.width / 2, 26, text, size=round(size, 1), anchor="middle", weight="bold",
+             cls="figure-title")
 
 
 def _footer(fig: Figure, labels: PlotLabels | None) -> None:
@@ -118,7 +126,7 @@ def _vector_map(result: DistortionResult, vectors: np.ndarray, title: str, colou
     vmax = float(mag[ok].max()) if ok.any() and mag[ok].max() > 0 else 1.0
     g = result.model.geometry
     fig = Figure(860, 700, description=f"{title}; {headline_text(result)}")
-    _title(fig, result, title.split(" (")[0], labels)
+    _title(fig, result, title.split(" (")[0])
     ax = fig.axes((90, 70, 600, 470), (-0.05 * g.width, 1.05 * g.width),
                   (-0.05 * g.height, 1.05 * g.height), y_down=True, equal_aspect=True)
     ax.title(title)
@@ -191,7 +199,7 @@ def plot_radial_curve(result: DistortionResult, path: str | os.PathLike[str],
                *(v.limit for v in limit_verdicts))
     yt, yn = nice_ticks(-1.3 * span, 1.3 * span, 9)
     fig = Figure(1120, 640, description=f"Radial distortion; {headline_text(result)}")
-    _title(fig, result, "Radial distortion", labels)
+    _title(fig, result, "Radial distortion")
     fig.text(fig.width / 2, 48, f"{result.classification.label}: {result.classification.reason}",
              size=11, anchor="middle", colour="#333333", cls="classification")
     inside = c.radius_px <= c.measured_radius_max_px
@@ -247,8 +255,5 @@ def write_distortion_plots(result: DistortionResult, folder: str | os.PathLike[s
     d = Path(folder)
     d.mkdir(parents=True, exist_ok=True)
     labels = PlotLabels(uut_serial, run_id, date)
-    return {
-        "distortion_map": plot_distortion_map(result, d / f"distortion_map{SUFFIX}", labels),
-        "distortion_radial": plot_radial_curve(result, d / f"distortion_radial{SUFFIX}", labels),
-        "distortion_residual": plot_residual_map(result, d / f"distortion_residual{SUFFIX}", labels),
-    }
+    draw = (plot_distortion_map, plot_radial_curve, plot_residual_map)
+    return {name: plot(result, d / f"{name}{SUFFIX}", labels) for name, plot in zip(PLOT_NAMES, draw)}

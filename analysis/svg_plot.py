@@ -36,7 +36,11 @@ _INVALID_XML = {c: None for c in range(32) if c not in (9, 10, 13)}
 
 def escape(text: object) -> str:
     """Text safe inside an SVG element or attribute: & < > " ' escaped, and the control
-    characters XML 1.0 forbids dropped (a serial number with a stray byte must not break the file)."""
+    characters XML 1.0 forbids dropped (a serial number with a stray byte must not break the file).
+
+    >>> escape('a < b & "c"')
+    'a &lt; b &amp; &quot;c&quot;'
+    """
     s = str(text).translate(_INVALID_XML)
     return (s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
             .replace('"', "&quot;").replace("'", "&#39;"))
@@ -44,7 +48,11 @@ def escape(text: object) -> str:
 
 def nice_number(x: float, round_: bool) -> float:
     """A 1, 2, 5 x 10^n number near x (Heckbert, "Nice numbers for graph labels", Graphics
-    Gems, 1990): rounded to the nearest when ``round_``, else the smallest not below x."""
+    Gems, 1990): rounded to the nearest when ``round_``, else the smallest not below x.
+
+    >>> nice_number(0.87, False), nice_number(0.25, True)
+    (1.0, 0.2)
+    """
     if not math.isfinite(x) or x <= 0:
         raise ValueError(f"nice_number needs a positive finite number, got {x!r}")
     exp = math.floor(math.log10(x))
@@ -59,7 +67,11 @@ def nice_number(x: float, round_: bool) -> float:
 def nice_ticks(lo: float, hi: float, n: int = 5) -> tuple[list[float], int]:
     """Heckbert's loose labelling (Graphics Gems, 1990): about ``n`` ticks at a nice spacing d,
     from floor(lo/d)*d to ceil(hi/d)*d, so the ticks cover [lo, hi]. Returns the ticks and the
-    number of decimals that shows d exactly. An empty range is widened around its value."""
+    number of decimals that shows d exactly. An empty range is widened around its value.
+
+    >>> nice_ticks(0.0, 0.87, 5)
+    ([0.0, 0.2, 0.4, 0.6, 0.8, 1.0], 1)
+    """
     if not (math.isfinite(lo) and math.isfinite(hi)):
         raise ValueError(f"tick range must be finite, got {lo!r} .. {hi!r}")
     lo, hi = min(lo, hi), max(lo, hi)
@@ -75,7 +87,11 @@ def nice_ticks(lo: float, hi: float, n: int = 5) -> tuple[list[float], int]:
 
 
 def tick_label(value: float, nfrac: int) -> str:
-    """A tick value with nfrac decimals, a true minus sign, and no "-0"."""
+    """A tick value with nfrac decimals, a true minus sign, and no "-0".
+
+    >>> tick_label(-0.0, 1), tick_label(-2.5, 1) == "\u22122.5"
+    ('0.0', True)
+    """
     s = f"{value:.{nfrac}f}"
     if float(s) == 0.0:
         s = s.lstrip("-")
@@ -87,7 +103,11 @@ def _rgb(hex_colour: str) -> tuple[int, int, int]:
 
 
 def viridis(t: float) -> str:
-    """The colour at t in [0, 1] (clipped; NaN reads as 0), linear between the published stops."""
+    """The colour at t in [0, 1] (clipped; NaN reads as 0), linear between the published stops.
+
+    >>> viridis(0.0), viridis(0.5), viridis(1.0)
+    ('#440154', '#21918c', '#fde725')
+    """
     t = 0.0 if not math.isfinite(t) else min(max(t, 0.0), 1.0)
     pos = t * (len(VIRIDIS_STOPS) - 1)
     i = min(int(pos), len(VIRIDIS_STOPS) - 2)
