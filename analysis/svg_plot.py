@@ -11,9 +11,12 @@ to pixels with one linear transform per axis; ``y_down=True`` for images (row do
 
 from __future__ import annotations
 
+import base64
 import math
 import os
+import struct
 import tempfile
+import zlib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -21,7 +24,7 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["Axes", "Figure", "LegendEntry", "colour_of", "escape", "nice_number", "nice_ticks",
-           "tick_label", "viridis"]
+           "png_bytes", "tick_label", "viridis", "viridis_rgb"]
 
 FONT = "sans-serif"
 # Viridis (van der Walt and Smith, 2015, the perceptually uniform map published with matplotlib's
@@ -116,6 +119,42 @@ def viridis(t: float) -> str:
     return "#" + "".join(f"{round(x + (y - x) * f):02x}" for x, y in zip(a, b))
 
 
+def viridis_rgb(t: np.ndarray) -> np.ndarray:
+    """Vectorised viridis: uint8 RGB of shape t.shape + (3,), the same interpolation between the
+    published stops as ``viridis`` (t clipped to [0, 1]; NaN reads as 0, mask it yourself).
+
+    >>> viridis_rgb(np.array([0.0, 1.0])).tolist()
+    [[68, 1, 84], [253, 231, 37]]
+    """
+    stops = np.array([_rgb(c) for c in VIRIDIS_STOPS], float)
+    t = np.clip(np.nan_to_num(np.asarray(t, float), nan=0.0), 0.0, 1.0)
+    pos = t * (len(stops) - 1)
+    i = np.minimum(pos.astype(int), len(stops) - 2)
+    f = (pos - i)[..., None]
+    return np.rint(stops[i] + (stops[i + 1] - stops[i]) * f).astype(np.uint8)
+
+
+def png_bytes(rgb: np.ndarray) -> bytes:
+    """A truecolour 8-bit PNG of an (rows, cols, 3) uint8 array, written by hand from the PNG
+    specification (W3C/ISO 15948): signature, IHDR, one zlib IDAT of filter-0 scanlines, IEND,
+    each chunk with its CRC-32. Standard library only, so drawing a map loads no imaging library.
+    """
+    a = np.ascontiguousarray(rgb, dtype=np.uint8)
+    if a.ndim != 3 or a.shape[2] != 3 or a.shape[0] == 0 or a.shape[1] == 0:
+        raise ValueError(f"png_bytes needs a non-empty (rows, cols, 3) array, got {a.shape}")
+    rows, cols = a.shape[:2]
+    raw = np.zeros((rows, cols * 3 + 1), np.uint8)  # a leading 0 per row: filter type None
+    raw[:, 1:] = a.reshape(rows, cols * 3)
+
+    def chunk(kind: bytes, data: bytes) -> bytes:
+        return (struct.pack(">I", len(data)) + kind + data
+                + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF))
+
+    ihdr = struct.pack(">IIBBBBB", cols, rows, 8, 2, 0, 0, 0)  # 8 bit, RGB, deflate, no interlace
+    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr)
+            + chunk(b"IDAT", zlib.compress(raw.tobytes(), 6)) + chunk(b"IEND", b""))
+
+
 def colour_of(value: float, vmin: float, vmax: float) -> str:
     """Viridis colour of value on the scale vmin..vmax."""
     return viridis((value - vmin) / (vmax - vmin) if vmax > vmin else 0.0)
@@ -153,13 +192,25 @@ def _marker(shape: str, x: float, y: float, size: float, colour: str, width: flo
     if shape == "ring":
         return (f'<circle cx="{_n(x)}" cy="{_n(y)}" r="{_n(r)}" fill="none" stroke="{colour}" '
                 f'stroke-width="{_n(width)}"/>')
+    if shape in ("square", "diamond", "triangle", "triangle_down"):
+        if shape == "square":
+            pts = [(x - r, y - r), (x + r, y - r), (x + r, y + r), (x - r, y + r)]
+        elif shape == "diamond":
+            pts = [(x, y - r), (x + r, y), (x, y + r), (x - r, y)]
+        elif shape == "triangle":
+            pts = [(x, y - r), (x + r, y + r * 0.8), (x - r, y + r * 0.8)]
+        else:
+            pts = [(x, y + r), (x + r, y - r * 0.8), (x - r, y - r * 0.8)]
+        d = "M" + "L".join(f"{_n(a)} {_n(b)}" for a, b in pts) + "Z"
+        return f'<path d="{d}" fill="{colour}" stroke="#000000" stroke-width="0.5"/>'
     if shape == "plus":
         d = f"M{_n(x - r)} {_n(y)}H{_n(x + r)}M{_n(x)} {_n(y - r)}V{_n(y + r)}"
     elif shape == "cross":
         d = (f"M{_n(x - r)} {_n(y - r)}L{_n(x + r)} {_n(y + r)}"
              f"M{_n(x - r)} {_n(y + r)}L{_n(x + r)} {_n(y - r)}")
     else:
-        raise ValueError(f"unknown marker shape {shape!r}; use dot, ring, plus or cross")
+        raise ValueError(f"unknown marker shape {shape!r}; use dot, ring, plus, cross, square, "
+                         "diamond, triangle or triangle_down")
     return f'<path d="{d}" fill="none" stroke="{colour}" stroke-width="{_n(width)}"/>'
 
 
@@ -297,17 +348,108 @@ class Axes:
                           f'height="{_n(yb - ya)}" fill="none" stroke="{colour}" '
                           f'stroke-width="{_n(width)}"/>')
 
+    def vline(self, x: float, *, colour: str = "#000000", width: float = 1.0,
+              dash: str = "solid", label: str | None = None, cls: str | None = None) -> None:
+        """A vertical line across the whole axes at data x."""
+        self.line([x, x], list(self.ylim), colour=colour, width=width, dash=dash, label=label,
+                  cls=cls)
+
+    def image(self, rgb: np.ndarray, *, cls: str = "image") -> None:
+        """An (rows, cols, 3) uint8 picture as an embedded PNG, pixel (col c, row r) centred on
+        data (c, r): extent -0.5 .. cols - 0.5. ``image-rendering: pixelated`` keeps every pixel
+        a sharp square when scaled (a single bad pixel is never smoothed away)."""
+        rows, cols = rgb.shape[:2]
+        x0, x1 = float(self.x(-0.5)), float(self.x(cols - 0.5))
+        ya, yb = sorted((float(self.y(-0.5)), float(self.y(rows - 0.5))))
+        data = base64.b64encode(png_bytes(rgb)).decode("ascii")
+        self._data.append(
+            f'<image class="{escape(cls)}" x="{_n(x0)}" y="{_n(ya)}" width="{_n(x1 - x0)}" '
+            f'height="{_n(yb - ya)}" preserveAspectRatio="none" '
+            f'image-rendering="optimizeSpeed" style="image-rendering: pixelated" '
+            f'href="data:image/png;base64,{data}"/>')
+
+    def bars(self, lefts: Sequence[float], rights: Sequence[float], heights: Sequence[float], *,
+             colour: str = "#1f5fa8", base: float = 0.0, cls: str = "bars",
+             label: str | None = None) -> None:
+        """One filled rectangle per bar from base up to its height (histograms, bar charts)."""
+        body = []
+        for a, b, hgt in zip(lefts, rights, heights):
+            if not all(map(math.isfinite, (a, b, hgt))):
+                continue
+            xa, xb = sorted((float(self.x(a)), float(self.x(b))))
+            ya, yb = sorted((float(self.y(base)), float(self.y(hgt))))
+            body.append(f'<rect x="{_n(xa)}" y="{_n(ya)}" width="{_n(xb - xa)}" '
+                        f'height="{_n(yb - ya)}"/>')
+        self._data.append(f'<g class="{escape(cls)}" fill="{colour}">' + "".join(body) + "</g>")
+        self._legend(label, LegendEntry(label or "", "patch", colour))
+
+    def errorbars(self, xs: Sequence[float], ys: Sequence[float], *,
+                  xerr: Sequence[float] | None = None, yerr: Sequence[float] | None = None,
+                  colour: str = "#000000", width: float = 1.0, cap: float = 3.0,
+                  cls: str = "errorbars") -> None:
+        """A +/- err bar (with caps) about each finite point, one path per point."""
+        n = len(xs)
+        xe = [0.0] * n if xerr is None else list(xerr)
+        ye = [0.0] * n if yerr is None else list(yerr)
+        body = []
+        for x, y, ex, ey in zip(xs, ys, xe, ye):
+            if not all(map(math.isfinite, (x, y, ex, ey))):
+                continue
+            d = ""
+            if ey > 0:
+                px, ya, yb = float(self.x(x)), float(self.y(y - ey)), float(self.y(y + ey))
+                d += (f"M{_n(px)} {_n(ya)}V{_n(yb)}M{_n(px - cap)} {_n(ya)}h{_n(2 * cap)}"
+                      f"M{_n(px - cap)} {_n(yb)}h{_n(2 * cap)}")
+            if ex > 0:
+                py, xa, xb = float(self.y(y)), float(self.x(x - ex)), float(self.x(x + ex))
+                d += (f"M{_n(xa)} {_n(py)}H{_n(xb)}M{_n(xa)} {_n(py - cap)}v{_n(2 * cap)}"
+                      f"M{_n(xb)} {_n(py - cap)}v{_n(2 * cap)}")
+            if d:
+                body.append(f'<path d="{d}"/>')
+        self._data.append(f'<g class="{escape(cls)}" fill="none" stroke="{colour}" '
+                          f'stroke-width="{_n(width)}">' + "".join(body) + "</g>")
+
+    def circle(self, cx: float, cy: float, r: float, *, colour: str = "#000000",
+               width: float = 1.2, dash: str = "solid", label: str | None = None,
+               cls: str = "circle") -> None:
+        """A circle of data radius r (an ellipse in pixels when the axes are not equal-aspect)."""
+        rx = abs(float(self.x(cx + r)) - float(self.x(cx)))
+        ry = abs(float(self.y(cy + r)) - float(self.y(cy)))
+        dash_attr = f' stroke-dasharray="{DASHES[dash]}"' if DASHES[dash] else ""
+        self._data.append(f'<ellipse class="{escape(cls)}" cx="{_n(float(self.x(cx)))}" '
+                          f'cy="{_n(float(self.y(cy)))}" rx="{_n(rx)}" ry="{_n(ry)}" fill="none" '
+                          f'stroke="{colour}" stroke-width="{_n(width)}"{dash_attr}/>')
+        self._legend(label, LegendEntry(label or "", "line", colour, dash=dash, width=width))
+
+    def top_ticks(self, xs: Sequence[float], texts: Sequence[str], label: str, *,
+                  size: float = 11) -> None:
+        """Ticks and labels along the top edge at data x (a second scale, e.g. cycles/mm)."""
+        left, top, w, _ = self.box
+        for v, t in zip(xs, texts):
+            if self.xlim[0] - 1e-9 <= v <= self.xlim[1] + 1e-9:
+                px = float(self.x(v))
+                self._over.append(f'<path d="M{_n(px)} {_n(top)}v-5" stroke="#000000"/>')
+                self._over.append(_text(px, top - 9, t, size=size, anchor="middle", cls="x2tick"))
+        self._over.append(_text(left + w / 2, top - 28, label, size=size + 1, anchor="middle",
+                                cls="x2label"))
+
     def text(self, x: float, y: float, s: str, **kw: object) -> None:
         """Text at a data position (see Figure.text for the keywords)."""
         self._over.append(_text(float(self.x(x)), float(self.y(y)), s, **kw))  # type: ignore[arg-type]
 
     def ticks(self, xticks: Sequence[float], yticks: Sequence[float], *, xnfrac: int,
-              ynfrac: int, xlabel: str, ylabel: str, grid: bool = True, size: float = 11) -> None:
+              ynfrac: int, xlabel: str, ylabel: str, grid: bool = True, size: float = 11,
+              ytexts: Sequence[str] | None = None, xtexts: Sequence[str] | None = None
+              ) -> None:
         """Tick marks and labels at the given values (those outside the limits are skipped),
-        optional light grid lines, and the axis labels (with their units)."""
+        optional light grid lines, and the axis labels (with their units). ``ytexts`` replaces
+        the y tick labels (e.g. decades of a log axis drawn as log10 values), ``xtexts`` the x
+        ones (e.g. category names)."""
         left, top, w, h = self.box
         bottom = top + h
-        for v in xticks:
+        ylabs = list(ytexts) if ytexts is not None else [tick_label(v, ynfrac) for v in yticks]
+        xlabs = list(xtexts) if xtexts is not None else [tick_label(v, xnfrac) for v in xticks]
+        for v, xlab in zip(xticks, xlabs):
             if not self.xlim[0] - 1e-9 <= v <= self.xlim[1] + 1e-9:
                 continue
             px = float(self.x(v))
@@ -315,9 +457,9 @@ class Axes:
                 self._grid.append(f'<path d="M{_n(px)} {_n(top)}V{_n(bottom)}" stroke="#e3e3e3" '
                                   f'stroke-width="0.8"/>')
             self._over.append(f'<path d="M{_n(px)} {_n(bottom)}v5" stroke="#000000"/>')
-            self._over.append(_text(px, bottom + 18, tick_label(v, xnfrac), size=size,
+            self._over.append(_text(px, bottom + 18, xlab, size=size,
                                     anchor="middle", cls="xtick"))
-        for v in yticks:
+        for v, lab in zip(yticks, ylabs):
             if not self.ylim[0] - 1e-9 <= v <= self.ylim[1] + 1e-9:
                 continue
             py = float(self.y(v))
@@ -325,9 +467,9 @@ class Axes:
                 self._grid.append(f'<path d="M{_n(left)} {_n(py)}H{_n(left + w)}" '
                                   f'stroke="#e3e3e3" stroke-width="0.8"/>')
             self._over.append(f'<path d="M{_n(left)} {_n(py)}h-5" stroke="#000000"/>')
-            self._over.append(_text(left - 8, py + size * 0.35, tick_label(v, ynfrac), size=size,
-                                    anchor="end", cls="ytick"))
-        ylab_w = max((_text_width(tick_label(v, ynfrac), size) for v in yticks), default=0)
+            self._over.append(_text(left - 8, py + size * 0.35, lab, size=size, anchor="end",
+                                    cls="ytick"))
+        ylab_w = max((_text_width(lab, size) for lab in ylabs), default=0)
         self._over.append(_text(left + w / 2, bottom + 40, xlabel, size=size + 1, anchor="middle",
                                 cls="xlabel"))
         self._over.append(_text(left - ylab_w - 20, top + h / 2, ylabel, size=size + 1,

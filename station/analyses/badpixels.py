@@ -27,7 +27,7 @@ NEED = CaptureNeed(targets=frozenset({"open_aperture"}), keep=frozenset({"stack"
 
 
 def write_bad_pixels(site: AnalysisSite, bad: BadPixelMap) -> list[Path]:
-    """badpixels.json, badpixels.csv, bad_pixels.tif and badpixels.png into the site."""
+    """badpixels.json, badpixels.csv, bad_pixels.tif and badpixels.svg into the site."""
     from analysis.iq_plots import plot_bad_pixels
 
     files = [write_result(site, "badpixels.json", bad.to_dict(max_listed=100000))]
@@ -36,7 +36,7 @@ def write_bad_pixels(site: AnalysisSite, bad: BadPixelMap) -> list[Path]:
     mask = write_mask_tiff(site.result_path("bad_pixels.tif"), bad)
     site.register(mask)
     files.append(mask)
-    plot = plot_bad_pixels(bad, site.plot_path("badpixels.png"))
+    plot = plot_bad_pixels(bad, site.plot_path("badpixels.svg"))
     site.register(plot)
     files.append(plot)
     return files

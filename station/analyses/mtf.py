@@ -95,9 +95,9 @@ def write_mtf(site: AnalysisSite, results: Sequence[SfrResult], names: Sequence[
     rows = [[float(f)] + [float(np.interp(f, r.freq_cyc_per_px, r.mtf)) for r in results]
             for f in freq]
     files.append(write_csv(site, "mtf.csv", header, rows))
-    plots = [plot_mtf(results, site.plot_path("mtf.png"), spec_min_at_nyquist=limit)]
+    plots = [plot_mtf(results, site.plot_path("mtf.svg"), spec_min_at_nyquist=limit)]
     if len(results) > 1:
-        plots.append(plot_mtf_through_field(results, shape, site.plot_path("mtf_field.png"),
+        plots.append(plot_mtf_through_field(results, shape, site.plot_path("mtf_field.svg"),
                                             spec_min_at_nyquist=limit))
     for p in plots:
         site.register(p)

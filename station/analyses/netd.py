@@ -66,7 +66,7 @@ def run(site: AnalysisSite, step: AnalyzeStep, context: AnalysisContext) -> Anal
     files.append(write_csv(site, "netd_sitf.csv", ["source_c", "signal_counts",
                                                    "signal_sigma_counts", "residual_counts"],
                            rows))
-    for name, plot in (("netd_sitf.png", plot_sitf), ("netd_map.png", plot_netd_map)):
+    for name, plot in (("netd_sitf.svg", plot_sitf), ("netd_map.svg", plot_netd_map)):
         path = plot(m, site.plot_path(name))
         site.register(path)
         files.append(path)

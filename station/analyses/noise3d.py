@@ -42,7 +42,7 @@ def noise3d_of(stack: np.ndarray, bad_mask: np.ndarray | None, sitf_counts_per_k
 
 
 def write_noise3d(site: AnalysisSite, result: Noise3dResult) -> list:
-    """noise3d.json, noise3d.csv (one row per component) and noise3d.png into the site."""
+    """noise3d.json, noise3d.csv (one row per component) and noise3d.svg into the site."""
     from analysis.iq_plots import plot_noise3d
 
     files = [write_result(site, "noise3d.json", result.to_dict())]
@@ -53,7 +53,7 @@ def write_noise3d(site: AnalysisSite, result: Noise3dResult) -> list:
     files.append(write_csv(site, "noise3d.csv", ["component", "sigma_counts",
                                                  "sigma_uncertainty_counts", "sigma_raw_counts",
                                                  "sigma_mk", "sigma_uncertainty_mk"], rows))
-    plot = plot_noise3d(result, site.plot_path("noise3d.png"))
+    plot = plot_noise3d(result, site.plot_path("noise3d.svg"))
     site.register(plot)
     files.append(plot)
     return files

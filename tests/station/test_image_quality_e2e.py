@@ -167,7 +167,7 @@ def test_frame_captured_elsewhere_gives_the_runs_mtf(iq_run: Path, tmp_path: Pat
     (alone,) = _json(out / "mtf.json")["edges"]
     assert alone["mtf_at_nyquist"] == pytest.approx(run_edge["mtf_at_nyquist"], abs=SAME)
     assert np.allclose(alone["mtf"], run_edge["mtf"], atol=SAME)
-    assert (out / "plots" / "mtf.png").is_file()
+    assert (out / "plots" / "mtf.svg").is_file()
 
 
 @pytest.mark.parametrize("analysis, shape, words", [
