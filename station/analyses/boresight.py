@@ -103,7 +103,7 @@ def run(site: AnalysisSite, step: AnalyzeStep, context: AnalysisContext) -> Anal
 
 def _plot(site: AnalysisSite, ms: list[BoresightMeasurement], aligned: Mapping | None,
           context: AnalysisContext):
-    from analysis.geometry_plots import plot_boresight_scatter  # matplotlib on use
+    from analysis.geometry_plots import plot_boresight_scatter
 
     points = [m.boresight_mrad for m in ms]
     sigmas = [m.sigma_mrad for m in ms]
@@ -114,7 +114,7 @@ def _plot(site: AnalysisSite, ms: list[BoresightMeasurement], aligned: Mapping |
         labels.append("alignment (converged pose)")
     limit = context.uut.spec_limits.get("max_boresight_error_mrad")
     return plot_boresight_scatter(points, sigmas, labels, limit,
-                                  site.plot_path("boresight_scatter.png"),
+                                  site.plot_path("boresight_scatter.svg"),
                                   title=f"Boresight of {context.uut.serial}")
 
 

@@ -250,18 +250,18 @@ def _write(ctx: Any, name: str, data: Mapping[str, Any]) -> Any:
 
 
 def _plot_alignment(ctx: Any, data: Mapping[str, Any]) -> list[Any]:
-    from analysis.geometry_plots import plot_alignment_convergence  # matplotlib on use
+    from analysis.geometry_plots import plot_alignment_convergence
 
     path = plot_alignment_convergence(data["iterations"], float(data["tolerance_px"]),
-                                      ctx.run.plots_dir / "alignment_convergence.png")
+                                      ctx.run.plots_dir / "alignment_convergence.svg")
     ctx.run.register(path)
     return [path]
 
 
 def _plot_edges(ctx: Any, res: Any) -> list[Any]:
-    from analysis.geometry_plots import plot_fov_edges  # matplotlib on use
+    from analysis.geometry_plots import plot_fov_edges
 
-    path = plot_fov_edges(res, ctx.run.plots_dir / "fov_edges.png")
+    path = plot_fov_edges(res, ctx.run.plots_dir / "fov_edges.svg")
     ctx.run.register(path)
     return [path]
 

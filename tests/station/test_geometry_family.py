@@ -14,6 +14,7 @@ from __future__ import annotations
 import io
 import json
 import math
+import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import pytest
@@ -135,9 +136,22 @@ def test_fov_by_bisection_matches_the_true_camera(family) -> None:
     assert fov["sigma_h_deg"] < 0.01
     looks = [e for e in events if e["type"] == "fov_scan.look"]
     assert 8 <= len(looks) <= 12 * 20   # four edges and 2 x 4 corner edges, bounded bisections
-    assert (run / "plots" / "fov_edges.png").stat().st_size > 10_000
-    assert (run / "plots" / "alignment_convergence.png").stat().st_size > 10_000
-    assert (run / "plots" / "boresight_scatter.png").stat().st_size > 10_000
+    # The plots are SVG: read back, one marker per probe / iteration / boresight (the results'
+    # own counts are the reference).
+    ns = "{http://www.w3.org/2000/svg}"
+
+    def markers(name: str, cls: str) -> int:
+        root = ET.parse(run / "plots" / name).getroot()
+        return sum(len(g) for g in root.iter(f"{ns}g") if g.get("class") == cls)
+
+    scan = json.loads((run / "results" / "fov_scan_result.json").read_text())
+    probes = sum(len(scan["edges"][k]["probes"]) for k in ("left", "right", "top", "bottom"))
+    assert markers("fov_edges.svg", "probes") == probes
+    align = json.loads((run / "results" / "alignment.json").read_text())
+    assert markers("alignment_convergence.svg", "iterations") == len(align["iterations"])
+    assert markers("alignment_convergence.svg", "path") == len(align["iterations"])
+    bore = json.loads((run / "results" / "boresight.json").read_text())
+    assert markers("boresight_scatter.svg", "points") == len(bore["measurements"]) + 1  # + aligned
 
 
 NO_PINHOLE = """\
