@@ -1,6 +1,6 @@
 """What each `nightbench` sub-command does (argument parsing lives in station/cli/main.py).
 
-Heavy imports (the runner, drivers, simulators, scipy, matplotlib, numpy) are made inside the
+Heavy imports (the runner, drivers, simulators, scipy, numpy) are made inside the
 commands that need them, so `nightbench recipes` and `--help` start at once.
 """
 

@@ -227,7 +227,7 @@ def _history_commands(sub: Any) -> None:
     add_database_options(trend)
     add_filter_options(trend)
     trend.add_argument("--by", choices=["time", "serial"], default="time")
-    trend.add_argument("--plot", type=Path, default=None, help="PNG file for the chart")
+    trend.add_argument("--plot", type=Path, default=None, help="SVG file for the chart (.svg)")
     trend.add_argument("--csv", action="store_true")
     compare = sub.add_parser("compare", help="two runs figure by figure")
     compare.add_argument("run_a", help="run folder or recorded run id")

@@ -65,8 +65,12 @@ def show_runs(args: argparse.Namespace, console: Console) -> int:
 
 def show_trend(args: argparse.Namespace, console: Console) -> int:
     from station.cli.console import print_table
-    from station.history.trendplot import plot_trend
+    from station.history.trendplot import SUFFIX, plot_trend
 
+    if args.plot is not None and args.plot.suffix.lower() != SUFFIX:
+        console.print(f"--plot {args.plot}: the chart is written as SVG; give a file name ending "
+                      f"in {SUFFIX}", highlight=False, markup=False)
+        return 2
     engine = engine_for(args)
     t = trend(engine, args.figure, filter_of(args), by=args.by)
     if not t.points:
@@ -88,7 +92,7 @@ def show_trend(args: argparse.Namespace, console: Console) -> int:
         console.print(f"n={len(t.points)} mean={c.mean:.6g} sigma(moving range)={c.sigma:.4g} "
                       f"3-sigma band=[{c.lower:.6g}, {c.upper:.6g}] outliers={len(c.outliers)} "
                       f"spec limit: {limit}", highlight=False, markup=False)
-    out = args.plot or args.runs / f"trend-{re.sub(r'[^A-Za-z0-9_.-]', '_', args.figure)}.png"
+    out = args.plot or args.runs / f"trend-{re.sub(r'[^A-Za-z0-9_.-]', '_', args.figure)}.svg"
     out.parent.mkdir(parents=True, exist_ok=True)
     console.print(f"plot: {plot_trend(t, out)}", highlight=False, markup=False)
     return 0

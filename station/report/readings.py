@@ -8,7 +8,6 @@ frame timestamps, (n - 1) / (t_last - t_first).
 
 from __future__ import annotations
 
-import io
 import json
 import re
 from collections.abc import Iterable, Mapping
@@ -21,6 +20,7 @@ from station.record.events import read_events
 QUERY_SERIES = {"MEAS:TEMP?": ("blackbody", "source"), "MEAS:REF?": ("blackbody", "reference")}
 AXIS_QUERY = re.compile(r"^POS\?\s+(\w+)$")
 PANELS = (("blackbody", "blackbody (C)"), ("stage", "stage axes"), ("camera", "frame rate (Hz)"))
+SERIES_COLOURS = ("#1f5fa8", "#e07b00", "#2a9d4b", "#c0282d", "#7b4fa8", "#555555")  # our own
 
 
 @dataclass
@@ -103,33 +103,38 @@ def read_series(run: Path) -> list[Series]:
 
 
 def plot_series(series: list[Series]) -> bytes | None:
-    """One PNG, a panel per instrument sharing the time axis; None when nothing was read."""
-    panels = [(p, label) for p, label in PANELS if any(s.panel == p for s in series)]
+    """One SVG (UTF-8 bytes), a panel per instrument sharing the time axis; None when nothing
+    was read. Drawn by analysis.svg_plot: writing a report loads no plotting library."""
+    from analysis.svg_plot import Figure, nice_ticks
+
+    panels = [(p, label) for p, label in PANELS if any(s.panel == p and s.t for s in series)]
     if not panels:
         return None
-    import matplotlib
-
-    matplotlib.use("Agg")
-    from matplotlib.figure import Figure
-
     span = max((s.t[-1] for s in series if s.t), default=0.0)
     scale, unit = (3600.0, "h") if span > 7200 else (60.0, "min") if span > 120 else (1.0, "s")
-    fig = Figure(figsize=(7.5, 1.9 * len(panels) + 0.4), dpi=110)
-    axes = fig.subplots(len(panels), 1, sharex=True, squeeze=False)[:, 0]
-    for ax, (panel, label) in zip(axes, panels):
-        for s in (s for s in series if s.panel == panel):
-            style = "o" if panel == "camera" or len(s.t) < 3 else "-"
-            ax.plot([t / scale for t in s.t], s.v, style, ms=3, lw=1, label=s.name)
-        ax.ticklabel_format(axis="y", useOffset=False)
+    xt, xn = nice_ticks(0.0, max(span / scale, 1e-9), 8)
+    ph, gap, top = 170, 34, 20
+    fig = Figure(820, top + len(panels) * (ph + gap) + 40,
+                 description="instrument readings against time")
+    for k, (panel, label) in enumerate(panels):
+        mine = [s for s in series if s.panel == panel and s.t]
+        values = [v for s in mine for v in s.v]
+        lo, hi = min(values), max(values)
         if panel == "camera":
-            values = [v for s in series if s.panel == panel for v in s.v]
-            ax.set_ylim(0.9 * min(values), 1.1 * max(values))
-        ax.set_ylabel(label, fontsize=8)
-        ax.legend(fontsize=7, loc="best")
-        ax.grid(alpha=0.3)
-        ax.tick_params(labelsize=7)
-    axes[-1].set_xlabel(f"time from the start of the run ({unit})", fontsize=8)
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    return buf.getvalue()
+            lo, hi = 0.9 * lo, 1.1 * hi
+        yt, yn = nice_ticks(lo, hi, 5)
+        y0 = top + k * (ph + gap)
+        ax = fig.axes((90, y0, 520, ph), (xt[0], xt[-1]), (yt[0], yt[-1]))
+        for i, s in enumerate(mine):
+            colour = SERIES_COLOURS[i % len(SERIES_COLOURS)]
+            ts = [t / scale for t in s.t]
+            if panel == "camera" or len(s.t) < 3:
+                ax.markers(ts, s.v, shape="dot", size=5, colour=colour, label=s.name,
+                           cls=f"series-{panel}")
+            else:
+                ax.line(ts, s.v, colour=colour, width=1.2, label=s.name, cls=f"series-{panel}")
+        last = k == len(panels) - 1
+        ax.ticks(xt, yt, xnfrac=xn, ynfrac=yn, size=10, ylabel=label,
+                 xlabel=f"time from the start of the run ({unit})" if last else "")
+        fig.legend(90 + 520 + 14, y0, ax.legend_entries, size=10)
+    return fig.to_svg().encode("utf-8")

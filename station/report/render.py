@@ -110,12 +110,12 @@ def _provenance(record: RunRecord) -> dict[str, Any]:
 
 def build_context(record: RunRecord) -> dict[str, Any]:
     timeline = read_timeline(record.path)
-    png = plot_series(read_series(record.path))
+    chart = plot_series(read_series(record.path))
     start, end = record.started, record.ended
     return {
         "r": record, "uut": record.uut, "plan": record.plan, "headline": _headline(record),
         "verdicts": record.verdicts, "analyses": _analyses(record), "timeline": timeline,
-        "readings_uri": data_uri(png) if png else None, "prov": _provenance(record),
+        "readings_uri": data_uri(chart, "image/svg+xml") if chart else None, "prov": _provenance(record),
         "duration_s": (end - start).total_seconds() if start and end else None,
         "generated_utc": dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         "css": (Path(__file__).parent / "templates" / "report.css").read_text(encoding="utf-8"),

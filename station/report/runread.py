@@ -22,7 +22,7 @@ from station.report.verdict_rows import RunVerdicts, read_verdicts, unit_of
 PENDING_NAME = "history-pending.json"
 """Left in a run folder whose history record failed; `nightbench index` records it and removes it."""
 _YAML_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)  # the C loader when built: faster
-PLOT_SUFFIXES = (".png", ".svg")  # matplotlib PNGs and the distortion SVGs
+PLOT_SUFFIXES = (".png", ".svg")  # the plots are SVG; PNG from older runs still shows
 SKIP_FIGURES = {"schema_version", "passed", "coverage_k", "version", "nominal", "thresholds"}
 
 
@@ -188,7 +188,7 @@ def read_results(run: Path) -> dict[str, Any]:
 def plots_by_analysis(run: Path, analyses: list[str]) -> dict[str, list[Path]]:
     """plots/<analysis>_*.png and *.svg grouped under their analysis; others under 'other'.
 
-    Some analyses draw PNG (matplotlib), the distortion plots are SVG; both are pictures."""
+    The analyses draw SVG; runs made before that hold PNG plots; both are pictures."""
     out: dict[str, list[Path]] = {}
     folder = run / "plots"
     pictures = sorted(p for p in folder.glob("*") if p.suffix.lower() in PLOT_SUFFIXES and p.is_file())

@@ -6,7 +6,7 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import io
-import struct
+import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import pytest
@@ -30,12 +30,7 @@ def runs(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
                  netd_mk=netd, pid=i)
     return tmp_path / "runs"
 
-
-def png_size(path: Path) -> tuple[int, int]:
-    """Width and height from the IHDR chunk (PNG specification, ISO/IEC 15948, 11.2.2)."""
-    data = path.read_bytes()
-    assert data[:8] == bytes.fromhex("89504E470D0A1A0A") and data[12:16] == b"IHDR"
-    return struct.unpack(">II", data[16:24])
+SVG = "{http://www.w3.org/2000/svg}"
 
 
 def test_index_runs_trend_compare_report(runs: Path, capsys: pytest.CaptureFixture) -> None:
@@ -49,11 +44,16 @@ def test_index_runs_trend_compare_report(runs: Path, capsys: pytest.CaptureFixtu
     rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
     assert [r["uut_serial"] for r in rows] == ["DEMO-0004"]
 
-    assert main(["trend", "netd_mk", "--csv", "--plot", "chart.png"]) == 0
+    assert main(["trend", "netd_mk", "--csv", "--plot", "chart.svg"]) == 0
     out = capsys.readouterr().out
     table = list(csv.DictReader(io.StringIO(out.split("n=")[0])))
     assert [float(r["value"]) for r in table] == [44.0, 44.5, 43.8, 44.2, 53.0, 44.1]
-    assert "spec limit: <= 50" in out and png_size(Path("chart.png"))[0] > 400
+    assert "spec limit: <= 50" in out
+    chart = ET.parse("chart.svg").getroot()  # the chart is SVG: one marker per run
+    (values,) = [g for g in chart.iter(f"{SVG}g") if g.get("class") == "values"]
+    assert len(values) == 6 and float(chart.get("width")) > 400
+    assert main(["trend", "netd_mk", "--plot", "chart.png"]) == 2  # refused, said why
+    assert "written as SVG" in capsys.readouterr().out and not Path("chart.png").exists()
 
     folders = sorted(p for p in runs.iterdir() if p.is_dir())
     assert main(["compare", str(folders[0]), str(folders[4]), "--csv"]) == 0
