@@ -155,6 +155,29 @@ def test_reanalysis_reproduces_the_run(iq_run: Path, name: str, files: list[str]
         _numbers(_json(iq_run / "results" / f), _json(again / "results" / f), f)
 
 
+def test_plots_and_report_load_no_plotting_library(iq_run: Path) -> None:
+    # A fresh process re-runs every image-quality analysis (plots included) and writes the
+    # report: no plotting or imaging library may be loaded (matplotlib's import alone costs
+    # about a second, the plots are SVG written by analysis.svg_plot).
+    import subprocess
+    import sys
+
+    code = ("import contextlib, io, sys\n"
+            "from station.cli.main import main\n"
+            "with contextlib.redirect_stdout(io.StringIO()):\n"
+            f"    rc = [main(['analyze', n, {str(iq_run)!r}]) for n in "
+            "('netd', 'mtf', 'noise3d', 'badpixels')]\n"
+            f"    rc.append(main(['report', {str(iq_run)!r}]))\n"
+            "print(rc, sorted({m.split('.')[0] for m in sys.modules} & {'matplotlib', 'PIL'}))\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=Path(__file__).resolve().parents[2], timeout=300)
+    assert done.returncode == 0, done.stderr
+    rc, loaded = done.stdout.strip().splitlines()[-1].rsplit("] ", 1)
+    assert loaded == "[]" and all(int(c) in (0, 1) for c in rc.strip("[").split(", "))
+    again = sorted((iq_run / "reanalysis").iterdir(), key=lambda p: int(p.name))[-1]
+    assert (again / "plots" / "badpixels.svg").is_file()
+
+
 def test_frame_captured_elsewhere_gives_the_runs_mtf(iq_run: Path, tmp_path: Path) -> None:
     out = tmp_path / "out"
     with contextlib.redirect_stdout(io.StringIO()):
