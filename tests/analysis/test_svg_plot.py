@@ -139,3 +139,20 @@ def test_save_is_atomic_and_follows_the_umask(tmp_path) -> None:
     assert stat.S_IMODE(path.stat().st_mode) == 0o640  # as any new file under umask 027
     assert [p.name for p in path.parent.iterdir()] == ["a.svg"]  # no temporary file left
     assert path.read_text(encoding="utf-8").startswith('<?xml version="1.0" encoding="UTF-8"?>')
+
+
+def test_vectorised_viridis_is_the_scalar_one_and_the_published_table() -> None:
+    # Same interpolation as viridis(); reference: matplotlib's 256-entry table (van der Walt and
+    # Smith, 2015), within the 6/255 the 17 stops allow.
+    from matplotlib import colormaps
+
+    from analysis.svg_plot import viridis_rgb
+
+    t = np.linspace(0.0, 1.0, 256)
+    got = viridis_rgb(t).astype(int)
+    scalar = [[int(viridis(v)[k:k + 2], 16) for k in (1, 3, 5)] for v in t]
+    assert np.abs(got - np.array(scalar)).max() <= 1  # rounding of the same interpolation
+    table = np.round(255 * np.asarray(colormaps["viridis"].colors)).astype(int)
+    assert np.abs(got - table).max() <= 6
+    assert viridis_rgb(np.array([np.nan, -1.0, 2.0])).tolist() == [[68, 1, 84], [68, 1, 84],
+                                                                    [253, 231, 37]]
