@@ -432,7 +432,7 @@ class CaptureWriter:
                 "counter_gaps": gaps, "repeated_counters": repeats,
                 "counters": self._counters, "timestamps": self._timestamps,
                 "readings": self._readings, "extra": self.extra}
-        atomic.write_json_atomic(self._partial["metadata"], meta)
+        atomic.write_json_atomic(self._partial["metadata"], meta, durable=self.durable)
         for role in ("stack", "average", "metadata"):
             if self._partial[role].exists():
                 os.replace(self._partial[role], self.files[role])
