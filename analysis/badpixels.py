@@ -37,6 +37,7 @@ from typing import Any
 
 import numpy as np
 
+from analysis.stack_stats import temporal_mean_var
 from analysis.verdicts import SpecKey, Verdict
 
 KINDS = ("dead", "hot", "noisy", "unresponsive")
@@ -192,8 +193,7 @@ def _mean_var(stack: np.ndarray, what: str) -> tuple[np.ndarray, np.ndarray]:
     if s.ndim != 3 or s.shape[0] < 2:
         raise ValueError(f"bad pixels: the {what} flat must be a stack (frames, rows, cols) of 2 "
                          f"or more frames, got shape {s.shape}")
-    s = s.astype(np.float64)
-    return s.mean(axis=0), s.var(axis=0, ddof=1)
+    return temporal_mean_var(s)
 
 
 def bad_pixel_map(stack_cool: np.ndarray, stack_warm: np.ndarray, *,

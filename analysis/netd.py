@@ -44,6 +44,7 @@ from typing import Any
 import numpy as np
 
 from analysis.radiometry import band_radiance, band_radiance_derivative
+from analysis.stack_stats import temporal_mean_var
 from analysis.verdicts import SpecKey, Verdict
 
 SPEC_KEYS = {
@@ -199,9 +200,9 @@ def measure_netd(temperatures_c: Sequence[float], stacks: Sequence[np.ndarray],
         if shape is not None and a.shape[1:] != shape:
             raise ValueError(f"NETD: the flat at {t:g} C is {a.shape[1:]}, others {shape}")
         shape = a.shape[1:]
-        a = a.astype(np.float64)
-        means.append(a.mean(axis=0))
-        var_maps.append(np.maximum(a.var(axis=0, ddof=1) - q2, 0.0))
+        mean, var = temporal_mean_var(a)
+        means.append(mean)
+        var_maps.append(np.maximum(var - q2, 0.0))
         frames.append(int(a.shape[0]))
     good = np.ones(shape, dtype=bool) if bad_pixel_mask is None else ~np.asarray(
         bad_pixel_mask, dtype=bool)

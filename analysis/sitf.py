@@ -18,6 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from analysis.stack_stats import temporal_mean_var
+
 
 @dataclass(frozen=True)
 class SitfResult:
@@ -80,7 +82,7 @@ def temporal_noise(stack: np.ndarray) -> float:
     """
     if stack.ndim != 3 or stack.shape[0] < 2:
         raise ValueError("temporal noise needs a stack of two or more frames (frames, rows, cols)")
-    var = np.var(stack.astype(np.float64), axis=0, ddof=1)
+    _, var = temporal_mean_var(stack)
     return float(np.sqrt(np.mean(var)))
 
 

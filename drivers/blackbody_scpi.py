@@ -32,6 +32,7 @@ class ScpiBlackbody(DeclaredBlackbody):
         "temperature": Query("MEAS:TEMP?", unit="C", meaning="source (emitter) temperature"),
         "reference_temperature": Query("MEAS:REF?", unit="C",
                                        meaning="reference (ambient) sensor temperature"),
+        "difference": Query("MEAS:DIFF?", unit="K", meaning="source minus reference"),
         "stable": Query("STAT:STAB?", BOOL, meaning="controller stability flag"),
         "error": Query("SYST:ERR?", '(?P<code>-?\\d+),"(?P<message>.*)"',
                        meaning="last error, 0 when none (reading clears it)"),

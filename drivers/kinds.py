@@ -4,12 +4,12 @@ Each base names the capabilities its kind needs (`RULES`, the required command k
 kind's station settings (limits, slots, axes) and implements the interface methods by asking the
 declared capabilities. A driver then only declares: see drivers/blackbody_scpi.py.
 
-| kind      | required keys                                                         | optional |
-|-----------|-----------------------------------------------------------------------|----------|
-| blackbody | identify, set_mode, mode, set_temperature, set_difference, setpoint,  | error,   |
-|           | temperature, reference_temperature, stable                            | go_safe  |
-| wheel     | identify, select_slot, current_slot, moving, home                     | slot_count, error |
-| stage     | identify, move, position, moving (or state), home, stop              | state, error |
+| kind      | required keys                                                 | optional          |
+|-----------|---------------------------------------------------------------|-------------------|
+| blackbody | identify, set_mode, mode, set_temperature, set_difference,    | error, go_safe,   |
+|           | setpoint, temperature, reference_temperature, stable          | difference        |
+| wheel     | identify, select_slot, current_slot, moving, home             | slot_count, error |
+| stage     | identify, move, position, moving (or state), home, stop       | state, error      |
 
 Busy and settle semantics: `stable` (blackbody) and `moving` (wheel, stage) are boolean queries;
 a stage may instead declare `state` with words mapped to `ready`, `moving` or anything else,
@@ -58,6 +58,7 @@ class DeclaredBlackbody(DeclaredDriver, Blackbody):
         "setpoint": CommandRule(query=True),
         "temperature": CommandRule(query=True),
         "reference_temperature": CommandRule(query=True),
+        "difference": CommandRule(query=True, required=False),
         "stable": CommandRule(query=True, value="bool"),
         "error": _ERROR,
         "go_safe": CommandRule(query=False, required=False),
@@ -131,6 +132,14 @@ class DeclaredBlackbody(DeclaredDriver, Blackbody):
 
     def reference_temperature(self) -> float:
         return float(self.ask("reference_temperature"))
+
+    def difference(self) -> float:
+        """The controller's own source-minus-reference reading where it has one: both sensors
+        sampled together (no skew between two queries) in one exchange, which halves the traffic
+        of a settle wait; else the two readings subtracted."""
+        if self.has("difference"):
+            return float(self.ask("difference"))
+        return super().difference()
 
     def is_stable(self) -> bool:
         return bool(self.ask("stable"))

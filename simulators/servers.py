@@ -162,6 +162,7 @@ class BlackbodyProtocol(InstrumentProtocol):
             "setpoint": lambda f: float(bb.setpoint_value),
             "temperature": lambda f: float(bb.measured_c()),
             "reference_temperature": lambda f: float(bb.measured_reference_c()),
+            "difference": lambda f: float(bb.measured_c() - bb.measured_reference_c()),
             "stable": lambda f: bool(bb.is_stable()),
             "go_safe": lambda f: bb.set("absolute", bb.start_c),  # standby at its start
         }

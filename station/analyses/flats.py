@@ -72,13 +72,16 @@ def coolest_and_warmest(flats: Sequence[Flat], what: str) -> tuple[Flat, Flat]:
 
 def bad_pixels_of(site: AnalysisSite, flats: Sequence[Flat], what: str) -> BadPixelMap:
     """The bad-pixel map (analysis.badpixels, default criteria) of the coolest and warmest
-    flats' stacks."""
+    flats' stacks, computed once per run for the same two captures."""
     cool, warm = coolest_and_warmest(flats, what)
-    try:
+
+    def compute() -> BadPixelMap:
         return bad_pixel_map(site.load_stack(cool.name), site.load_stack(warm.name),
                              conditions={"cool_c": round(cool.source_c, 4),
                                          "warm_c": round(warm.source_c, 4),
                                          "cool_capture": cool.name, "warm_capture": warm.name})
+    try:
+        return site.remembered("bad pixels", (cool.name, warm.name), compute)
     except ValueError as exc:
         raise AnalysisFailed(f"{what}: {exc}") from None
 

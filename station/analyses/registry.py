@@ -25,7 +25,7 @@ import math
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Literal, Protocol, Union
+from typing import Literal, Protocol, TypeVar, Union
 
 import numpy as np
 
@@ -34,6 +34,8 @@ from analysis.verdicts import SpecKey, Verdict
 from sequences.plansteps import AnalyzeStep, CaptureStep, OptionValue, PlanStep
 from sequences.yamlsource import Problem, SourceRef
 from station.inputs.config import StationConfig
+
+T = TypeVar("T")
 
 __all__ = ["OptionSpec", "OptionIssue", "CaptureNeed", "AnalysisSite", "AnalysisContext",
            "AnalysisOutcome", "Analysis", "AnalysisFailed", "Registry", "JsonValue",
@@ -143,6 +145,10 @@ class AnalysisSite(Protocol):
     def load_average(self, name: str) -> np.ndarray: ...
 
     def load_stack(self, name: str) -> np.ndarray: ...
+
+    def remembered(self, what: str, captures: Sequence[str], compute: Callable[[], T]) -> T:
+        """`compute()` once for the same captures (as long as their files are unchanged)."""
+        ...
 
     def result_path(self, file_name: str) -> Path:
         """A path inside results_dir for `file_name` (a plain name; anything else refused)."""

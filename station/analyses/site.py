@@ -9,8 +9,9 @@ with a separator or '..' is refused.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, MutableMapping, Sequence
 from pathlib import Path
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -19,13 +20,17 @@ from station.record import frame_store
 
 __all__ = ["FolderSite"]
 
+T = TypeVar("T")
+
 
 class FolderSite:
     """Captures from ``run_path``/frames; results in ``results_dir``, plots in ``plots_dir``."""
 
     def __init__(self, run_path: Path, results_dir: Path, plots_dir: Path, *, run_id: str,
-                 register: Callable[[Path], object] | None = None) -> None:
+                 register: Callable[[Path], object] | None = None,
+                 memo: MutableMapping[tuple[Any, ...], Any] | None = None) -> None:
         self._run_path = Path(run_path)
+        self._memo = memo if memo is not None else {}
         self._results_dir = Path(results_dir)
         self._plots_dir = Path(plots_dir)
         self._run_id = run_id
@@ -69,6 +74,23 @@ class FolderSite:
         except frame_store.FrameStoreError as exc:
             raise AnalysisFailed(f"{exc}; this analysis needs the frames kept as a stack "
                                  "(keep: stack or both)") from None
+
+    def remembered(self, what: str, captures: Sequence[str], compute: Callable[[], T]) -> T:
+        """`compute()` once per run for the same captures (keyed by the checksums of their files,
+        so a retaken capture is computed afresh): NETD, uniformity, SiTF, 3-D noise and the
+        bad-pixel map all mask the one bad-pixel map of the same two flats."""
+        key = (what, *((name, self._checksums(name)) for name in captures))
+        if key not in self._memo:
+            self._memo[key] = compute()
+        return self._memo[key]  # type: ignore[no-any-return]
+
+    def _checksums(self, name: str) -> tuple[str, ...]:
+        try:
+            files = frame_store.load_metadata(self._run_path, name).get("files", {})
+        except frame_store.FrameStoreError as exc:
+            raise AnalysisFailed(str(exc)) from None
+        return tuple(sorted(str(info.get("sha256")) for info in files.values()
+                            if isinstance(info, dict)))
 
     @staticmethod
     def _inside(folder: Path, file_name: str) -> Path:

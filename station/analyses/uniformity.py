@@ -11,6 +11,7 @@ mean frame is removed, so only the fixed pattern is reported.
 from __future__ import annotations
 
 from analysis.netd import measure_netd
+from analysis.stack_stats import temporal_mean_var
 from analysis.uniformity import SPEC_KEYS, two_point_uniformity
 from sequences.plansteps import AnalyzeStep
 from station.analyses.common import judge_spec, write_result
@@ -29,15 +30,16 @@ def run(site: AnalysisSite, step: AnalyzeStep, context: AnalysisContext) -> Anal
     flats = read_flats(site, step.instances)
     cool, warm = coolest_and_warmest(flats, "uniformity")
     bad = bad_pixels_of(site, flats, "uniformity")
-    stacks = {f.name: site.load_stack(f.name).astype("float64") for f in flats}
+    stacks = {f.name: site.load_stack(f.name) for f in flats}
+    stats = {f.name: temporal_mean_var(stacks[f.name]) for f in (cool, warm)}
     good = ~bad.mask
-    residual = tuple(float(stacks[f.name].var(axis=0, ddof=1)[good].mean())
-                     / stacks[f.name].shape[0] for f in (cool, warm))
+    residual = tuple(float(stats[f.name][1][good].mean()) / stacks[f.name].shape[0]
+                     for f in (cool, warm))
     try:
         sitf = measure_netd([f.source_c for f in flats], [stacks[f.name] for f in flats],
                             uut.band_um, at_c=cool.source_c, bad_pixel_mask=bad.mask
                             ).sitf_counts_per_k
-        u = two_point_uniformity(stacks[cool.name].mean(axis=0), stacks[warm.name].mean(axis=0),
+        u = two_point_uniformity(stats[cool.name][0], stats[warm.name][0],
                                  bad.mask, sitf, temporal_variance_of_means=residual,
                                  conditions={"cool_c": round(cool.source_c, 4),
                                              "warm_c": round(warm.source_c, 4),

@@ -11,6 +11,7 @@ from __future__ import annotations
 import datetime as _dt
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 from analysis.uut import UutSpec
 from analysis.verdicts import Verdict
@@ -74,6 +75,7 @@ class StepContext:
     tick: Callable[[], None] = lambda: None  # live-readings refresh while waiting
     verdicts: list[Verdict] = field(default_factory=list)  # judged by this session's analyses
     origin: dict[str, float] = field(default_factory=dict)  # stage origin set by align (per axis)
+    memo: dict[tuple[Any, ...], Any] = field(default_factory=dict)  # analyses' shared results
 
 
 def _refuse(refusal: object | None) -> None:
@@ -257,7 +259,7 @@ def run_analyze(step: AnalyzeStep, ctx: StepContext) -> JournalData:
     if analysis is None:
         raise StepFailed(f"no analysis named {step.analysis!r}; known: {sorted(ctx.analyses)}")
     site = FolderSite(ctx.run.path, ctx.run.results_dir, ctx.run.plots_dir,
-                      run_id=ctx.run.path.name, register=ctx.run.register)
+                      run_id=ctx.run.path.name, register=ctx.run.register, memo=ctx.memo)
     date = _dt.datetime.fromtimestamp(ctx.clock.now(), tz=_dt.timezone.utc).strftime("%Y-%m-%d")
     try:
         outcome = analysis.run(site, step, AnalysisContext(ctx.station, ctx.uut, date))

@@ -7,7 +7,9 @@ the process loses nothing it acknowledged). fsync (to the disk) happens at once 
 :class:`Event` marks flush-at-once (state changes, step boundaries, captures ...), and for the
 routine lines every `fsync_every` events or `sync_interval_s` seconds of real time, whichever
 comes first: a power cut loses at most about a second of routine traffic (commands, replies,
-readings) and never a state change. A dry run's thousands of routine lines a second therefore
+readings) and never a state change. A run on simulated time opens its log with `durable=False`:
+every line still reaches the operating system before `emit` returns, none is fsynced (such a
+run is made again from its seed in seconds; see station.record.runfolder). A dry run's thousands of routine lines a second therefore
 cost one fsync a second, not one per fifty lines. Every event type is a member of
 :class:`Event`; the log refuses others.
 
@@ -161,7 +163,7 @@ class EventLog:
 
     def __init__(self, path: Path | str, clock: Clock, *, fsync_every: int = 1000,
                  sync_interval_s: float = 1.0,
-                 sync_types: Iterable[str] = DEFAULT_SYNC_TYPES) -> None:
+                 sync_types: Iterable[str] = DEFAULT_SYNC_TYPES, durable: bool = True) -> None:
         if fsync_every < 1:
             raise ValueError("fsync_every must be >= 1")
         self.path = Path(path)
@@ -169,6 +171,7 @@ class EventLog:
         self.fsync_every = fsync_every
         self.sync_interval_s = sync_interval_s  # real seconds, whatever the station clock
         self.sync_types = frozenset(sync_types)
+        self.durable = durable  # False: every line reaches the OS, none is fsynced
         self._lock = threading.RLock()
         self._subscribers: list[Subscriber] = []
         self.subscriber_errors = 0
@@ -179,7 +182,7 @@ class EventLog:
                         default=0)
         new_file = not self.path.exists()
         self._fh = open(self.path, "ab")
-        if new_file:
+        if new_file and durable:
             fsync_dir(self.path.parent)
         self._since_sync = 0
         self._synced_at = time.monotonic()
@@ -215,8 +218,9 @@ class EventLog:
             self._seq += 1
             if self.broken is None:
                 self._since_sync += 1
-                sync = (kind.value in self.sync_types or self._since_sync >= self.fsync_every
-                        or time.monotonic() - self._synced_at >= self.sync_interval_s)
+                sync = self.durable and (
+                    kind.value in self.sync_types or self._since_sync >= self.fsync_every
+                    or time.monotonic() - self._synced_at >= self.sync_interval_s)
                 try:
                     self._write_line(line.encode("utf-8"), sync)
                 except OSError as exc:

@@ -250,7 +250,7 @@ class CaptureWriter:
     def __init__(self, frames_dir: Path | str, step_id: str, name: str, keep: Keep = "both", *,
                  expected_count: int | None = None, clock: Clock | None = None,
                  events: EventLog | None = None, min_free_bytes: int = DEFAULT_MIN_FREE,
-                 extra: Mapping[str, object] | None = None) -> None:
+                 extra: Mapping[str, object] | None = None, durable: bool = True) -> None:
         if keep not in KEEP_MODES:
             raise FrameStoreError(f"capture {name!r}: keep must be one of {KEEP_MODES}, not {keep!r}")
         if expected_count is not None and expected_count < 1:
@@ -266,6 +266,7 @@ class CaptureWriter:
         self.events = events
         self.min_free_bytes = min_free_bytes
         self.extra = dict(extra or {})
+        self.durable = durable
         self.files = capture_files(self.frames_dir, self.stem)
         self._partial = {role: p.with_name(p.name + PARTIAL) for role, p in self.files.items()}
         self._frames_log = self.frames_dir / f"{self.stem}{FRAMES_LOG_SUFFIX}{PARTIAL}"
@@ -397,7 +398,8 @@ class CaptureWriter:
         self._close_streams()
         record_files: dict[str, dict[str, Any]] = {}
         if self._tiff is not None:
-            fsync_file(self._partial["stack"])
+            if self.durable:
+                fsync_file(self._partial["stack"])
             record_files["stack"] = {"file": self.files["stack"].name, "dtype": "uint16",
                                      "pages": self.count}
         if self._acc is not None:
@@ -405,7 +407,8 @@ class CaptureWriter:
             np.divide(self._acc, self.count, out=average, casting="unsafe")
             tifffile.imwrite(self._partial["average"], average, photometric="minisblack",
                              metadata=None)
-            fsync_file(self._partial["average"])
+            if self.durable:
+                fsync_file(self._partial["average"])
             record_files["average"] = {
                 "file": self.files["average"].name, "dtype": "float32",
                 "min": float(average.min()), "max": float(average.max()),
@@ -429,12 +432,13 @@ class CaptureWriter:
                 "counter_gaps": gaps, "repeated_counters": repeats,
                 "counters": self._counters, "timestamps": self._timestamps,
                 "readings": self._readings, "extra": self.extra}
-        atomic.write_json_atomic(self._partial["metadata"], meta)
+        atomic.write_json_atomic(self._partial["metadata"], meta, durable=self.durable)
         for role in ("stack", "average", "metadata"):
             if self._partial[role].exists():
                 os.replace(self._partial[role], self.files[role])
         self._frames_log.unlink(missing_ok=True)
-        fsync_dir(self.frames_dir)
+        if self.durable:
+            fsync_dir(self.frames_dir)
         self._closed = True
         record = CaptureRecord(
             step_id=self.step_id, name=self.name, keep=self.keep, count=self.count,

@@ -70,12 +70,26 @@ def _utc_text(utc: _dt.datetime) -> str:
     return moment.strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
+def durable_for(clock: Clock) -> bool:
+    """Whether a run's records are fsynced as they are written: on a real clock, always.
+
+    A run on simulated time (the simulated bench) is made again exactly from its seed in
+    seconds, so it skips the fsyncs, which cost more than anything else it writes. What
+    integrity needs stays the same either way: every event and journal line reaches the
+    operating system before the run goes on (a crash of the process loses nothing), files
+    appear under their names only when complete (written aside, renamed last, metadata after
+    the images), and checksums in the metadata and manifest let `verify` find any damage.
+    """
+    return not clock.simulated
+
+
 class RunFolder:
     """Paths, event log, journal and captures of one run folder."""
 
     def __init__(self, path: Path, clock: Clock | None = None) -> None:
         self.path = Path(path)
         self.clock: Clock = clock or RealClock()
+        self.durable = durable_for(self.clock)
         self._events: EventLog | None = None
         self._journal: Journal | None = None
         self.inputs: dict[str, dict[str, Any]] = {}
@@ -180,14 +194,14 @@ class RunFolder:
     def events(self) -> EventLog:
         """The run's event log, opened on first use (appending, if it exists: resume)."""
         if self._events is None or self._events.closed:
-            self._events = EventLog(self.events_path, self.clock)
+            self._events = EventLog(self.events_path, self.clock, durable=self.durable)
         return self._events
 
     @property
     def journal(self) -> Journal:
         """The journal of completed steps (raises `JournalError` if it is damaged)."""
         if self._journal is None:
-            self._journal = Journal(self.journal_path)
+            self._journal = Journal(self.journal_path, durable=self.durable)
         return self._journal
 
     # -- inputs ----------------------------------------------------------------------------------
@@ -230,10 +244,11 @@ class RunFolder:
     def new_capture(self, step_id: str, name: str, keep: Keep = "both", *,
                     expected_count: int | None = None, min_free_bytes: int = DEFAULT_MIN_FREE,
                     extra: Mapping[str, object] | None = None) -> CaptureWriter:
-        """A writer for one capture step, logging to this run's events."""
+        """A writer for one capture step, logging to this run's events (fsynced when
+        `durable`, see `durable_for`)."""
         return CaptureWriter(self.frames_dir, step_id, name, keep, expected_count=expected_count,
                              clock=self.clock, events=self.events, min_free_bytes=min_free_bytes,
-                             extra=extra)
+                             extra=extra, durable=self.durable)
 
     def set_aside_partials(self, reason: str = "unfinished capture found when the run was resumed"
                            ) -> list[Path]:

@@ -1,7 +1,9 @@
 """Benchmark: the built-in `overnight-soak` recipe dry-run in simulated time, in process.
 
 Prints the wall time, the estimated real duration of the run on a real bench, their ratio and the
-frames written. Target on the 2-core development machine: under 60 s wall (a ratio above 480x).
+frames written. Goal (issue 18): a ratio of 2000x or more. The CPU time (all threads: the
+simulators' servers run in this process) is printed too: on a shared machine it is the steadier
+figure.
 
     python tests/bench/bench_overnight.py [--profile] [--one]
 
@@ -40,14 +42,14 @@ def run_once(root: Path, overrides: Mapping[str, Any]) -> dict[str, Any]:
     clock = SimClock()
     t_sim0 = clock.now()
     run = new_run_folder(inputs, root, clock)
-    wall0 = time.perf_counter()
+    wall0, cpu0 = time.perf_counter(), time.process_time()
     outcome = execute(inputs, run, clock, QuietConsole(), seed=1)
-    wall = time.perf_counter() - wall0
+    wall, cpu = time.perf_counter() - wall0, time.process_time() - cpu0
     run.close()
     frames = 0
     for meta in run.frames_dir.glob("*.json"):
         frames += int(json.loads(meta.read_text())["count"])
-    return {"state": outcome.state, "cause": outcome.cause, "wall_s": wall,
+    return {"state": outcome.state, "cause": outcome.cause, "wall_s": wall, "cpu_s": cpu,
             "estimate_s": inputs.estimate.total_s, "simulated_s": clock.now() - t_sim0,
             "frames": frames, "steps": len(inputs.plan.steps)}
 
@@ -65,7 +67,8 @@ def main(argv: list[str]) -> int:
     print(f"overnight-soak: {figures['state']} ({figures['cause']}), {figures['steps']} steps")
     print(f"estimated real duration {format_duration(figures['estimate_s'])} "
           f"({figures['estimate_s']:.0f} s); simulated {figures['simulated_s']:.0f} s")
-    print(f"wall {figures['wall_s']:.1f} s; ratio {ratio:.0f}x (target > 480x, < 60 s wall)")
+    print(f"wall {figures['wall_s']:.1f} s (CPU {figures['cpu_s']:.1f} s, all threads); "
+          f"ratio {ratio:.0f}x (goal >= 2000x)")
     print(f"frames written {figures['frames']}")
     return 0 if figures["state"] == "complete" else 1
 

@@ -51,6 +51,36 @@ def test_difference_mode_tracks_the_reference(sim, bb):
     assert bb.reference_temperature() == pytest.approx(22.1, abs=NOISE_TOL_K)
 
 
+def test_difference_is_one_exchange_and_agrees_with_the_two_readings(sim, bb):
+    """MEAS:DIFF? reads both sensors at one instant: one command on the wire, and the same
+    value as the two separate readings at that instant (the simulated noise is a function of
+    the time, so the two routes see the same samples)."""
+    bb.set_difference(3.0)
+    sim.clock.sleep(1800.0)
+    sent_before = len(sim.sent())
+    diff = bb.difference()
+    assert sim.sent()[sent_before:] == ["MEAS:DIFF?"]
+    assert diff == pytest.approx(bb.temperature() - bb.reference_temperature(), abs=2e-4)
+
+
+def test_difference_without_the_capability_asks_both_sensors(sim):
+    """A controller that has no difference reading: the driver subtracts its two readings."""
+    from tests.drivers.conftest import BB_SETTINGS
+
+    class NoDifference(ScpiBlackbody):
+        COMMANDS = {k: v for k, v in ScpiBlackbody.COMMANDS.items() if k != "difference"}
+
+    t = open_transport(sim.servers.resource("blackbody", "visa"), instrument="blackbody",
+                       clock=sim.clock, events=sim.events.append)
+    drv = NoDifference(t, name="blackbody", settings=BB_SETTINGS)
+    try:
+        sent_before = len(sim.sent())
+        drv.difference()
+        assert sim.sent()[sent_before:] == ["MEAS:TEMP?", "MEAS:REF?"]
+    finally:
+        drv.close()
+
+
 def test_station_limit_refused_before_sending(sim, bb):
     sent_before = len(sim.sent())
     with pytest.raises(LimitError, match="blackbody: 120"):
