@@ -447,7 +447,7 @@ class CameraRenderer:
         dead and hot pixels. The same (seed, capture key, frame_index, scene) always gives the
         same frame."""
         idx = self.noise_bits(frame_index, capture_key)
-        buf = np.take(self._noise_table, idx).reshape(self.shape)
+        buf = np.take(self._noise_table, idx, mode="clip").reshape(self.shape)  # in range: no checks
         flat = buf.reshape(-1)
         if len(self.bad_pixels.noisy):
             flat[self.bad_pixels.noisy] *= np.float32(self.truth.noisy_factor)
