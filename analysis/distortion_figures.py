@@ -4,8 +4,8 @@
   D the Brown-Conrady map (radial plus the radial part of the tangential terms), the ISO
   17850:2015 percentage (pincushion positive, barrel negative; W. J. Smith, Modern Optical
   Engineering, ch. 5) applied to the model instead of to single noisy points.
-- The measured field is the convex hull of the measured points in normalized coordinates; a
-  figure outside it is extrapolated, and the distance beyond the hull is stated.
+- The measured field is the convex hull of the measured points in normalized coordinates
+  (analysis.hull2d); a figure outside it is extrapolated, and the distance beyond the hull is stated.
 - Uncertainties by the delta method: var f = g^T C g, g the gradient of the figure by the fitted
   terms (central differences), C the fit covariance (GUM, JCGM 100:2008, section 5.1).
 """
@@ -16,10 +16,10 @@ import math
 from collections.abc import Callable
 
 import numpy as np
-from scipy.spatial import ConvexHull, QhullError
 
 from analysis.distortion_fit import FitModel, _values, geometry_from_values
 from analysis.geometry import BrownConrady, CameraGeometry, apply_brown_conrady
+from analysis.hull2d import convex_hull, hull_equations
 
 __all__ = ["local_distortion_percent", "local_distortion_percent_models", "propagate", "hull_of", "Hull"]
 
@@ -90,11 +90,13 @@ class Hull:
         pts = np.asarray(points, dtype=float).reshape(-1, 2)
         pts = pts[np.all(np.isfinite(pts), axis=1)]
         self.points = pts
-        try:
-            hull = ConvexHull(pts)
-            self.vertices = pts[hull.vertices]
-            self.equations = hull.equations  # a x + b y + c <= 0 inside
-        except (QhullError, ValueError):
+        verts = convex_hull(pts)
+        if len(verts) >= 3:
+            self.vertices = pts[verts]  # counter-clockwise (Andrew's monotone chain)
+            self.equations = hull_equations(self.vertices)  # a x + b y + c <= 0 inside
+        else:
+            # Fewer than 3 distinct points, or all on one line: no area. Distances are then to
+            # the nearest measured point and the samples are the points themselves.
             self.vertices = pts
             self.equations = None
 

@@ -29,8 +29,8 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import special
 
+from analysis.fdist import f_survival
 from analysis.geometry import BrownConrady, CameraGeometry, ideal_normalized
 
 __all__ = ["ALL_TERMS", "DistortionRefused", "FitModel", "choose_terms", "fit_camera_model",
@@ -487,7 +487,7 @@ def select_terms(
             if dof1 <= 0 or rss1 <= 0:
                 continue
             f = max(0.0, (rss - rss1) / len(g)) / (rss1 / dof1)
-            p = float(special.fdtrc(len(g), dof1, f))  # F-distribution survival function
+            p = f_survival(len(g), dof1, f)
             level = _level(g, alpha)
             if p < level:
                 trials.append((p / level, p, f, g, dof1, rss1))
