@@ -750,12 +750,19 @@ def _spot_arrays(spots_or_xy: Sequence[Spot] | np.ndarray, sigma_px: np.ndarray 
         xy = np.asarray(spots_or_xy, dtype=float).reshape(-1, 2)
         sig = _sigma_or_nan(sigma_px, len(xy))
         return xy, sig
-    good = [s for s in spots_or_xy if not (s.flags.value & _UNUSABLE.value)]
-    xy = np.array([[s.x, s.y] for s in good], dtype=float).reshape(-1, 2)
-    sig = np.array([[s.sigma_x, s.sigma_y] for s in good], dtype=float).reshape(-1, 2)
+    unusable = _unusable_of(spots_or_xy)
+    good = [s for s in spots_or_xy if not unusable[s.flags]]
+    xy = np.array([(s.x, s.y) for s in good], dtype=float).reshape(-1, 2)
+    sig = np.array([(s.sigma_x, s.sigma_y) for s in good], dtype=float).reshape(-1, 2)
     if sigma_px is not None:
         sig = _sigma_or_nan(sigma_px, len(xy))
     return xy, sig
+
+
+def _unusable_of(spots: Sequence[Spot]) -> dict[SpotFlag, bool]:
+    """Whether each distinct flag combination keeps a spot out of the fit (the flag test once
+    per combination, not once per spot)."""
+    return {f: bool(f & _UNUSABLE) for f in {s.flags for s in spots}}
 
 
 def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray) -> None:
@@ -763,7 +770,8 @@ def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray
     if isinstance(spots, np.ndarray):
         return
     found = [s for s in spots if isinstance(s, Spot)]
-    bad = [s for s in found if s.flags.value & _UNUSABLE.value]
+    unusable = _unusable_of(found)
+    bad = [s for s in found if unusable[s.flags]]
     if found and len(bad) > MAX_FLAGGED_FRACTION * len(found):
         counts: dict[str, int] = {}
         for s in bad:

@@ -101,6 +101,13 @@ def _mutual(grid_det: PointGrid, pred: np.ndarray, gate: float) -> np.ndarray:
     return mutual_nearest(grid_det, pred, gate)
 
 
+def _others(n: int, used: np.ndarray) -> np.ndarray:
+    """Indices 0..n-1 not in used, ascending."""
+    free = np.ones(n, dtype=bool)
+    free[used] = False
+    return np.nonzero(free)[0]
+
+
 def match_points(
     detected: np.ndarray,
     expected: np.ndarray,
@@ -167,7 +174,8 @@ def match_points(
     lead_all = lead_all[np.argsort(-score[lead_all], kind="stable")]
     # Distinct shifts: the best of each cell of 0.3 pitch (one vectorised pass).
     cells = np.round(shifts[lead_all] / (0.3 * pitch)).astype(np.int64)
-    _, first = np.unique(cells, axis=0, return_index=True)
+    cells -= cells.min(axis=0)
+    _, first = np.unique(cells[:, 0] * (int(cells[:, 1].max()) + 1) + cells[:, 1], return_index=True)
     lead = lead_all[np.sort(first)][:48].tolist()
     lead_arr = np.array(lead)
     spread = exp[:: max(1, len(exp) // 512)]
@@ -223,8 +231,8 @@ def match_points(
     return MatchResult(
         pairs=pairs,
         transform=PatternTransform(a=a, b=b, t=t, centre=(float(centre[0]), float(centre[1])), ref_radius=ref_radius),
-        unmatched_detected=np.setdiff1d(np.arange(len(det)), pairs[:, 0]),
-        unmatched_expected=np.setdiff1d(np.arange(len(exp)), pairs[:, 1]),
+        unmatched_detected=_others(len(det), pairs[:, 0]),
+        unmatched_expected=_others(len(exp), pairs[:, 1]),
         rms_px=rms,
         gate_px=gate,
     )

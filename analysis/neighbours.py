@@ -22,6 +22,8 @@ import numpy as np
 
 __all__ = ["PointGrid", "k_nearest", "mutual_nearest", "nearest_neighbour_distances"]
 
+# Up to this many points, all pairwise distances are cheaper than a cell grid.
+_BRUTE_FORCE = 400
 # Largest cell table (cells x slots); a wider spread of points gets larger cells instead.
 _MAX_TABLE = 1 << 22
 
@@ -169,10 +171,15 @@ def nearest_neighbour_distances(points: np.ndarray) -> np.ndarray:
     extent = float(np.hypot(*span))
     if extent == 0.0:
         return np.zeros(n)
-    # Start near the mean spacing (area per point, or length per point when the points lie
-    # on a line) and double until every point has found a neighbour.
+    if n <= _BRUTE_FORCE:
+        d2 = (p[:, None, 0] - p[None, :, 0]) ** 2 + (p[:, None, 1] - p[None, :, 1]) ** 2
+        np.fill_diagonal(d2, np.inf)
+        return np.sqrt(d2.min(axis=1))
+    # Start a little above the mean spacing (area per point, or length per point when the
+    # points lie on a line: one pass for a regular grid) and double until every point has
+    # found a neighbour.
     area = float(span[0] * span[1])
-    bound = max(math.sqrt(area / n), extent / n)
+    bound = 1.5 * max(math.sqrt(area / n), extent / n)
     todo = np.arange(n)
     while len(todo):
         grid = PointGrid(p, bound)

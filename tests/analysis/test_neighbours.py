@@ -17,7 +17,13 @@ def _sets():
     clustered = np.vstack([rng.normal(20, 0.5, (100, 2)), rng.normal(70, 3.0, (100, 2))])
     dup = np.vstack([uniform[:50], uniform[:10]])  # duplicated points: zero distances and ties
     line = np.column_stack([np.linspace(0, 50, 60), np.full(60, 3.0)])  # all on one line
-    return {"uniform": uniform, "lattice": lattice, "clustered": clustered, "dup": dup, "line": line}
+    # Above 400 points the nearest other point comes from the cell grid, not all pairs.
+    big = np.vstack([rng.uniform(0, 100, (3000, 2)), rng.uniform(0, 100, (40, 2)).repeat(2, axis=0)])
+    X, Y = np.meshgrid(np.arange(61) * 1.7, np.arange(45) * 1.7)
+    dense = np.column_stack([X.ravel(), Y.ravel()])
+    long_line = np.column_stack([np.linspace(0, 50, 600), np.linspace(0, 5, 600)])
+    return {"uniform": uniform, "lattice": lattice, "clustered": clustered, "dup": dup, "line": line,
+            "big": big, "dense": dense, "long_line": long_line}
 
 
 def _check_nearest(points, queries, bound, strict):
@@ -51,7 +57,7 @@ def test_bounded_nearest_equals_ckdtree(name, bound, strict):
     _check_nearest(pts, queries, bound, strict)
 
 
-@pytest.mark.parametrize("name", ["uniform", "lattice", "clustered", "dup", "line"])
+@pytest.mark.parametrize("name", ["uniform", "lattice", "clustered", "dup", "line", "big", "dense", "long_line"])
 def test_nearest_other_point_equals_ckdtree(name):
     pts = _sets()[name]
     ref = cKDTree(pts).query(pts, k=2)[0][:, 1]
