@@ -44,7 +44,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analysis.centroid import Spot, SpotFlag
-from analysis.distortion_figures import Hull, local_distortion_percent, local_distortion_percent_models, propagate
+from analysis.distortion_figures import Hull, local_distortion_percent, local_distortion_percent_coefficients, propagate
 from analysis.distortion_fit import (
     ALL_TERMS,
     DistortionRefused,
@@ -384,16 +384,17 @@ def _place_radial_percent(g: CameraGeometry) -> np.ndarray:
     return radial_distortion_percent(g.distortion, np.hypot(p[:, 0], p[:, 1]))
 
 
-def _place_radial_percent_many(geoms: Sequence[CameraGeometry]) -> np.ndarray:
-    """_place_radial_percent of many models at once (G, 8): one undistortion for all of them
-    (the delta method evaluates the same figure for every perturbed term)."""
-    px = _place_pixels(geoms[0])  # same detector for every model
-    col = lambda f: np.array([f(g) for g in geoms])[:, None]  # noqa: E731
-    cx, cy = col(lambda g: g.principal_point[0]), col(lambda g: g.principal_point[1])
-    yn = (px[None, :, 1] - cy) / col(lambda g: g.fy)
-    xn = (px[None, :, 0] - cx) / col(lambda g: g.fx) - col(lambda g: math.tan(math.radians(g.skew_deg))) * yn
-    k1, k2, k3 = col(lambda g: g.distortion.k1), col(lambda g: g.distortion.k2), col(lambda g: g.distortion.k3)
-    x, y = _undistort_xy(xn, yn, k1, k2, k3, col(lambda g: g.distortion.p1), col(lambda g: g.distortion.p2))
+def _place_radial_percent_many(g: CameraGeometry, v: Mapping[str, np.ndarray]) -> np.ndarray:
+    """_place_radial_percent of many models of the detector of g at once (G, 8), from arrays
+    (G,) of their values by term name: one undistortion for all of them (the delta method
+    evaluates the same figure for every perturbed term)."""
+    px = _place_pixels(g)
+    col = lambda name: np.asarray(v[name], dtype=float)[:, None]  # noqa: E731
+    fx = col("fx")
+    yn = (px[None, :, 1] - col("cy")) / (fx * col("aspect"))
+    xn = (px[None, :, 0] - col("cx")) / fx - np.tan(np.radians(col("skew"))) * yn
+    k1, k2, k3 = col("k1"), col("k2"), col("k3")
+    x, y = _undistort_xy(xn, yn, k1, k2, k3, col("p1"), col("p2"))
     r2 = x * x + y * y
     return 100.0 * r2 * (k1 + r2 * (k2 + r2 * k3))
 
@@ -411,9 +412,10 @@ def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
     p = _places_norm(g)
     r = np.hypot(p[:, 0], p[:, 1])
     dist = radial_distortion_percent(g.distortion, r)
-    sig = propagate(model, _place_radial_percent, many=_place_radial_percent_many)
+    sig = propagate(model, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v))
     beyond = hull.distance_outside(p) * g.fx
-    sig_all = propagate(full, _place_radial_percent, many=_place_radial_percent_many) if full is not None else sig
+    sig_all = (propagate(full, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v))
+               if full is not None else sig)
     theta = np.degrees(field_angle_of_radius(r, g.projection))
     px = _place_pixels(g)
     out = []
@@ -657,8 +659,8 @@ def _analyze(
     at = samples[k]
     max_d = float(pct[k])
     max_sig = float(propagate(model, lambda g: local_distortion_percent(g.distortion, at[None, :]),
-                              many=lambda gs: local_distortion_percent_models([g.distortion for g in gs],
-                                                                              at[None, :]))[0])
+                              many=lambda v: local_distortion_percent_coefficients(
+                                  v["k1"], v["k2"], v["k3"], v["p1"], v["p2"], at[None, :]))[0])
     at_px = _ideal_to_pixels(geom, at[None, :])[0]
     max_at = (float(at_px[0]), float(at_px[1]))
     near = np.where(have, np.hypot(*(ideal - at_px).T), np.inf)
@@ -750,8 +752,7 @@ def _spot_arrays(spots_or_xy: Sequence[Spot] | np.ndarray, sigma_px: np.ndarray 
         xy = np.asarray(spots_or_xy, dtype=float).reshape(-1, 2)
         sig = _sigma_or_nan(sigma_px, len(xy))
         return xy, sig
-    unusable = _unusable_of(spots_or_xy)
-    good = [s for s in spots_or_xy if not unusable[s.flags]]
+    good = [s for s in spots_or_xy if not _unusable(s)]
     xy = np.array([(s.x, s.y) for s in good], dtype=float).reshape(-1, 2)
     sig = np.array([(s.sigma_x, s.sigma_y) for s in good], dtype=float).reshape(-1, 2)
     if sigma_px is not None:
@@ -759,10 +760,13 @@ def _spot_arrays(spots_or_xy: Sequence[Spot] | np.ndarray, sigma_px: np.ndarray 
     return xy, sig
 
 
-def _unusable_of(spots: Sequence[Spot]) -> dict[SpotFlag, bool]:
-    """Whether each distinct flag combination keeps a spot out of the fit (the flag test once
-    per combination, not once per spot)."""
-    return {f: bool(f & _UNUSABLE) for f in {s.flags for s in spots}}
+_UNUSABLE_BITS = _UNUSABLE.value
+
+
+def _unusable(spot: Spot) -> bool:
+    """Whether a spot's flags keep it out of the fit (on the flag bits: a test per spot of a
+    large grid, where the Flag operators cost more than the rest of the bookkeeping)."""
+    return bool(spot.flags._value_ & _UNUSABLE_BITS)
 
 
 def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray) -> None:
@@ -770,8 +774,7 @@ def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray
     if isinstance(spots, np.ndarray):
         return
     found = [s for s in spots if isinstance(s, Spot)]
-    unusable = _unusable_of(found)
-    bad = [s for s in found if unusable[s.flags]]
+    bad = [s for s in found if _unusable(s)]
     if found and len(bad) > MAX_FLAGGED_FRACTION * len(found):
         counts: dict[str, int] = {}
         for s in bad:

@@ -425,15 +425,15 @@ def fit_camera_model(
     return model, r.reshape(-1, 2)
 
 
-def _rss_with(r: np.ndarray, A_all: np.ndarray, columns: Sequence[int]) -> float:
+def _rss_with(r: np.ndarray, A_all: np.ndarray, columns: Sequence[int]) -> tuple[float, np.ndarray]:
     """Residual sum of squares after adding terms, by one Gauss-Newton step from the smaller
     model's optimum (exact for terms that enter linearly, as the distortion terms nearly do).
     r, A_all: weighted residuals and Jacobian there (every candidate term, one evaluation);
-    columns: those of the terms of the larger model."""
+    columns: those of the terms of the larger model. Returns the RSS and the step."""
     A = A_all[:, columns]
     step = np.linalg.solve(A.T @ A, -(A.T @ r))
     r1 = r + A @ step
-    return float(r1 @ r1)
+    return float(r1 @ r1), step
 
 
 def _level(group: tuple[str, ...], alpha: float) -> float:
@@ -482,7 +482,7 @@ def select_terms(
         trials = []
         for g in optional:
             terms = tuple(t for t in ALL_TERMS if t in chosen or t in g)
-            rss1 = _rss_with(r_base, A_all, [candidates.index(t) for t in terms])
+            rss1, step = _rss_with(r_base, A_all, [candidates.index(t) for t in terms])
             dof1 = n_obs - len(terms)
             if dof1 <= 0 or rss1 <= 0:
                 continue
@@ -490,17 +490,24 @@ def select_terms(
             p = f_survival(len(g), dof1, f)
             level = _level(g, alpha)
             if p < level:
-                trials.append((p / level, p, f, g, dof1, rss1))
+                trials.append((p / level, p, f, g, dof1, rss1, terms, step))
             last[g] = (p, f, dof1)
         if not trials:
             break
-        _, p, f, g, dof1, rss1 = min(trials, key=lambda item: item[0])
+        _, p, f, g, dof1, rss1, terms, step = min(trials, key=lambda item: item[0])
+        warm = (terms, step)
         notes.append(f"{', '.join(g)}: fitted (F = {f:.3g} on ({len(g)}, {dof1}) dof, p = {p:.2g} < {_level(g, alpha):g})")
         chosen += list(g)
         optional.remove(g)
         rss = rss1  # the next round compares against this model (its RSS by the same step)
     if len(chosen) > len(base):
-        model, r = fit_camera_model(meas, dirs, nominal, sigma_px=sigma_px, terms=chosen, start=model.geometry)
+        # Start the full fit where the Gauss-Newton step of the chosen model landed: next to
+        # its optimum, so the solver needs a step or two instead of starting from the base.
+        v = _values(model.geometry)
+        for t, dv in zip(*warm):
+            v[t] += float(dv)
+        start = geometry_from_values(model.geometry, v)
+        model, r = fit_camera_model(meas, dirs, nominal, sigma_px=sigma_px, terms=chosen, start=start)
     for g in optional:
         if g in last:
             p, f, dof1 = last[g]
