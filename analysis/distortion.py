@@ -341,12 +341,18 @@ def _undistort(xy: np.ndarray, d: BrownConrady) -> np.ndarray:
     return np.column_stack([x, y])
 
 
-def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2) -> tuple[np.ndarray, np.ndarray]:
+def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2,
+                  start: tuple[np.ndarray, np.ndarray] | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Inverse Brown-Conrady to 1e-13: Newton's method on D(p) = p_d with the analytic 2x2
     Jacobian of the map (quadratic convergence, 3-5 steps for camera lenses); the fixed-point
     iteration of cv2.undistortPoints takes over where Newton does not settle. The
-    coefficients may be arrays broadcasting against the points (many models at once)."""
-    x, y = xd.copy(), yd.copy()
+    coefficients may be arrays broadcasting against the points (many models at once).
+    start: a first guess (x, y) broadcasting against the result, e.g. the solution of a nearby
+    model (the delta method's perturbed models then need a step or two)."""
+    if start is None:
+        x, y = xd.copy(), yd.copy()
+    else:
+        x, y = (np.broadcast_to(v, xd.shape).astype(float) for v in start)
     with np.errstate(all="ignore"):
         for _ in range(12):
             r2 = x * x + y * y
@@ -384,17 +390,20 @@ def _place_radial_percent(g: CameraGeometry) -> np.ndarray:
     return radial_distortion_percent(g.distortion, np.hypot(p[:, 0], p[:, 1]))
 
 
-def _place_radial_percent_many(g: CameraGeometry, v: Mapping[str, np.ndarray]) -> np.ndarray:
+def _place_radial_percent_many(g: CameraGeometry, v: Mapping[str, np.ndarray],
+                               start: np.ndarray | None = None) -> np.ndarray:
     """_place_radial_percent of many models of the detector of g at once (G, 8), from arrays
     (G,) of their values by term name: one undistortion for all of them (the delta method
-    evaluates the same figure for every perturbed term)."""
+    evaluates the same figure for every perturbed term). start: the places (8, 2) undistorted
+    by a nearby model, where Newton's method starts."""
     px = _place_pixels(g)
     col = lambda name: np.asarray(v[name], dtype=float)[:, None]  # noqa: E731
     fx = col("fx")
     yn = (px[None, :, 1] - col("cy")) / (fx * col("aspect"))
     xn = (px[None, :, 0] - col("cx")) / fx - np.tan(np.radians(col("skew"))) * yn
     k1, k2, k3 = col("k1"), col("k2"), col("k3")
-    x, y = _undistort_xy(xn, yn, k1, k2, k3, col("p1"), col("p2"))
+    x, y = _undistort_xy(xn, yn, k1, k2, k3, col("p1"), col("p2"),
+                         start=None if start is None else (start[None, :, 0], start[None, :, 1]))
     r2 = x * x + y * y
     return 100.0 * r2 * (k1 + r2 * (k2 + r2 * k3))
 
@@ -412,9 +421,9 @@ def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
     p = _places_norm(g)
     r = np.hypot(p[:, 0], p[:, 1])
     dist = radial_distortion_percent(g.distortion, r)
-    sig = propagate(model, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v))
+    sig = propagate(model, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v, p))
     beyond = hull.distance_outside(p) * g.fx
-    sig_all = (propagate(full, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v))
+    sig_all = (propagate(full, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v, p))
                if full is not None else sig)
     theta = np.degrees(field_angle_of_radius(r, g.projection))
     px = _place_pixels(g)
@@ -494,13 +503,15 @@ def _verdicts(spec: Mapping[str, float] | None, figures: Mapping[str, tuple[floa
 
 def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeometry, sig_fit: np.ndarray | None,
                        terms: Sequence[str] | None, loss: str, n_sigma: float,
-                       floor_px: float) -> tuple[FitModel, np.ndarray]:
+                       floor_px: float, allowed: Sequence[str] | None = None) -> tuple[FitModel, np.ndarray]:
     """One plain pass (terms chosen by the data); a second only when it leaves outliers.
 
+    allowed: the terms the points could support (choose_terms), when the caller has them.
     Returns the model and the mask of points kept in the fit.
     """
     s_px = _sigma_array(sig_fit, len(m_xy))
-    allowed = terms if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
+    if allowed is None:
+        allowed = terms if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
 
     def fit(keep: np.ndarray) -> tuple[FitModel, np.ndarray]:
         sf = None if sig_fit is None else sig_fit[keep]
@@ -563,7 +574,8 @@ def _analyze(
     m_xy, m_sig, m_dir = measured[have], sigma[have], directions[have]
     sigma_given = bool(np.isfinite(m_sig).all())
     sig_fit = m_sig if sigma_given else None
-    model, keep = _fit_with_outliers(m_xy, m_dir, nominal, sig_fit, terms, loss, n_sigma, defect_floor_px)
+    allowed = tuple(terms) if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
+    model, keep = _fit_with_outliers(m_xy, m_dir, nominal, sig_fit, terms, loss, n_sigma, defect_floor_px, allowed)
     if (~keep).sum() > MAX_OUTLIER_FRACTION * len(keep):
         raise DistortionRefused(
             f"{int((~keep).sum())} of {len(keep)} points do not follow the camera model (more than "
@@ -637,7 +649,6 @@ def _analyze(
     # The measured field: hull of the measured points in undistorted normalized coordinates.
     hull = Hull(ideal_n[have])
     r_meas_max_n = float(np.nanmax(np.where(have, r_ideal, np.nan)))
-    allowed = tuple(terms) if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
     full = None
     if set(allowed) - set(model.fitted_terms):
         # Terms held fixed by the F-test: refit with all of them for the extrapolated figures.
@@ -752,9 +763,9 @@ def _spot_arrays(spots_or_xy: Sequence[Spot] | np.ndarray, sigma_px: np.ndarray 
         xy = np.asarray(spots_or_xy, dtype=float).reshape(-1, 2)
         sig = _sigma_or_nan(sigma_px, len(xy))
         return xy, sig
-    good = [s for s in spots_or_xy if not _unusable(s)]
-    xy = np.array([(s.x, s.y) for s in good], dtype=float).reshape(-1, 2)
-    sig = np.array([(s.sigma_x, s.sigma_y) for s in good], dtype=float).reshape(-1, 2)
+    rows = np.array([(s.x, s.y, s.sigma_x, s.sigma_y) for s in spots_or_xy if not _unusable(s)],
+                    dtype=float).reshape(-1, 4)
+    xy, sig = rows[:, :2], rows[:, 2:]
     if sigma_px is not None:
         sig = _sigma_or_nan(sigma_px, len(xy))
     return xy, sig
@@ -850,7 +861,7 @@ def analyze_grid(
         if n_extra:
             notes.append(f"{n_extra} detected spot(s) matched no expected point (hot pixel, reflection?)")
     if np.isnan(sigma).any() and not np.isnan(sigma).all():
-        sigma = np.where(np.isnan(sigma), np.nanmedian(sigma), sigma)
+        sigma = np.where(np.isnan(sigma), np.median(sigma[~np.isnan(sigma)]), sigma)  # nanmedian, cheaper
     return _analyze("grid", measured, sigma, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,
                     rule, min_radius_fraction, n_extra, match, notes)
 
@@ -900,7 +911,7 @@ def analyze_scan(
     if sigma_px is not None:
         sig = _sigma_array(sigma_px, n)
     if np.isnan(sig).any() and not np.isnan(sig).all():
-        sig = np.where(np.isnan(sig), np.nanmedian(sig), sig)
+        sig = np.where(np.isnan(sig), np.median(sig[~np.isnan(sig)]), sig)  # nanmedian, cheaper
     _refuse_if_mostly_flagged(list(measured))
     labels = tuple(labels) if labels is not None else tuple(f"az{az:+.2f}_el{el:+.2f}" for az, el in poses)
     return _analyze("scan", xy, sig, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,

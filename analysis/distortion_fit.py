@@ -119,8 +119,13 @@ def choose_terms(ideal_norm: np.ndarray) -> tuple[str, ...]:
     p = np.asarray(ideal_norm, dtype=float)
     n = len(p)
     r = np.hypot(p[:, 0], p[:, 1])
-    r_max = float(np.nanmax(r)) if n else 0.0
-    spread_2d = n >= 6 and r_max > 0 and min(np.nanstd(p[:, 0]), np.nanstd(p[:, 1])) > 0.2 * r_max
+    if n and np.isnan(p).any():  # directions outside the projection: left out
+        r_max = float(np.nanmax(r))
+        spread = min(np.nanstd(p[:, 0]), np.nanstd(p[:, 1]))
+    else:
+        r_max = float(r.max()) if n else 0.0
+        spread = float(p.std(axis=0).min()) if n else 0.0
+    spread_2d = n >= 6 and r_max > 0 and spread > 0.2 * r_max
     terms = ["cx", "cy", "fx"]
     if n >= 3:
         terms.append("roll")

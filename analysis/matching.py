@@ -197,22 +197,29 @@ def match_points(
     for h in order:
         a, b, t = 1 + 0j, 0j, complex(*shifts[h])
         pairs = np.empty((0, 2), dtype=int)
+        settled = False
         for it in range(iterations):
             pred = _predict(z_exp, c, a, b, t, ref_radius)
             g = max(gate, 0.45 * pitch * 0.75 ** it)  # shrink to the final gate in a few steps
             new_pairs = _mutual(grid_det, pred, g)
             if len(new_pairs) < 3:
                 break
+            if g == gate and np.array_equal(new_pairs, pairs):
+                # Settled: the transform was solved from these very pairs, so solving again,
+                # predicting and pairing at the final gate would give them back unchanged.
+                settled = True
+                break
             use_radial = radial and len(new_pairs) >= 8
             zd = det[new_pairs[:, 0], 0] + 1j * det[new_pairs[:, 0], 1] - c
             a, b, t = _solve(z_exp[new_pairs[:, 1]], zd, use_radial, ref_radius)
-            if np.array_equal(new_pairs, pairs) and g == gate:
-                break
             pairs = new_pairs
         if len(pairs) < 3:
             continue
-        pred_xy = _predict(z_exp, c, a, b, t, ref_radius)
-        pairs = _mutual(grid_det, pred_xy, gate)
+        if settled:
+            pred_xy = pred
+        else:
+            pred_xy = _predict(z_exp, c, a, b, t, ref_radius)
+            pairs = _mutual(grid_det, pred_xy, gate)
         res = det[pairs[:, 0]] - pred_xy[pairs[:, 1]]
         rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
         # More pairs wins; on a tie the hypothesis nearer the nominal place (see above).
