@@ -298,8 +298,9 @@ def _levenberg_marquardt(fun, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, lo
 
     fun(x, jac) returns the residuals and, when jac, their Jacobian. loss "soft_l1" (or any
     other robust name) is solved by iteratively reweighted least squares with the soft-L1
-    weights 1 / sqrt(1 + (r / f_scale)^2) (common practice). Returns the solution with its
-    residuals and Jacobian (as fun gives them there).
+    weights 1 / sqrt(1 + (r / f_scale)^2) (common practice). Converged when a step lowers the
+    cost, or would lower it on the linearised model, by less than 1e-6 of the reduced
+    chi-square. Returns the solution with its residuals and Jacobian (as fun gives them there).
     """
     x = x0.copy()
 
@@ -322,6 +323,14 @@ def _levenberg_marquardt(fun, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, lo
         except np.linalg.LinAlgError:
             lam *= 10.0
             continue
+        # The step's decrease of the cost on the linearised model: when even that is below the
+        # convergence level (see below), the point is already the minimum and the step is not
+        # worth a model evaluation (saves the confirming evaluation of every fit). Only while
+        # the damping is light: a heavily damped step understates what is left to gain.
+        if lam <= 1e-4:
+            predicted = -float(2.0 * (g @ step) + step @ (A @ step))
+            if predicted < 1e-6 * max(cost / max(1, r.size - x.size), 1e-300):
+                break
         xt = np.clip(x + step, lo, hi)
         rt, Jt = fun(xt, True)
         ct = float(((rt * w) ** 2).sum())
