@@ -349,6 +349,9 @@ def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2,
     coefficients may be arrays broadcasting against the points (many models at once).
     start: a first guess (x, y) broadcasting against the result, e.g. the solution of a nearby
     model (the delta method's perturbed models then need a step or two)."""
+    if start is None and np.size(xd) <= _SCALAR_NEWTON and all(np.ndim(k) == 0 for k in (k1, k2, k3, p1, p2)):
+        return _undistort_few(np.asarray(xd, float), np.asarray(yd, float), float(k1), float(k2), float(k3),
+                              float(p1), float(p2))
     if start is None:
         x, y = xd.copy(), yd.copy()
     else:
@@ -383,6 +386,46 @@ def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2,
         if done:
             break
     return x, y
+
+
+# Up to this many points Newton's method runs point by point in floats: array operations on a
+# handful of numbers cost more than the arithmetic.
+_SCALAR_NEWTON = 16
+
+
+def _undistort_few(xd: np.ndarray, yd: np.ndarray, k1: float, k2: float, k3: float, p1: float,
+                   p2: float) -> tuple[np.ndarray, np.ndarray]:
+    """_undistort_xy for a few points and one model: the same Newton iteration per point."""
+    xs, ys = [], []
+    for xd_i, yd_i in zip(xd.ravel().tolist(), yd.ravel().tolist()):
+        x, y = xd_i, yd_i
+        ok = False
+        for _ in range(12):
+            r2 = x * x + y * y
+            radial = 1.0 + r2 * (k1 + r2 * (k2 + r2 * k3))
+            d_rad = k1 + r2 * (2.0 * k2 + 3.0 * r2 * k3)
+            fx = x * radial + 2.0 * p1 * x * y + p2 * (r2 + 2.0 * x * x) - xd_i
+            fy = y * radial + p1 * (r2 + 2.0 * y * y) + 2.0 * p2 * x * y - yd_i
+            a = radial + 2.0 * x * x * d_rad + 2.0 * p1 * y + 6.0 * p2 * x
+            b = 2.0 * x * y * d_rad + 2.0 * p1 * x + 2.0 * p2 * y
+            c = radial + 2.0 * y * y * d_rad + 6.0 * p1 * y + 2.0 * p2 * x
+            det = a * c - b * b
+            if det == 0.0 or not math.isfinite(det):
+                break
+            sx = (c * fx - b * fy) / det
+            sy = (a * fy - b * fx) / det
+            x, y = x - sx, y - sy
+            if max(abs(sx), abs(sy)) < 1e-13:
+                ok = True
+                break
+            if not (math.isfinite(sx) and math.isfinite(sy)):
+                break
+        if not ok:  # Newton did not settle: the array version's fixed-point fallback
+            xa, ya = _undistort_xy(np.array([xd_i, xd_i]), np.array([yd_i, yd_i]), np.array(k1), k2, k3, p1, p2)
+            x, y = float(xa[0]), float(ya[0])
+        xs.append(x)
+        ys.append(y)
+    return np.array(xs).reshape(xd.shape), np.array(ys).reshape(yd.shape)
 
 
 def _place_radial_percent(g: CameraGeometry) -> np.ndarray:
@@ -503,11 +546,13 @@ def _verdicts(spec: Mapping[str, float] | None, figures: Mapping[str, tuple[floa
 
 def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeometry, sig_fit: np.ndarray | None,
                        terms: Sequence[str] | None, loss: str, n_sigma: float,
-                       floor_px: float, allowed: Sequence[str] | None = None) -> tuple[FitModel, np.ndarray]:
+                       floor_px: float, allowed: Sequence[str] | None = None
+                       ) -> tuple[FitModel, np.ndarray, np.ndarray, float]:
     """One plain pass (terms chosen by the data); a second only when it leaves outliers.
 
     allowed: the terms the points could support (choose_terms), when the caller has them.
-    Returns the model and the mask of points kept in the fit.
+    Returns the model, the mask of points kept in the fit, the normalized residuals of every
+    point against the model (N, 2) and their robust scale over the kept points.
     """
     s_px = _sigma_array(sig_fit, len(m_xy))
     if allowed is None:
@@ -534,7 +579,8 @@ def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeome
         keep = ~out
         if keep.sum() >= MIN_POINTS:
             model, _ = fit(keep)
-    return model, keep
+            r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
+    return model, keep, r, _robust_scale(r[keep])
 
 
 def _analyze(
@@ -575,7 +621,8 @@ def _analyze(
     sigma_given = bool(np.isfinite(m_sig).all())
     sig_fit = m_sig if sigma_given else None
     allowed = tuple(terms) if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
-    model, keep = _fit_with_outliers(m_xy, m_dir, nominal, sig_fit, terms, loss, n_sigma, defect_floor_px, allowed)
+    model, keep, r_all, scale = _fit_with_outliers(m_xy, m_dir, nominal, sig_fit, terms, loss, n_sigma,
+                                                   defect_floor_px, allowed)
     if (~keep).sum() > MAX_OUTLIER_FRACTION * len(keep):
         raise DistortionRefused(
             f"{int((~keep).sum())} of {len(keep)} points do not follow the camera model (more than "
@@ -594,9 +641,6 @@ def _analyze(
     notes.extend(model.term_choice)
     geom = model.geometry
     s_px = _sigma_array(sig_fit, len(m_xy))
-    fitted_all = project(geom, m_dir, include_defects=False)
-    r_all = (m_xy - fitted_all) / s_px
-    scale = _robust_scale(r_all[keep])
     defect_m = _flag(r_all, s_px, scale, n_sigma, defect_floor_px)
     res_sig_m = np.hypot(*r_all.T) / scale
     if sig_fit is None:
