@@ -421,7 +421,7 @@ def _undistort_few(xd: np.ndarray, yd: np.ndarray, k1: float, k2: float, k3: flo
             if not (math.isfinite(sx) and math.isfinite(sy)):
                 break
         if not ok:  # Newton did not settle: the array version's fixed-point fallback
-            xa, ya = _undistort_xy(np.array([xd_i, xd_i]), np.array([yd_i, yd_i]), np.array(k1), k2, k3, p1, p2)
+            xa, ya = _undistort_xy(np.array([xd_i]), np.array([yd_i]), np.array([k1]), k2, k3, p1, p2)
             x, y = float(xa[0]), float(ya[0])
         xs.append(x)
         ys.append(y)
