@@ -600,10 +600,12 @@ def _analyze(
     n_extra: int,
     match: MatchResult | None,
     notes: list[str],
+    expected_nominal: np.ndarray | None = None,
 ) -> DistortionResult:
     n = len(directions)
     have = np.all(np.isfinite(measured), axis=1)
-    expected_nominal = project(nominal.replace(defects=()), directions, include_defects=False)
+    if expected_nominal is None:
+        expected_nominal = project(nominal.replace(defects=()), directions, include_defects=False)
     in_frame = (np.all(np.isfinite(expected_nominal), axis=1)
                 & (expected_nominal[:, 0] > -0.5) & (expected_nominal[:, 0] < nominal.width - 0.5)
                 & (expected_nominal[:, 1] > -0.5) & (expected_nominal[:, 1] < nominal.height - 0.5))
@@ -650,9 +652,11 @@ def _analyze(
 
     # Per-point table (all points, NaN where not measured).
     nan2 = np.full((n, 2), np.nan)
-    ideal_geom = geom.replace(distortion=BrownConrady(), defects=())
-    ideal = project(ideal_geom, directions, include_defects=False)
-    fitted = project(geom, directions, include_defects=False)
+    # One projection for both: ideal = camera matrix only, fitted = distortion then camera
+    # matrix (analysis.geometry.project without defects, term by term).
+    ideal_n = ideal_normalized(geom, directions)
+    ideal = _ideal_to_pixels(geom.replace(distortion=BrownConrady(), defects=()), ideal_n)
+    fitted = _ideal_to_pixels(geom, ideal_n)
     meas_full = nan2.copy()
     meas_full[have] = m_xy
     sig_full = nan2.copy()
@@ -662,7 +666,6 @@ def _analyze(
     diag = math.hypot(geom.width, geom.height)
     err_fov = 100.0 * np.hypot(error[:, 0], error[:, 1]) / diag
     theta = np.degrees(field_angles(directions))
-    ideal_n = ideal_normalized(geom, directions)
     r_ideal = np.hypot(ideal_n[:, 0], ideal_n[:, 1])
     meas_n = _normalized_from_pixels(geom, meas_full)
     r_meas = np.hypot(meas_n[:, 0], meas_n[:, 1])
@@ -889,6 +892,7 @@ def analyze_grid(
     sigma = np.full((n, 2), np.nan)
     match = None
     n_extra = 0
+    expected = None
     if assume_matched:
         if len(xy) != n:
             raise ValueError(f"assume_matched needs one measured row per expected point ({n}), got {len(xy)}")
@@ -907,7 +911,7 @@ def analyze_grid(
     if np.isnan(sigma).any() and not np.isnan(sigma).all():
         sigma = np.where(np.isnan(sigma), np.median(sigma[~np.isnan(sigma)]), sigma)  # nanmedian, cheaper
     return _analyze("grid", measured, sigma, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,
-                    rule, min_radius_fraction, n_extra, match, notes)
+                    rule, min_radius_fraction, n_extra, match, notes, expected)
 
 
 def analyze_scan(
