@@ -874,9 +874,9 @@ def analyze_grid(
     camera frame (geometry.collimator_directions then to_camera_frame). Spots are paired with
     the nominal projections by analysis.matching unless assume_matched (then row i of the
     measured array belongs to direction i; NaN rows are missing points). sigma_px overrides the
-    spots' own sigmas. spec: limits such as {"max_distortion_percent": 2.0}. loss: the first
-    pass's scipy loss ("soft_l1" default, robust to defects; "linear" for one plain fit when
-    no point is flagged).
+    spots' own sigmas. spec: limits such as {"max_distortion_percent": 2.0}. loss: "linear"
+    (default) for one plain least-squares pass, a second only when it leaves outliers;
+    "soft_l1" adds a robust first pass (analysis.distortion_fit's solver) that keeps defects out.
     min_radius_fraction: points nearer the centre than this fraction of the measured field are
     left out of the maximum (their percentage is noise over a tiny radius).
     """
