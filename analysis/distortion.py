@@ -572,7 +572,8 @@ def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeome
         keep = ~_flag(r, s_px, _robust_scale(r), n_sigma, floor_px)
     model, _ = fit(keep)
     r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
-    out = _flag(r, s_px, _robust_scale(r[keep]), n_sigma, floor_px)
+    scale = _robust_scale(r[keep])
+    out = _flag(r, s_px, scale, n_sigma, floor_px)
     if out.any() and not np.array_equal(~out, keep):
         # Outliers (flagged on the robust MAD scale, which they cannot inflate): fit again
         # without them; the defects are then flagged once more against that model.
@@ -580,7 +581,8 @@ def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeome
         if keep.sum() >= MIN_POINTS:
             model, _ = fit(keep)
             r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
-    return model, keep, r, _robust_scale(r[keep])
+            scale = _robust_scale(r[keep])
+    return model, keep, r, scale
 
 
 def _analyze(
@@ -648,7 +650,7 @@ def _analyze(
     if sig_fit is None:
         s_px = s_px * scale  # unit weights: the robust scale is the per-point sigma in px
         scale = 1.0
-    threshold_px = float(max(defect_floor_px, n_sigma * scale * float(np.median(np.hypot(*s_px.T)) / math.sqrt(2))))
+    threshold_px = float(max(defect_floor_px, n_sigma * scale * _median(np.hypot(*s_px.T)) / math.sqrt(2)))
 
     # Per-point table (all points, NaN where not measured).
     nan2 = np.full((n, 2), np.nan)
@@ -788,13 +790,24 @@ def _rounded(value: float, sigma: float) -> str:
     return f"{value:+.{digits}f} +/- {sigma:.{digits}f}"
 
 
+def _median(v: np.ndarray) -> float:
+    """np.median of a non-empty 1-D array of finite numbers (the same value: the middle one, or
+    the mean of the two middle ones), without np.median's general-purpose wrapping."""
+    n = v.size
+    k = n // 2
+    if n % 2:
+        return float(np.partition(v, k)[k])
+    part = np.partition(v, (k - 1, k))
+    return float((part[k - 1] + part[k]) / 2.0)
+
+
 def _robust_scale(r: np.ndarray) -> float:
     """MAD-based sigma of normalized residual components (Rousseeuw & Croux 1993)."""
     v = np.asarray(r, dtype=float).ravel()
     v = v[np.isfinite(v)]
     if v.size == 0:
         return 1.0
-    s = 1.4826 * float(np.median(np.abs(v - np.median(v))))
+    s = 1.4826 * _median(np.abs(v - _median(v)))
     return s if s > 0 else (float(np.std(v)) or 1e-12)
 
 
