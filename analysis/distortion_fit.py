@@ -520,7 +520,8 @@ def select_terms(
         v = _values(model.geometry)
         for t, dv in zip(*warm):
             v[t] += float(dv)
-        start = geometry_from_values(model.geometry, v)
+        inside = all(_bounds(t, nominal)[0] < v[t] < _bounds(t, nominal)[1] for t in chosen)
+        start = geometry_from_values(model.geometry, v) if inside else model.geometry  # else from the base
         model, r = fit_camera_model(meas, dirs, nominal, sigma_px=sigma_px, terms=chosen, start=start)
     for g in optional:
         if g in last:
