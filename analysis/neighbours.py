@@ -56,16 +56,22 @@ class PointGrid:
         self.origin = lo - 2.0 * cell
         self.shape = shape
         key = self._keys(p)
-        order = np.argsort(key, kind="stable")
-        sk = key[order]
-        first = np.ones(n, dtype=bool)
-        first[1:] = sk[1:] != sk[:-1]
-        starts = np.nonzero(first)[0]
-        rank = np.arange(n) - np.repeat(starts, np.diff(np.append(starts, n)))  # place within its cell
-        self.slots = int(rank.max()) + 1 if n else 1
-        self._table = np.full((int(shape[0] * shape[1]), self.slots), n, dtype=np.int64)
-        self._table[sk, rank] = order
-        self._table1 = self._table[:, 0].copy()
+        n_cells = int(shape[0] * shape[1])
+        self.slots = int(np.bincount(key, minlength=1).max()) if n else 1
+        if self.slots == 1:  # the usual case: one point per cell at most
+            self._table1 = np.full(n_cells, n, dtype=np.int64)
+            self._table1[key] = np.arange(n)
+            self._table = self._table1[:, None]
+        else:
+            order = np.argsort(key, kind="stable")
+            sk = key[order]
+            first = np.ones(n, dtype=bool)
+            first[1:] = sk[1:] != sk[:-1]
+            starts = np.nonzero(first)[0]
+            rank = np.arange(n) - np.repeat(starts, np.diff(np.append(starts, n)))  # place within its cell
+            self._table = np.full((n_cells, self.slots), n, dtype=np.int64)
+            self._table[sk, rank] = order
+            self._table1 = self._table[:, 0].copy()
         w = int(shape[1])
         self._block = np.array([di * w + dj for di in (-1, 0, 1) for dj in (-1, 0, 1)], dtype=np.int64)
 
@@ -144,19 +150,23 @@ def mutual_nearest(grid: PointGrid, queries: np.ndarray, gate: float) -> np.ndar
     """Pairs [point, query] (K, 2), ordered by query, where each is the other's nearest
     neighbour and their distance is <= gate (gate <= the grid's cell).
 
-    Any point within the gate of a query is found by the bounded search, so the nearest query
-    of a point (when it lies within the gate) is among the same pairs: one search gives both
-    directions."""
+    Any point within the gate of a query is in that query's cell block, so the nearest query
+    of a point (when it lies within the gate) is among the same candidates: one search gives
+    both directions. Ties: the lowest index."""
+    grid._check(gate)
     q = np.asarray(queries, dtype=float).reshape(-1, 2)
-    qi, pj, d2 = grid.pairs(q, gate)
-    best_p = np.full(len(q), -1, dtype=np.int64)
-    f = _group_minimum(qi, pj, d2)
-    best_p[qi[f]] = pj[f]
-    best_q = np.full(len(grid.points), -1, dtype=np.int64)
-    f = _group_minimum(pj, qi, d2)
+    idx, d2 = grid.candidates(q)
+    n = len(grid.points)
+    within = d2 <= gate * gate
+    d2 = np.where(within, d2, np.inf)
+    best = d2.min(axis=1, initial=np.inf)
+    best_p = np.where(d2 == best[:, None], idx, n).min(axis=1, initial=n)  # nearest point of each query
+    qi, k = np.nonzero(within)
+    pj = idx[qi, k]
+    f = _group_minimum(pj, qi, d2[qi, k])
+    best_q = np.full(n + 1, -1, dtype=np.int64)  # nearest query of each point (n: no point)
     best_q[pj[f]] = qi[f]
-    e = np.nonzero(best_p >= 0)[0]
-    e = e[best_q[best_p[e]] == e]
+    e = np.nonzero(best_q[best_p] == np.arange(len(q)))[0]
     return np.column_stack([best_p[e], e])
 
 
