@@ -44,7 +44,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analysis.centroid import Spot, SpotFlag
-from analysis.distortion_figures import Hull, local_distortion_percent, local_distortion_percent_coefficients, propagate
+from analysis.distortion_figures import (Hull, local_distortion_percent, local_distortion_percent_coefficients,
+                                         propagate)
 from analysis.distortion_fit import (
     ALL_TERMS,
     DistortionRefused,

@@ -10,10 +10,11 @@ with the number of points; a generalised Hough / "alignment by voting" scheme, c
 star-pattern and grid registration), then refinement of the best hypotheses by an iterative
 closest point loop (Besl & McKay, IEEE PAMI 14:239, 1992) with mutual nearest neighbours inside
 a shrinking gate. Neighbours come from a cell grid over the detected spots (analysis.neighbours),
-built once with cells as large as the widest gate. Each refinement step solves the complex-linear least-squares model
-``z' = a z + b z |z|^2 / R^2 + t`` (a: scale and roll, as in Umeyama's similarity, IEEE PAMI
-13:376, 1991; b: a radial term so that a lens whose distortion differs from the nominal one
-still lines up; t: offset), with z measured from the centre of the expected pattern.
+built once with cells as large as the widest gate. Each refinement step solves the
+complex-linear least-squares model ``z' = a z + b z |z|^2 / R^2 + t`` (a: scale and roll, as
+in Umeyama's similarity, IEEE PAMI 13:376, 1991; b: a radial term so that a lens whose
+distortion differs from the nominal one still lines up; t: offset), with z measured from the
+centre of the expected pattern.
 """
 
 from __future__ import annotations

@@ -108,7 +108,8 @@ class PointGrid:
         if bound > self.cell * (1 + 1e-12):
             raise ValueError(f"bound {bound} exceeds the cell size {self.cell}; build the grid with a larger cell")
 
-    def pairs(self, queries: np.ndarray, bound: float, strict: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def pairs(self, queries: np.ndarray, bound: float,
+              strict: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Every (query index, point index, squared distance) with distance <= bound
         (< bound when strict). bound must not exceed the cell size."""
         self._check(bound)
