@@ -44,7 +44,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analysis.centroid import Spot, SpotFlag
-from analysis.distortion_figures import Hull, local_distortion_percent, local_distortion_percent_models, propagate
+from analysis.distortion_figures import (Hull, local_distortion_percent, local_distortion_percent_coefficients,
+                                         propagate)
 from analysis.distortion_fit import (
     ALL_TERMS,
     DistortionRefused,
@@ -341,12 +342,21 @@ def _undistort(xy: np.ndarray, d: BrownConrady) -> np.ndarray:
     return np.column_stack([x, y])
 
 
-def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2) -> tuple[np.ndarray, np.ndarray]:
+def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2,
+                  start: tuple[np.ndarray, np.ndarray] | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Inverse Brown-Conrady to 1e-13: Newton's method on D(p) = p_d with the analytic 2x2
     Jacobian of the map (quadratic convergence, 3-5 steps for camera lenses); the fixed-point
     iteration of cv2.undistortPoints takes over where Newton does not settle. The
-    coefficients may be arrays broadcasting against the points (many models at once)."""
-    x, y = xd.copy(), yd.copy()
+    coefficients may be arrays broadcasting against the points (many models at once).
+    start: a first guess (x, y) broadcasting against the result, e.g. the solution of a nearby
+    model (the delta method's perturbed models then need a step or two)."""
+    if start is None and np.size(xd) <= _SCALAR_NEWTON and all(np.ndim(k) == 0 for k in (k1, k2, k3, p1, p2)):
+        return _undistort_few(np.asarray(xd, float), np.asarray(yd, float), float(k1), float(k2), float(k3),
+                              float(p1), float(p2))
+    if start is None:
+        x, y = xd.copy(), yd.copy()
+    else:
+        x, y = (np.broadcast_to(v, xd.shape).astype(float) for v in start)
     with np.errstate(all="ignore"):
         for _ in range(12):
             r2 = x * x + y * y
@@ -379,21 +389,65 @@ def _undistort_xy(xd: np.ndarray, yd: np.ndarray, k1, k2, k3, p1, p2) -> tuple[n
     return x, y
 
 
+# Up to this many points Newton's method runs point by point in floats: array operations on a
+# handful of numbers cost more than the arithmetic.
+_SCALAR_NEWTON = 16
+
+
+def _undistort_few(xd: np.ndarray, yd: np.ndarray, k1: float, k2: float, k3: float, p1: float,
+                   p2: float) -> tuple[np.ndarray, np.ndarray]:
+    """_undistort_xy for a few points and one model: the same Newton iteration per point."""
+    xs, ys = [], []
+    for xd_i, yd_i in zip(xd.ravel().tolist(), yd.ravel().tolist()):
+        x, y = xd_i, yd_i
+        ok = False
+        for _ in range(12):
+            r2 = x * x + y * y
+            radial = 1.0 + r2 * (k1 + r2 * (k2 + r2 * k3))
+            d_rad = k1 + r2 * (2.0 * k2 + 3.0 * r2 * k3)
+            fx = x * radial + 2.0 * p1 * x * y + p2 * (r2 + 2.0 * x * x) - xd_i
+            fy = y * radial + p1 * (r2 + 2.0 * y * y) + 2.0 * p2 * x * y - yd_i
+            a = radial + 2.0 * x * x * d_rad + 2.0 * p1 * y + 6.0 * p2 * x
+            b = 2.0 * x * y * d_rad + 2.0 * p1 * x + 2.0 * p2 * y
+            c = radial + 2.0 * y * y * d_rad + 6.0 * p1 * y + 2.0 * p2 * x
+            det = a * c - b * b
+            if det == 0.0 or not math.isfinite(det):
+                break
+            sx = (c * fx - b * fy) / det
+            sy = (a * fy - b * fx) / det
+            x, y = x - sx, y - sy
+            if max(abs(sx), abs(sy)) < 1e-13:
+                ok = True
+                break
+            if not (math.isfinite(sx) and math.isfinite(sy)):
+                break
+        if not ok:  # Newton did not settle: the array version's fixed-point fallback
+            xa, ya = _undistort_xy(np.array([xd_i]), np.array([yd_i]), np.array([k1]), k2, k3, p1, p2)
+            x, y = float(xa[0]), float(ya[0])
+        xs.append(x)
+        ys.append(y)
+    return np.array(xs).reshape(xd.shape), np.array(ys).reshape(yd.shape)
+
+
 def _place_radial_percent(g: CameraGeometry) -> np.ndarray:
     p = _places_norm(g)
     return radial_distortion_percent(g.distortion, np.hypot(p[:, 0], p[:, 1]))
 
 
-def _place_radial_percent_many(geoms: Sequence[CameraGeometry]) -> np.ndarray:
-    """_place_radial_percent of many models at once (G, 8): one undistortion for all of them
-    (the delta method evaluates the same figure for every perturbed term)."""
-    px = _place_pixels(geoms[0])  # same detector for every model
-    col = lambda f: np.array([f(g) for g in geoms])[:, None]  # noqa: E731
-    cx, cy = col(lambda g: g.principal_point[0]), col(lambda g: g.principal_point[1])
-    yn = (px[None, :, 1] - cy) / col(lambda g: g.fy)
-    xn = (px[None, :, 0] - cx) / col(lambda g: g.fx) - col(lambda g: math.tan(math.radians(g.skew_deg))) * yn
-    k1, k2, k3 = col(lambda g: g.distortion.k1), col(lambda g: g.distortion.k2), col(lambda g: g.distortion.k3)
-    x, y = _undistort_xy(xn, yn, k1, k2, k3, col(lambda g: g.distortion.p1), col(lambda g: g.distortion.p2))
+def _place_radial_percent_many(g: CameraGeometry, v: Mapping[str, np.ndarray],
+                               start: np.ndarray | None = None) -> np.ndarray:
+    """_place_radial_percent of many models of the detector of g at once (G, 8), from arrays
+    (G,) of their values by term name: one undistortion for all of them (the delta method
+    evaluates the same figure for every perturbed term). start: the places (8, 2) undistorted
+    by a nearby model, where Newton's method starts."""
+    px = _place_pixels(g)
+    col = lambda name: np.asarray(v[name], dtype=float)[:, None]  # noqa: E731
+    fx = col("fx")
+    yn = (px[None, :, 1] - col("cy")) / (fx * col("aspect"))
+    xn = (px[None, :, 0] - col("cx")) / fx - np.tan(np.radians(col("skew"))) * yn
+    k1, k2, k3 = col("k1"), col("k2"), col("k3")
+    x, y = _undistort_xy(xn, yn, k1, k2, k3, col("p1"), col("p2"),
+                         start=None if start is None else (start[None, :, 0], start[None, :, 1]))
     r2 = x * x + y * y
     return 100.0 * r2 * (k1 + r2 * (k2 + r2 * k3))
 
@@ -411,9 +465,10 @@ def _field_points(model: FitModel, hull: Hull, r_meas_max: float,
     p = _places_norm(g)
     r = np.hypot(p[:, 0], p[:, 1])
     dist = radial_distortion_percent(g.distortion, r)
-    sig = propagate(model, _place_radial_percent, many=_place_radial_percent_many)
+    sig = propagate(model, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v, p))
     beyond = hull.distance_outside(p) * g.fx
-    sig_all = propagate(full, _place_radial_percent, many=_place_radial_percent_many) if full is not None else sig
+    sig_all = (propagate(full, _place_radial_percent, many=lambda v: _place_radial_percent_many(g, v, p))
+               if full is not None else sig)
     theta = np.degrees(field_angle_of_radius(r, g.projection))
     px = _place_pixels(g)
     out = []
@@ -492,13 +547,17 @@ def _verdicts(spec: Mapping[str, float] | None, figures: Mapping[str, tuple[floa
 
 def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeometry, sig_fit: np.ndarray | None,
                        terms: Sequence[str] | None, loss: str, n_sigma: float,
-                       floor_px: float) -> tuple[FitModel, np.ndarray]:
+                       floor_px: float, allowed: Sequence[str] | None = None
+                       ) -> tuple[FitModel, np.ndarray, np.ndarray, float]:
     """One plain pass (terms chosen by the data); a second only when it leaves outliers.
 
-    Returns the model and the mask of points kept in the fit.
+    allowed: the terms the points could support (choose_terms), when the caller has them.
+    Returns the model, the mask of points kept in the fit, the normalized residuals of every
+    point against the model (N, 2) and their robust scale over the kept points.
     """
     s_px = _sigma_array(sig_fit, len(m_xy))
-    allowed = terms if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
+    if allowed is None:
+        allowed = terms if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
 
     def fit(keep: np.ndarray) -> tuple[FitModel, np.ndarray]:
         sf = None if sig_fit is None else sig_fit[keep]
@@ -514,14 +573,17 @@ def _fit_with_outliers(m_xy: np.ndarray, m_dir: np.ndarray, nominal: CameraGeome
         keep = ~_flag(r, s_px, _robust_scale(r), n_sigma, floor_px)
     model, _ = fit(keep)
     r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
-    out = _flag(r, s_px, _robust_scale(r[keep]), n_sigma, floor_px)
+    scale = _robust_scale(r[keep])
+    out = _flag(r, s_px, scale, n_sigma, floor_px)
     if out.any() and not np.array_equal(~out, keep):
         # Outliers (flagged on the robust MAD scale, which they cannot inflate): fit again
         # without them; the defects are then flagged once more against that model.
         keep = ~out
         if keep.sum() >= MIN_POINTS:
             model, _ = fit(keep)
-    return model, keep
+            r = (m_xy - project(model.geometry, m_dir, include_defects=False)) / s_px
+            scale = _robust_scale(r[keep])
+    return model, keep, r, scale
 
 
 def _analyze(
@@ -541,10 +603,12 @@ def _analyze(
     n_extra: int,
     match: MatchResult | None,
     notes: list[str],
+    expected_nominal: np.ndarray | None = None,
 ) -> DistortionResult:
     n = len(directions)
     have = np.all(np.isfinite(measured), axis=1)
-    expected_nominal = project(nominal.replace(defects=()), directions, include_defects=False)
+    if expected_nominal is None:
+        expected_nominal = project(nominal.replace(defects=()), directions, include_defects=False)
     in_frame = (np.all(np.isfinite(expected_nominal), axis=1)
                 & (expected_nominal[:, 0] > -0.5) & (expected_nominal[:, 0] < nominal.width - 0.5)
                 & (expected_nominal[:, 1] > -0.5) & (expected_nominal[:, 1] < nominal.height - 0.5))
@@ -561,7 +625,9 @@ def _analyze(
     m_xy, m_sig, m_dir = measured[have], sigma[have], directions[have]
     sigma_given = bool(np.isfinite(m_sig).all())
     sig_fit = m_sig if sigma_given else None
-    model, keep = _fit_with_outliers(m_xy, m_dir, nominal, sig_fit, terms, loss, n_sigma, defect_floor_px)
+    allowed = tuple(terms) if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
+    model, keep, r_all, scale = _fit_with_outliers(m_xy, m_dir, nominal, sig_fit, terms, loss, n_sigma,
+                                                   defect_floor_px, allowed)
     if (~keep).sum() > MAX_OUTLIER_FRACTION * len(keep):
         raise DistortionRefused(
             f"{int((~keep).sum())} of {len(keep)} points do not follow the camera model (more than "
@@ -580,21 +646,20 @@ def _analyze(
     notes.extend(model.term_choice)
     geom = model.geometry
     s_px = _sigma_array(sig_fit, len(m_xy))
-    fitted_all = project(geom, m_dir, include_defects=False)
-    r_all = (m_xy - fitted_all) / s_px
-    scale = _robust_scale(r_all[keep])
     defect_m = _flag(r_all, s_px, scale, n_sigma, defect_floor_px)
     res_sig_m = np.hypot(*r_all.T) / scale
     if sig_fit is None:
         s_px = s_px * scale  # unit weights: the robust scale is the per-point sigma in px
         scale = 1.0
-    threshold_px = float(max(defect_floor_px, n_sigma * scale * float(np.median(np.hypot(*s_px.T)) / math.sqrt(2))))
+    threshold_px = float(max(defect_floor_px, n_sigma * scale * _median(np.hypot(*s_px.T)) / math.sqrt(2)))
 
     # Per-point table (all points, NaN where not measured).
     nan2 = np.full((n, 2), np.nan)
-    ideal_geom = geom.replace(distortion=BrownConrady(), defects=())
-    ideal = project(ideal_geom, directions, include_defects=False)
-    fitted = project(geom, directions, include_defects=False)
+    # One projection for both: ideal = camera matrix only, fitted = distortion then camera
+    # matrix (analysis.geometry.project without defects, term by term).
+    ideal_n = ideal_normalized(geom, directions)
+    ideal = _ideal_to_pixels(geom.replace(distortion=BrownConrady(), defects=()), ideal_n)
+    fitted = _ideal_to_pixels(geom, ideal_n)
     meas_full = nan2.copy()
     meas_full[have] = m_xy
     sig_full = nan2.copy()
@@ -604,7 +669,6 @@ def _analyze(
     diag = math.hypot(geom.width, geom.height)
     err_fov = 100.0 * np.hypot(error[:, 0], error[:, 1]) / diag
     theta = np.degrees(field_angles(directions))
-    ideal_n = ideal_normalized(geom, directions)
     r_ideal = np.hypot(ideal_n[:, 0], ideal_n[:, 1])
     meas_n = _normalized_from_pixels(geom, meas_full)
     r_meas = np.hypot(meas_n[:, 0], meas_n[:, 1])
@@ -635,7 +699,6 @@ def _analyze(
     # The measured field: hull of the measured points in undistorted normalized coordinates.
     hull = Hull(ideal_n[have])
     r_meas_max_n = float(np.nanmax(np.where(have, r_ideal, np.nan)))
-    allowed = tuple(terms) if terms is not None else choose_terms(ideal_normalized(nominal, m_dir))
     full = None
     if set(allowed) - set(model.fitted_terms):
         # Terms held fixed by the F-test: refit with all of them for the extrapolated figures.
@@ -657,8 +720,8 @@ def _analyze(
     at = samples[k]
     max_d = float(pct[k])
     max_sig = float(propagate(model, lambda g: local_distortion_percent(g.distortion, at[None, :]),
-                              many=lambda gs: local_distortion_percent_models([g.distortion for g in gs],
-                                                                              at[None, :]))[0])
+                              many=lambda v: local_distortion_percent_coefficients(
+                                  v["k1"], v["k2"], v["k3"], v["p1"], v["p2"], at[None, :]))[0])
     at_px = _ideal_to_pixels(geom, at[None, :])[0]
     max_at = (float(at_px[0]), float(at_px[1]))
     near = np.where(have, np.hypot(*(ideal - at_px).T), np.inf)
@@ -728,13 +791,24 @@ def _rounded(value: float, sigma: float) -> str:
     return f"{value:+.{digits}f} +/- {sigma:.{digits}f}"
 
 
+def _median(v: np.ndarray) -> float:
+    """np.median of a non-empty 1-D array of finite numbers (the same value: the middle one, or
+    the mean of the two middle ones), without np.median's general-purpose wrapping."""
+    n = v.size
+    k = n // 2
+    if n % 2:
+        return float(np.partition(v, k)[k])
+    part = np.partition(v, (k - 1, k))
+    return float((part[k - 1] + part[k]) / 2.0)
+
+
 def _robust_scale(r: np.ndarray) -> float:
     """MAD-based sigma of normalized residual components (Rousseeuw & Croux 1993)."""
     v = np.asarray(r, dtype=float).ravel()
     v = v[np.isfinite(v)]
     if v.size == 0:
         return 1.0
-    s = 1.4826 * float(np.median(np.abs(v - np.median(v))))
+    s = 1.4826 * _median(np.abs(v - _median(v)))
     return s if s > 0 else (float(np.std(v)) or 1e-12)
 
 
@@ -750,12 +824,21 @@ def _spot_arrays(spots_or_xy: Sequence[Spot] | np.ndarray, sigma_px: np.ndarray 
         xy = np.asarray(spots_or_xy, dtype=float).reshape(-1, 2)
         sig = _sigma_or_nan(sigma_px, len(xy))
         return xy, sig
-    good = [s for s in spots_or_xy if not (s.flags.value & _UNUSABLE.value)]
-    xy = np.array([[s.x, s.y] for s in good], dtype=float).reshape(-1, 2)
-    sig = np.array([[s.sigma_x, s.sigma_y] for s in good], dtype=float).reshape(-1, 2)
+    rows = np.array([(s.x, s.y, s.sigma_x, s.sigma_y) for s in spots_or_xy if not _unusable(s)],
+                    dtype=float).reshape(-1, 4)
+    xy, sig = rows[:, :2], rows[:, 2:]
     if sigma_px is not None:
         sig = _sigma_or_nan(sigma_px, len(xy))
     return xy, sig
+
+
+_UNUSABLE_BITS = _UNUSABLE.value
+
+
+def _unusable(spot: Spot) -> bool:
+    """Whether a spot's flags keep it out of the fit (on the flag bits: a test per spot of a
+    large grid, where the Flag operators cost more than the rest of the bookkeeping)."""
+    return bool(spot.flags._value_ & _UNUSABLE_BITS)
 
 
 def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray) -> None:
@@ -763,7 +846,7 @@ def _refuse_if_mostly_flagged(spots: Sequence[Spot | object | None] | np.ndarray
     if isinstance(spots, np.ndarray):
         return
     found = [s for s in spots if isinstance(s, Spot)]
-    bad = [s for s in found if s.flags.value & _UNUSABLE.value]
+    bad = [s for s in found if _unusable(s)]
     if found and len(bad) > MAX_FLAGGED_FRACTION * len(found):
         counts: dict[str, int] = {}
         for s in bad:
@@ -805,9 +888,9 @@ def analyze_grid(
     camera frame (geometry.collimator_directions then to_camera_frame). Spots are paired with
     the nominal projections by analysis.matching unless assume_matched (then row i of the
     measured array belongs to direction i; NaN rows are missing points). sigma_px overrides the
-    spots' own sigmas. spec: limits such as {"max_distortion_percent": 2.0}. loss: the first
-    pass's scipy loss ("soft_l1" default, robust to defects; "linear" for one plain fit when
-    no point is flagged).
+    spots' own sigmas. spec: limits such as {"max_distortion_percent": 2.0}. loss: "linear"
+    (default) for one plain least-squares pass, a second only when it leaves outliers;
+    "soft_l1" adds a robust first pass (analysis.distortion_fit's solver) that keeps defects out.
     min_radius_fraction: points nearer the centre than this fraction of the measured field are
     left out of the maximum (their percentage is noise over a tiny radius).
     """
@@ -823,6 +906,7 @@ def analyze_grid(
     sigma = np.full((n, 2), np.nan)
     match = None
     n_extra = 0
+    expected = None
     if assume_matched:
         if len(xy) != n:
             raise ValueError(f"assume_matched needs one measured row per expected point ({n}), got {len(xy)}")
@@ -839,9 +923,9 @@ def analyze_grid(
         if n_extra:
             notes.append(f"{n_extra} detected spot(s) matched no expected point (hot pixel, reflection?)")
     if np.isnan(sigma).any() and not np.isnan(sigma).all():
-        sigma = np.where(np.isnan(sigma), np.nanmedian(sigma), sigma)
+        sigma = np.where(np.isnan(sigma), np.median(sigma[~np.isnan(sigma)]), sigma)  # nanmedian, cheaper
     return _analyze("grid", measured, sigma, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,
-                    rule, min_radius_fraction, n_extra, match, notes)
+                    rule, min_radius_fraction, n_extra, match, notes, expected)
 
 
 def analyze_scan(
@@ -889,7 +973,7 @@ def analyze_scan(
     if sigma_px is not None:
         sig = _sigma_array(sigma_px, n)
     if np.isnan(sig).any() and not np.isnan(sig).all():
-        sig = np.where(np.isnan(sig), np.nanmedian(sig), sig)
+        sig = np.where(np.isnan(sig), np.median(sig[~np.isnan(sig)]), sig)  # nanmedian, cheaper
     _refuse_if_mostly_flagged(list(measured))
     labels = tuple(labels) if labels is not None else tuple(f"az{az:+.2f}_el{el:+.2f}" for az, el in poses)
     return _analyze("scan", xy, sig, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,

@@ -4,8 +4,8 @@
   D the Brown-Conrady map (radial plus the radial part of the tangential terms), the ISO
   17850:2015 percentage (pincushion positive, barrel negative; W. J. Smith, Modern Optical
   Engineering, ch. 5) applied to the model instead of to single noisy points.
-- The measured field is the convex hull of the measured points in normalized coordinates; a
-  figure outside it is extrapolated, and the distance beyond the hull is stated.
+- The measured field is the convex hull of the measured points in normalized coordinates
+  (analysis.hull2d); a figure outside it is extrapolated, and the distance beyond the hull is stated.
 - Uncertainties by the delta method: var f = g^T C g, g the gradient of the figure by the fitted
   terms (central differences), C the fit covariance (GUM, JCGM 100:2008, section 5.1).
 """
@@ -16,12 +16,13 @@ import math
 from collections.abc import Callable
 
 import numpy as np
-from scipy.spatial import ConvexHull, QhullError
 
 from analysis.distortion_fit import FitModel, _values, geometry_from_values
 from analysis.geometry import BrownConrady, CameraGeometry, apply_brown_conrady
+from analysis.hull2d import convex_hull, hull_equations
 
-__all__ = ["local_distortion_percent", "local_distortion_percent_models", "propagate", "hull_of", "Hull"]
+__all__ = ["local_distortion_percent", "local_distortion_percent_coefficients", "local_distortion_percent_models",
+           "propagate", "hull_of", "Hull"]
 
 
 def local_distortion_percent(d: BrownConrady, xy_norm: np.ndarray) -> np.ndarray:
@@ -45,9 +46,15 @@ def local_distortion_percent_models(models: list[BrownConrady], xy_norm: np.ndar
     >>> local_distortion_percent_models([BrownConrady(k1=-0.25)], np.array([[0.2, 0.0]])).round(6).tolist()
     [[-1.0]]
     """
+    col = lambda name: np.array([getattr(d, name) for d in models])  # noqa: E731
+    return local_distortion_percent_coefficients(col("k1"), col("k2"), col("k3"), col("p1"), col("p2"), xy_norm)
+
+
+def local_distortion_percent_coefficients(k1: np.ndarray, k2: np.ndarray, k3: np.ndarray, p1: np.ndarray,
+                                          p2: np.ndarray, xy_norm: np.ndarray) -> np.ndarray:
+    """local_distortion_percent for coefficient arrays (G,) of G models: (G, points)."""
     p = np.asarray(xy_norm, dtype=float).reshape(-1, 2)
-    col = lambda name: np.array([getattr(d, name) for d in models])[:, None]  # noqa: E731
-    k1, k2, k3, p1, p2 = col("k1"), col("k2"), col("k3"), col("p1"), col("p2")
+    k1, k2, k3, p1, p2 = (np.asarray(c, dtype=float)[:, None] for c in (k1, k2, k3, p1, p2))
     x, y = p[None, :, 0], p[None, :, 1]
     r2 = x * x + y * y
     radial = 1.0 + r2 * (k1 + r2 * (k2 + r2 * k3))
@@ -59,25 +66,30 @@ def local_distortion_percent_models(models: list[BrownConrady], xy_norm: np.ndar
 
 
 def propagate(model: FitModel, figure: Callable[[CameraGeometry], np.ndarray],
-              many: Callable[[list[CameraGeometry]], np.ndarray] | None = None) -> np.ndarray:
+              many: Callable[[dict[str, np.ndarray]], np.ndarray] | None = None) -> np.ndarray:
     """1-sigma of figure(geometry) (a scalar or an array) from the fit covariance (delta method;
     forward differences with steps of 1e-3 sigma, so the curvature error is negligible).
-    many: the same figure for a list of geometries at once (rows), to evaluate the base and
-    every perturbed model in one vectorised call."""
+    many: the same figure for many models at once (rows), given as arrays (G,) of the model
+    values by term name (cx, cy, roll, fx, aspect, skew, k1, k2, p1, p2, k3; fx in px, roll and
+    skew in degrees): the base and every perturbed model in one vectorised call, without
+    building a geometry for each."""
     cov = model.covariance
     if cov is None:
         return np.full(np.atleast_1d(np.asarray(figure(model.geometry), dtype=float)).shape, np.nan)
     v0 = _values(model.geometry)
-    steps, geoms = [], [model.geometry]
-    for i, t in enumerate(model.fitted_terms):
-        h = 1e-3 * math.sqrt(max(cov[i, i], 0.0)) or 1e-9 * max(1.0, abs(v0[t]))
-        up = dict(v0)
-        up[t] += h
-        steps.append(h)
-        geoms.append(geometry_from_values(model.geometry, up))
+    terms = model.fitted_terms
+    steps = [1e-3 * math.sqrt(max(cov[i, i], 0.0)) or 1e-9 * max(1.0, abs(v0[t])) for i, t in enumerate(terms)]
     if many is not None:
-        f = np.asarray(many(geoms), dtype=float).reshape(len(geoms), -1)
+        values = {t: np.full(len(terms) + 1, float(v)) for t, v in v0.items()}
+        for i, (t, h) in enumerate(zip(terms, steps)):
+            values[t][i + 1] += h
+        f = np.asarray(many(values), dtype=float).reshape(len(terms) + 1, -1)
     else:
+        geoms = [model.geometry]
+        for t, h in zip(terms, steps):
+            up = dict(v0)
+            up[t] += h
+            geoms.append(geometry_from_values(model.geometry, up))
         f = np.array([np.atleast_1d(np.asarray(figure(g), dtype=float)) for g in geoms])
     g = (f[1:] - f[0]) / np.array(steps)[:, None]  # (P, M)
     return np.sqrt(np.maximum(np.einsum("pm,pq,qm->m", g, cov, g), 0.0))
@@ -90,11 +102,13 @@ class Hull:
         pts = np.asarray(points, dtype=float).reshape(-1, 2)
         pts = pts[np.all(np.isfinite(pts), axis=1)]
         self.points = pts
-        try:
-            hull = ConvexHull(pts)
-            self.vertices = pts[hull.vertices]
-            self.equations = hull.equations  # a x + b y + c <= 0 inside
-        except (QhullError, ValueError):
+        verts = convex_hull(pts)
+        if len(verts) >= 3:
+            self.vertices = pts[verts]  # counter-clockwise (Andrew's monotone chain)
+            self.equations = hull_equations(self.vertices)  # a x + b y + c <= 0 inside
+        else:
+            # Fewer than 3 distinct points, or all on one line: no area. Distances are then to
+            # the nearest measured point and the samples are the points themselves.
             self.vertices = pts
             self.equations = None
 

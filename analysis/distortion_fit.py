@@ -29,8 +29,8 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import special
 
+from analysis.fdist import f_survival
 from analysis.geometry import BrownConrady, CameraGeometry, ideal_normalized
 
 __all__ = ["ALL_TERMS", "DistortionRefused", "FitModel", "choose_terms", "fit_camera_model",
@@ -119,8 +119,13 @@ def choose_terms(ideal_norm: np.ndarray) -> tuple[str, ...]:
     p = np.asarray(ideal_norm, dtype=float)
     n = len(p)
     r = np.hypot(p[:, 0], p[:, 1])
-    r_max = float(np.nanmax(r)) if n else 0.0
-    spread_2d = n >= 6 and r_max > 0 and min(np.nanstd(p[:, 0]), np.nanstd(p[:, 1])) > 0.2 * r_max
+    if n and np.isnan(p).any():  # directions outside the projection: left out
+        r_max = float(np.nanmax(r))
+        spread = min(np.nanstd(p[:, 0]), np.nanstd(p[:, 1]))
+    else:
+        r_max = float(r.max()) if n else 0.0
+        spread = float(p.std(axis=0).min()) if n else 0.0
+    spread_2d = n >= 6 and r_max > 0 and spread > 0.2 * r_max
     terms = ["cx", "cy", "fx"]
     if n >= 3:
         terms.append("roll")
@@ -175,48 +180,54 @@ def model_and_jacobian(v: Mapping[str, float], xn0: np.ndarray, yn0: np.ndarray,
     yd = y * radial + p1 * (r2 + 2.0 * y * y) + 2.0 * p2 * xy
     t = math.tan(v["skew"] * _DEG)
     fx, a = v["fx"], v["aspect"]
-    pred = np.column_stack([fx * (xd + t * yd) + v["cx"], fx * a * yd + v["cy"]])
+    n = len(xn0)
+    pred = np.empty((n, 2))
+    pred[:, 0] = fx * (xd + t * yd) + v["cx"]
+    pred[:, 1] = fx * a * yd + v["cy"]
+    J = np.zeros((n, 2, len(terms)))
     if not terms:
-        return pred, np.zeros((len(xn0), 2, 0))
-    zeros = np.zeros_like(x)
-    ones = np.ones_like(x)
+        return pred, J
+    fa = fx * a
 
-    def through_camera(dxd: np.ndarray, dyd: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return fx * (dxd + t * dyd), fx * a * dyd
+    def through_camera(i: int, dxd: np.ndarray, dyd: np.ndarray) -> None:
+        """Column i from the derivatives of the distorted normalized point."""
+        J[:, 0, i] = fx * (dxd + t * dyd)
+        J[:, 1, i] = fa * dyd
 
-    cols = []
-    for term in terms:
+    for i, term in enumerate(terms):
         if term == "cx":
-            col = (ones, zeros)
+            J[:, 0, i] = 1.0
         elif term == "cy":
-            col = (zeros, ones)
+            J[:, 1, i] = 1.0
         elif term == "fx":
-            col = (xd + t * yd, a * yd)
+            J[:, 0, i] = xd + t * yd
+            J[:, 1, i] = a * yd
         elif term == "aspect":
-            col = (zeros, fx * yd)
+            J[:, 1, i] = fx * yd
         elif term == "skew":
-            col = (fx * yd * (1.0 + t * t) * _DEG, zeros)
+            J[:, 0, i] = fx * (1.0 + t * t) * _DEG * yd
         elif term == "k1":
-            col = through_camera(x * r2, y * r2)
+            through_camera(i, x * r2, y * r2)
         elif term == "k2":
-            col = through_camera(x * r2 * r2, y * r2 * r2)
+            r4 = r2 * r2
+            through_camera(i, x * r4, y * r4)
         elif term == "k3":
-            col = through_camera(x * r2 ** 3, y * r2 ** 3)
+            r6 = r2 * r2 * r2
+            through_camera(i, x * r6, y * r6)
         elif term == "p1":
-            col = through_camera(2.0 * xy, r2 + 2.0 * y * y)
+            through_camera(i, 2.0 * xy, r2 + 2.0 * y * y)
         elif term == "p2":
-            col = through_camera(r2 + 2.0 * x * x, 2.0 * xy)
+            through_camera(i, r2 + 2.0 * x * x, 2.0 * xy)
         elif term == "roll":
             dp = k1 + r2 * (2.0 * k2 + 3.0 * k3 * r2)
             dxx = radial + 2.0 * x * x * dp + 2.0 * p1 * y + 6.0 * p2 * x
             dxy = 2.0 * xy * dp + 2.0 * p1 * x + 2.0 * p2 * y
             dyy = radial + 2.0 * y * y * dp + 6.0 * p1 * y + 2.0 * p2 * x
             # dx/droll = y, dy/droll = -x (radians).
-            col = through_camera((dxx * y - dxy * x) * _DEG, (dxy * y - dyy * x) * _DEG)
+            through_camera(i, (dxx * y - dxy * x) * _DEG, (dxy * y - dyy * x) * _DEG)
         else:
             raise ValueError(f"unknown fit term {term!r}; choose from {ALL_TERMS}")
-        cols.append(np.stack(col, axis=1))
-    return pred, np.stack(cols, axis=2)
+    return pred, J
 
 
 def _bounds(term: str, nominal: CameraGeometry) -> tuple[float, float]:
@@ -281,13 +292,15 @@ def _pre_roll(nominal: CameraGeometry, dirs: np.ndarray) -> tuple[np.ndarray, np
 
 
 def _levenberg_marquardt(fun, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, loss: str = "linear",
-                         f_scale: float = 1.0, max_iter: int = 100) -> np.ndarray:
+                         f_scale: float = 1.0, max_iter: int = 100) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Levenberg-Marquardt with Marquardt's diagonal scaling (scale-free in the parameters) and
     steps projected into the bounds (Levenberg 1944, Marquardt 1963; Nocedal & Wright ch. 10).
 
     fun(x, jac) returns the residuals and, when jac, their Jacobian. loss "soft_l1" (or any
     other robust name) is solved by iteratively reweighted least squares with the soft-L1
-    weights 1 / sqrt(1 + (r / f_scale)^2) (common practice).
+    weights 1 / sqrt(1 + (r / f_scale)^2) (common practice). Converged when a step lowers the
+    cost, or would lower it on the linearised model, by less than 1e-6 of the reduced
+    chi-square. Returns the solution with its residuals and Jacobian (as fun gives them there).
     """
     x = x0.copy()
 
@@ -310,6 +323,14 @@ def _levenberg_marquardt(fun, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, lo
         except np.linalg.LinAlgError:
             lam *= 10.0
             continue
+        # The step's decrease of the cost on the linearised model: when even that is below the
+        # convergence level (see below), the point is already the minimum and the step is not
+        # worth a model evaluation (saves the confirming evaluation of every fit). Only while
+        # the damping is light: a heavily damped step understates what is left to gain.
+        if lam <= 1e-4:
+            predicted = -float(2.0 * (g @ step) + step @ (A @ step))
+            if predicted < 1e-6 * max(cost / max(1, r.size - x.size), 1e-300):
+                break
         xt = np.clip(x + step, lo, hi)
         rt, Jt = fun(xt, True)
         ct = float(((rt * w) ** 2).sum())
@@ -331,7 +352,7 @@ def _levenberg_marquardt(fun, x0: np.ndarray, lo: np.ndarray, hi: np.ndarray, lo
             lam *= 10.0
             if lam > 1e12:
                 break
-    return x
+    return x, r, J
 
 
 def fit_camera_model(
@@ -390,26 +411,16 @@ def fit_camera_model(
         v.update(zip(terms, x.tolist()))
         return v
 
-    def resid(x: np.ndarray) -> np.ndarray:
-        pred, _ = model_and_jacobian(values(x), xn0, yn0)
-        return ((pred - meas) * w).ravel()
-
-    def jac(x: np.ndarray) -> np.ndarray:
-        _, J = model_and_jacobian(values(x), xn0, yn0, terms)
-        return (J * w[:, :, None]).reshape(-1, n_par)
-
     def fun(x: np.ndarray, want_jac: bool) -> tuple[np.ndarray, np.ndarray | None]:
         pred, J = model_and_jacobian(values(x), xn0, yn0, terms if want_jac else ())
         r = ((pred - meas) * w).ravel()
         return r, (J * w[:, :, None]).reshape(-1, n_par) if want_jac else None
 
-    x_fit = _levenberg_marquardt(fun, x0, lo, hi, loss, f_scale)
+    x_fit, r, J = _levenberg_marquardt(fun, x0, lo, hi, loss, f_scale)
     v = values(x_fit)
     geom = geometry_from_values(nominal, v)
-    r = resid(x_fit)
     dof = max(1, r.size - n_par)
     chi2 = float(r @ r) / dof
-    J = jac(x_fit)
     try:
         cov = np.linalg.inv(J.T @ J) * chi2
         sig_par = {t: float(math.sqrt(max(cov[i, i], 0.0))) for i, t in enumerate(terms)}
@@ -428,17 +439,15 @@ def fit_camera_model(
     return model, r.reshape(-1, 2)
 
 
-def _rss_with(meas: np.ndarray, w: np.ndarray, xn0: np.ndarray, yn0: np.ndarray, model: FitModel,
-              terms: Sequence[str]) -> float:
+def _rss_with(r: np.ndarray, A_all: np.ndarray, columns: Sequence[int]) -> tuple[float, np.ndarray]:
     """Residual sum of squares after adding terms, by one Gauss-Newton step from the smaller
-    model's optimum (exact for terms that enter linearly, as the distortion terms nearly do)."""
-    v = _values(model.geometry)
-    pred, J = model_and_jacobian(v, xn0, yn0, terms)
-    r = ((pred - meas) * w).ravel()
-    A = (J * w[:, :, None]).reshape(-1, len(terms))
+    model's optimum (exact for terms that enter linearly, as the distortion terms nearly do).
+    r, A_all: weighted residuals and Jacobian there (every candidate term, one evaluation);
+    columns: those of the terms of the larger model. Returns the RSS and the step."""
+    A = A_all[:, columns]
     step = np.linalg.solve(A.T @ A, -(A.T @ r))
     r1 = r + A @ step
-    return float(r1 @ r1)
+    return float(r1 @ r1), step
 
 
 def _level(group: tuple[str, ...], alpha: float) -> float:
@@ -477,30 +486,43 @@ def select_terms(
     n_obs = r.size
     notes: list[str] = []
     chosen = list(base)
+    # Every nested model is judged at the base optimum: one Jacobian with all candidate terms.
+    candidates = tuple(t for t in ALL_TERMS if t in base or any(t in g for g in optional))
+    pred, J = model_and_jacobian(_values(model.geometry), xn0, yn0, candidates)
+    r_base = ((pred - meas) * w).ravel()
+    A_all = (J * w[:, :, None]).reshape(-1, len(candidates))
     last: dict[tuple[str, ...], tuple[float, float, int]] = {}
     while optional:
         trials = []
         for g in optional:
             terms = tuple(t for t in ALL_TERMS if t in chosen or t in g)
-            rss1 = _rss_with(meas, w, xn0, yn0, model, terms)
+            rss1, step = _rss_with(r_base, A_all, [candidates.index(t) for t in terms])
             dof1 = n_obs - len(terms)
             if dof1 <= 0 or rss1 <= 0:
                 continue
             f = max(0.0, (rss - rss1) / len(g)) / (rss1 / dof1)
-            p = float(special.fdtrc(len(g), dof1, f))  # F-distribution survival function
+            p = f_survival(len(g), dof1, f)
             level = _level(g, alpha)
             if p < level:
-                trials.append((p / level, p, f, g, dof1, rss1))
+                trials.append((p / level, p, f, g, dof1, rss1, terms, step))
             last[g] = (p, f, dof1)
         if not trials:
             break
-        _, p, f, g, dof1, rss1 = min(trials, key=lambda item: item[0])
+        _, p, f, g, dof1, rss1, terms, step = min(trials, key=lambda item: item[0])
+        warm = (terms, step)
         notes.append(f"{', '.join(g)}: fitted (F = {f:.3g} on ({len(g)}, {dof1}) dof, p = {p:.2g} < {_level(g, alpha):g})")
         chosen += list(g)
         optional.remove(g)
         rss = rss1  # the next round compares against this model (its RSS by the same step)
     if len(chosen) > len(base):
-        model, r = fit_camera_model(meas, dirs, nominal, sigma_px=sigma_px, terms=chosen, start=model.geometry)
+        # Start the full fit where the Gauss-Newton step of the chosen model landed: next to
+        # its optimum, so the solver needs a step or two instead of starting from the base.
+        v = _values(model.geometry)
+        for t, dv in zip(*warm):
+            v[t] += float(dv)
+        inside = all(_bounds(t, nominal)[0] < v[t] < _bounds(t, nominal)[1] for t in chosen)
+        start = geometry_from_values(model.geometry, v) if inside else model.geometry  # else from the base
+        model, r = fit_camera_model(meas, dirs, nominal, sigma_px=sigma_px, terms=chosen, start=start)
     for g in optional:
         if g in last:
             p, f, dof1 = last[g]

@@ -9,10 +9,12 @@ by how many expected points then find a detected spot nearby, so the cost grows 
 with the number of points; a generalised Hough / "alignment by voting" scheme, common practice in
 star-pattern and grid registration), then refinement of the best hypotheses by an iterative
 closest point loop (Besl & McKay, IEEE PAMI 14:239, 1992) with mutual nearest neighbours inside
-a shrinking gate. Each refinement step solves the complex-linear least-squares model
-``z' = a z + b z |z|^2 / R^2 + t`` (a: scale and roll, as in Umeyama's similarity, IEEE PAMI
-13:376, 1991; b: a radial term so that a lens whose distortion differs from the nominal one
-still lines up; t: offset), with z measured from the centre of the expected pattern.
+a shrinking gate. Neighbours come from a cell grid over the detected spots (analysis.neighbours),
+built once with cells as large as the widest gate. Each refinement step solves the
+complex-linear least-squares model ``z' = a z + b z |z|^2 / R^2 + t`` (a: scale and roll, as
+in Umeyama's similarity, IEEE PAMI 13:376, 1991; b: a radial term so that a lens whose
+distortion differs from the nominal one still lines up; t: offset), with z measured from the
+centre of the expected pattern.
 """
 
 from __future__ import annotations
@@ -21,7 +23,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.spatial import cKDTree
+
+from analysis.neighbours import PointGrid, k_nearest, mutual_nearest, nearest_neighbour_distances
 
 __all__ = ["PatternTransform", "MatchResult", "match_points"]
 
@@ -73,12 +76,17 @@ class MatchResult:
 
 
 def _solve(z_exp: np.ndarray, z_det: np.ndarray, radial: bool, ref_radius: float) -> tuple[complex, complex, complex]:
-    """Least squares of z_det = a z + b z|z|^2/R^2 + t (complex-linear)."""
+    """Least squares of z_det = a z + b z|z|^2/R^2 + t (complex-linear), by the normal
+    equations (2 or 3 unknowns, columns of like size since z is centred and scaled by R)."""
     cols = [z_exp, np.ones_like(z_exp)]
     if radial:
-        cols.insert(1, z_exp * np.abs(z_exp) ** 2 / ref_radius ** 2)
+        cols.insert(1, z_exp * (z_exp.real ** 2 + z_exp.imag ** 2) / ref_radius ** 2)
     A = np.column_stack(cols)
-    sol, *_ = np.linalg.lstsq(A, z_det, rcond=None)
+    AH = A.conj().T
+    try:
+        sol = np.linalg.solve(AH @ A, AH @ z_det)
+    except np.linalg.LinAlgError:
+        sol, *_ = np.linalg.lstsq(A, z_det, rcond=None)
     if radial:
         return complex(sol[0]), complex(sol[1]), complex(sol[2])
     return complex(sol[0]), 0j, complex(sol[1])
@@ -89,14 +97,16 @@ def _predict(z: np.ndarray, c: complex, a: complex, b: complex, t: complex, ref_
     return np.column_stack([w.real, w.imag])
 
 
-def _mutual(tree_det: cKDTree, det: np.ndarray, pred: np.ndarray, gate: float) -> np.ndarray:
+def _mutual(grid_det: PointGrid, pred: np.ndarray, gate: float) -> np.ndarray:
     """Mutual nearest-neighbour pairs [det, exp] closer than gate."""
-    d1, j_det = tree_det.query(pred)
-    tree_pred = cKDTree(pred)
-    _, j_exp = tree_pred.query(det)
-    e = np.arange(len(pred))
-    ok = (d1 <= gate) & (j_exp[j_det] == e)
-    return np.column_stack([j_det[ok], e[ok]])
+    return mutual_nearest(grid_det, pred, gate)
+
+
+def _others(n: int, used: np.ndarray) -> np.ndarray:
+    """Indices 0..n-1 not in used, ascending."""
+    free = np.ones(n, dtype=bool)
+    free[used] = False
+    return np.nonzero(free)[0]
 
 
 def match_points(
@@ -125,8 +135,9 @@ def match_points(
             f"matching needs at least 3 detected and 3 expected points, got {len(det)} detected "
             f"and {len(exp)} expected; check the detection threshold and the target definition"
         )
-    tree_exp = cKDTree(exp)
-    pitch = float(np.median(tree_exp.query(exp, k=2)[0][:, 1]))
+    if not (np.all(np.isfinite(det)) and np.all(np.isfinite(exp))):
+        raise ValueError("detected and expected points must be finite numbers (no NaN or infinity)")
+    pitch = float(np.median(nearest_neighbour_distances(exp)))
     if pitch <= 0:
         raise ValueError("expected points contain duplicates (zero grid pitch); check the target definition")
     gate = gate_px if gate_px is not None else 0.3 * pitch
@@ -134,7 +145,8 @@ def match_points(
     c = complex(*centre)
     ref_radius = float(np.max(np.hypot(*(exp - centre).T))) or 1.0
     z_exp = exp[:, 0] + 1j * exp[:, 1] - c
-    tree_det = cKDTree(det)
+    # One cell grid over the detections serves every search below (bounds up to its cell).
+    grid_det = PointGrid(det, max(gate, 0.45 * pitch))
 
     # 1. Translation hypotheses, near-linear in the number of points: a few detected spots near
     #    the middle of the detected pattern (least affected by an unknown roll or scale), each
@@ -144,7 +156,7 @@ def match_points(
     dmid = np.median(det, axis=0)
     seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(3, len(det))]]
     k = min(n_candidates, len(exp))
-    _, cand = tree_exp.query(seeds, k=k)
+    _, cand = k_nearest(exp, seeds, k)
     cand = np.asarray(cand).reshape(len(seeds), k)
     shifts = (seeds[:, None, :] - exp[cand]).reshape(-1, 2)
     if max_offset_px is not None:
@@ -154,8 +166,8 @@ def match_points(
             shifts = base[None, :]
     sub = exp[np.argsort(np.abs(z_exp))[: min(subset, len(exp))]]
     moved = (sub[None, :, :] + shifts[:, None, :]).reshape(-1, 2)
-    dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
-    score = np.isfinite(dist).reshape(len(shifts), len(sub)).sum(axis=1)
+    found = grid_det.any_within(moved, 0.45 * pitch, strict=True)
+    score = found.reshape(len(shifts), len(sub)).sum(axis=1)
     # A shift by a whole grid pitch also fits the middle: re-score the distinct leading shifts
     # (at most 48) on points spread over the whole pattern (every k-th, at most 512), where
     # the rows that fall off the detected pattern tell them apart.
@@ -163,13 +175,14 @@ def match_points(
     lead_all = lead_all[np.argsort(-score[lead_all], kind="stable")]
     # Distinct shifts: the best of each cell of 0.3 pitch (one vectorised pass).
     cells = np.round(shifts[lead_all] / (0.3 * pitch)).astype(np.int64)
-    _, first = np.unique(cells, axis=0, return_index=True)
+    cells -= cells.min(axis=0)
+    _, first = np.unique(cells[:, 0] * (int(cells[:, 1].max()) + 1) + cells[:, 1], return_index=True)
     lead = lead_all[np.sort(first)][:48].tolist()
     lead_arr = np.array(lead)
     spread = exp[:: max(1, len(exp) // 512)]
     moved = (spread[None, :, :] + shifts[lead_arr][:, None, :]).reshape(-1, 2)
-    dist, _ = tree_det.query(moved, distance_upper_bound=0.45 * pitch)
-    full = np.isfinite(dist).reshape(len(lead_arr), len(spread)).sum(axis=1)
+    found = grid_det.any_within(moved, 0.45 * pitch, strict=True)
+    full = found.reshape(len(lead_arr), len(spread)).sum(axis=1)
     lead = lead_arr
     order: list[int] = []
     # Equal scores: a periodic grid with an edge row or column unseen fits one pitch off just as
@@ -185,22 +198,29 @@ def match_points(
     for h in order:
         a, b, t = 1 + 0j, 0j, complex(*shifts[h])
         pairs = np.empty((0, 2), dtype=int)
+        settled = False
         for it in range(iterations):
             pred = _predict(z_exp, c, a, b, t, ref_radius)
             g = max(gate, 0.45 * pitch * 0.75 ** it)  # shrink to the final gate in a few steps
-            new_pairs = _mutual(tree_det, det, pred, g)
+            new_pairs = _mutual(grid_det, pred, g)
             if len(new_pairs) < 3:
+                break
+            if g == gate and np.array_equal(new_pairs, pairs):
+                # Settled: the transform was solved from these very pairs, so solving again,
+                # predicting and pairing at the final gate would give them back unchanged.
+                settled = True
                 break
             use_radial = radial and len(new_pairs) >= 8
             zd = det[new_pairs[:, 0], 0] + 1j * det[new_pairs[:, 0], 1] - c
             a, b, t = _solve(z_exp[new_pairs[:, 1]], zd, use_radial, ref_radius)
-            if np.array_equal(new_pairs, pairs) and g == gate:
-                break
             pairs = new_pairs
         if len(pairs) < 3:
             continue
-        pred_xy = _predict(z_exp, c, a, b, t, ref_radius)
-        pairs = _mutual(tree_det, det, pred_xy, gate)
+        if settled:
+            pred_xy = pred
+        else:
+            pred_xy = _predict(z_exp, c, a, b, t, ref_radius)
+            pairs = _mutual(grid_det, pred_xy, gate)
         res = det[pairs[:, 0]] - pred_xy[pairs[:, 1]]
         rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
         # More pairs wins; on a tie the hypothesis nearer the nominal place (see above).
@@ -219,8 +239,8 @@ def match_points(
     return MatchResult(
         pairs=pairs,
         transform=PatternTransform(a=a, b=b, t=t, centre=(float(centre[0]), float(centre[1])), ref_radius=ref_radius),
-        unmatched_detected=np.setdiff1d(np.arange(len(det)), pairs[:, 0]),
-        unmatched_expected=np.setdiff1d(np.arange(len(exp)), pairs[:, 1]),
+        unmatched_detected=_others(len(det), pairs[:, 0]),
+        unmatched_expected=_others(len(exp), pairs[:, 1]),
         rms_px=rms,
         gate_px=gate,
     )

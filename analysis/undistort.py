@@ -14,7 +14,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import ndimage
 
 from analysis.geometry import CameraGeometry, apply_brown_conrady
 
@@ -46,6 +45,9 @@ def undistort_image(image: np.ndarray, geom: CameraGeometry, *, order: int = 3,
             f"frame is {img.shape[1]}x{img.shape[0]} (cols x rows) but the camera model is "
             f"{geom.width}x{geom.height}; use the model fitted for this camera"
         )
+    # Imported here: only image resampling needs it, not the maps written with every result.
+    from scipy import ndimage
+
     map_x, map_y = undistortion_maps(geom)
     cval = float(np.median(img)) if fill is None else float(fill)
     out = ndimage.map_coordinates(img.astype(np.float64), [map_y, map_x], order=order, mode="constant", cval=cval)
