@@ -8,7 +8,8 @@ Methods (published):
   consistent estimator of a Gaussian sigma; Rousseeuw & Croux, JASA 88:1273, 1993), iterated
   with 3-sigma clipping (common practice in astronomical source extraction).
 - Detection: threshold of a matched-filter (Gaussian-smoothed) image in units of its own noise,
-  connected components by scipy.ndimage.label (common practice in source extraction).
+  8-connected components by union-find labelling of the foreground pixels (Rosenfeld &
+  Pfaltz 1966; common practice in source extraction), in analysis.image_filters.
 - Centre of mass: background-subtracted, in a square window re-centred until it stops moving;
   its variance is the noise propagated through the first moment (e.g. Auer & van Altena,
   AJ 83:531, 1978; Thomas, Fusco et al., MNRAS 371:323, 2006).
@@ -25,7 +26,8 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import ndimage, special
+from analysis.image_filters import bilinear, gaussian_smooth, label_sparse, maximum_3x3
+from analysis.normal_cdf import ndtr
 
 __all__ = [
     "Background",
@@ -221,8 +223,8 @@ def _edge_pieces(centre: np.ndarray, sigma: np.ndarray, start: np.ndarray, size:
     """
     edges = start[:, None] + np.arange(size + 1)[None, :] - 0.5
     z = (edges - centre[:, None]) / sigma[:, None]
-    cdf = special.ndtr(z)
     pdf = np.exp(-0.5 * z * z) * _INV_SQRT_2PI
+    cdf = ndtr(z, pdf)
     frac = np.diff(cdf, axis=1)
     d_centre = -np.diff(pdf, axis=1) / sigma[:, None]
     d_sigma = -np.diff(z * pdf, axis=1) / sigma[:, None]
@@ -498,17 +500,15 @@ def detect_spots(
         raw = _without(raw, fixed)
     if smooth_px > 0:
         # float32 is ample for a detection threshold and halves the cost on large frames.
-        sm = ndimage.gaussian_filter(resid.astype(np.float32), smooth_px, mode="nearest", truncate=3.0)
+        sm = gaussian_smooth(resid.astype(np.float32), smooth_px, truncate=3.0)
         k = _gauss_kernel_norm(smooth_px)
     else:
         sm, k = resid, 1.0
     thr = threshold_sigma * noise * k
     mask = sm > thr
-    labels, n = ndimage.label(mask, structure=np.ones((3, 3), dtype=bool))
+    flat, lab_of, n = label_sparse(mask)
     if n == 0:
         return []
-    flat = np.flatnonzero(mask)
-    lab_of = labels.ravel()[flat]
     areas = np.bincount(lab_of, minlength=n + 1)[1:]
     index = np.nonzero(areas >= min_area_px)[0] + 1
     if index.size == 0:
@@ -517,6 +517,7 @@ def detect_spots(
     order = np.lexsort((-sm.ravel()[flat], lab_of))
     starts = np.flatnonzero(np.r_[True, lab_of[order][1:] != lab_of[order][:-1]])
     first = order[starts]
+    ends = np.r_[starts[1:], order.size]
     # Bounding boxes of the components from the same sort (labels 1..n, in order).
     rr, cc = np.divmod(flat, sm.shape[1])
     r_lo, r_hi = np.minimum.reduceat(rr[order], starts), np.maximum.reduceat(rr[order], starts) + 1
@@ -546,7 +547,8 @@ def detect_spots(
     out: list[Spot] = []
     for lab, (r, c), spot in zip(index, pos, spots):
         merged = areas[lab - 1] > max_area_px or (
-            n_max[lab] >= 2 and _two_peaks(sm, labels, int(lab), slices[lab - 1], (int(r), int(c)), thr))
+            n_max[lab] >= 2 and _two_peaks(sm, flat[order[starts[lab - 1]:ends[lab - 1]]], slices[lab - 1],
+                                           (int(r), int(c)), thr))
         if merged:
             spot = replace(spot, flags=spot.flags | SpotFlag.MERGED)
         out.append(spot)
@@ -654,7 +656,7 @@ def _without(raw: np.ndarray, idx: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
 
 
 def _gauss_kernel_norm(sigma: float) -> float:
-    """Noise gain sqrt(sum k^2) of scipy's normalised Gaussian kernel (white noise in, out)."""
+    """Noise gain of the normalised Gaussian kernel (truncate 3) of gaussian_smooth (white noise)."""
     radius = int(3.0 * sigma + 0.5)
     t = np.arange(-radius, radius + 1)
     k1 = np.exp(-0.5 * (t / sigma) ** 2)
@@ -663,17 +665,20 @@ def _gauss_kernel_norm(sigma: float) -> float:
 
 
 def _two_peaks(
-    sm: np.ndarray, labels: np.ndarray, lab: int, sl: tuple[slice, slice], main: tuple[int, int], thr: float,
+    sm: np.ndarray, pixels: np.ndarray, sl: tuple[slice, slice], main: tuple[int, int], thr: float,
 ) -> bool:
     """True when a second local maximum is separated from the main one by a clear dip.
 
     A dip of at least 15 % of the lower peak along the joining segment (a Sparrow-like
     criterion, common practice) distinguishes two spots from noise ripples on one spot.
     """
-    box = np.where(labels[sl] == lab, sm[sl], -np.inf)
+    # The component alone (pixels: its flat indices in sm), -inf around it.
+    box = np.full((sl[0].stop - sl[0].start, sl[1].stop - sl[1].start), -np.inf, dtype=sm.dtype)
+    pr, pc = np.divmod(pixels, sm.shape[1])
+    box[pr - sl[0].start, pc - sl[1].start] = sm.ravel()[pixels]
     if box.size <= 9:
         return False
-    lm = (box == ndimage.maximum_filter(box, size=3, mode="constant", cval=-np.inf)) & (box > thr)
+    lm = (box == maximum_3x3(box)) & (box > thr)
     rr, cc = np.nonzero(lm)
     if rr.size < 2:
         return False
@@ -688,7 +693,7 @@ def _two_peaks(
     n = 2 * max(abs(best[0] - r0), abs(best[1] - c0)) + 1
     line_r = np.linspace(r0, best[0], n)
     line_c = np.linspace(c0, best[1], n)
-    vals = ndimage.map_coordinates(sm, [line_r, line_c], order=1)
+    vals = bilinear(sm, line_r, line_c)
     low = min(sm[r0, c0], sm[best])
     return low > thr and float(vals.min()) < 0.85 * low
 
@@ -741,7 +746,7 @@ def centroid_at(
         sub = _without(sub, fixed)
     xa, xb = max(0, xi - search) - bx0, min(w, xi + search + 1) - bx0
     ya, yb = max(0, yi - search) - by0, min(h, yi + search + 1) - by0
-    box = ndimage.gaussian_filter(resid[ya:yb, xa:xb], 1.0, mode="nearest")
+    box = gaussian_smooth(resid[ya:yb, xa:xb], 1.0)
     r, c = np.unravel_index(int(np.argmax(box)), box.shape)
     spot = _measure_many(sub, resid, bg.noise, np.array([float(xa + c)]), np.array([float(ya + r)]),
                          window_px, method, saturation, gain)[0]
