@@ -85,20 +85,85 @@ class Spot:
 
 
 def _clipped_stats(values: np.ndarray, clip: float = 3.0, iterations: int = 3) -> tuple[float, float]:
-    """Median and MAD-sigma with iterative sigma clipping."""
-    v = values
-    med = float(np.median(v))
-    sig = _MAD_TO_SIGMA * float(np.median(np.abs(v - med)))
+    """Median and MAD-sigma with iterative sigma clipping.
+
+    One sort serves every iteration: each clipped set is a run of the sorted values, so its
+    median is read off and its MAD is a selection from two sorted runs (the deviations left
+    and right of the median), as np.median would give them.
+    """
+    v = np.sort(np.asarray(values, dtype=np.float64).ravel())
+    lo, hi = 0, v.size
+    med = _sorted_median(v, lo, hi)
+    sig = _MAD_TO_SIGMA * _sorted_mad(v, lo, hi, med)
     for _ in range(iterations):
         if sig <= 0:
             break
-        keep = np.abs(v - med) < clip * sig
-        if keep.all():
+        # |v - med| < clip * sig is a run of the sorted values; the boundary tests use the same
+        # arithmetic as the elementwise test.
+        band = clip * sig
+        new_lo = int(np.searchsorted(v, med - band, side="left"))
+        new_hi = int(np.searchsorted(v, med + band, side="right"))
+        while new_lo < hi and not abs(v[new_lo] - med) < band:
+            new_lo += 1
+        while new_lo > lo and abs(v[new_lo - 1] - med) < band:
+            new_lo -= 1
+        while new_hi > new_lo and not abs(v[new_hi - 1] - med) < band:
+            new_hi -= 1
+        while new_hi < hi and abs(v[new_hi] - med) < band:
+            new_hi += 1
+        new_lo, new_hi = max(new_lo, lo), min(new_hi, hi)
+        if (new_lo, new_hi) == (lo, hi):
             break
-        v = v[keep]
-        med = float(np.median(v))
-        sig = _MAD_TO_SIGMA * float(np.median(np.abs(v - med)))
+        lo, hi = new_lo, new_hi
+        if hi <= lo:
+            return med, sig
+        med = _sorted_median(v, lo, hi)
+        sig = _MAD_TO_SIGMA * _sorted_mad(v, lo, hi, med)
     return med, sig
+
+
+def _sorted_median(v: np.ndarray, lo: int, hi: int) -> float:
+    """Median of the sorted run v[lo:hi] (mean of the middle two for an even count)."""
+    n = hi - lo
+    mid = lo + n // 2
+    if n % 2:
+        return float(v[mid])
+    return float((v[mid - 1] + v[mid]) / 2.0)
+
+
+def _sorted_mad(v: np.ndarray, lo: int, hi: int, med: float) -> float:
+    """Median of |v - med| over the sorted run v[lo:hi], without sorting the deviations.
+
+    The deviations form two ascending runs, v[j:hi] - med and med - v[j-1::-1] (j: first value
+    >= med); the k-th smallest of their union comes from a binary search on how many are taken
+    from the right run (the classic selection from two sorted arrays).
+    """
+    n = hi - lo
+    j = int(np.searchsorted(v[lo:hi], med, side="left")) + lo
+    n_right, n_left = hi - j, j - lo
+
+    def right(i: int) -> float:  # i-th smallest deviation on the right
+        return float(v[j + i] - med)
+
+    def left(i: int) -> float:
+        return float(med - v[j - 1 - i])
+
+    def kth(k: int) -> float:  # 0-based
+        a_lo, a_hi = max(0, k + 1 - n_left), min(k + 1, n_right)
+        while a_lo < a_hi:  # a: how many of the k+1 smallest come from the right run
+            a = (a_lo + a_hi) // 2
+            b = k + 1 - a
+            if b > 0 and left(b - 1) > right(a):
+                a_lo = a + 1
+            else:
+                a_hi = a
+        a = a_lo
+        b = k + 1 - a
+        return max(right(a - 1) if a > 0 else -math.inf, left(b - 1) if b > 0 else -math.inf)
+
+    if n % 2:
+        return kth(n // 2)
+    return (kth(n // 2 - 1) + kth(n // 2)) / 2.0
 
 
 def estimate_background(image: np.ndarray, *, tile_px: int | None = None) -> Background:
@@ -169,13 +234,13 @@ def _centroid_com_batch(
     def window(xc: np.ndarray, yc: np.ndarray) -> tuple[np.ndarray, ...]:
         x0 = np.floor(xc - half + 0.5).astype(int)
         y0 = np.floor(yc - half + 0.5).astype(int)
-        x0 = np.clip(x0, -pad, w_img - 1)
-        y0 = np.clip(y0, -pad, h_img - 1)
+        x0 = _clip(x0, -pad, w_img - 1)
+        y0 = _clip(y0, -pad, h_img - 1)
         px = x0[:, None] + ar[None, :]
         py = y0[:, None] + ar[None, :]
         cut = padded[(py + pad)[:, :, None], (px + pad)[:, None, :]]
-        wx = np.clip(np.minimum(px + 0.5, xc[:, None] + half) - np.maximum(px - 0.5, xc[:, None] - half), 0, 1)
-        wy = np.clip(np.minimum(py + 0.5, yc[:, None] + half) - np.maximum(py - 0.5, yc[:, None] - half), 0, 1)
+        wx = _clip(np.minimum(px + 0.5, xc[:, None] + half) - np.maximum(px - 0.5, xc[:, None] - half), 0, 1)
+        wy = _clip(np.minimum(py + 0.5, yc[:, None] + half) - np.maximum(py - 0.5, yc[:, None] - half), 0, 1)
         return cut, wx, wy, px, py
 
     for _ in range(max_iter):
@@ -199,7 +264,7 @@ def _centroid_com_batch(
     flux = (cut * wgt).sum(axis=(1, 2))
     var = np.full(cut.shape, noise * noise)
     if gain:
-        var = var + np.clip(cut, 0, None) / gain
+        var = var + _clip(cut, 0, None) / gain
     w2v = wgt * wgt * var
     dx = px - x[:, None]
     dy = py - y[:, None]
@@ -216,18 +281,43 @@ def _centroid_com_batch(
 _INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
 
-def _edge_pieces(centre: np.ndarray, sigma: np.ndarray, start: np.ndarray, size: int) -> tuple[np.ndarray, ...]:
-    """Pixel fractions of 1-D Gaussians (N, size) and their derivatives by centre and sigma.
+def _window_index(shape: tuple[int, int], rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """Flat indices (n, m, m) of the windows rows (n, m) x cols (n, m), clipped into the frame."""
+    h, w = shape
+    return (_clip(rows, 0, h - 1) * w)[:, :, None] + _clip(cols, 0, w - 1)[:, None, :]
 
-    Pixel k of spot n covers [start_n + k - 0.5, start_n + k + 0.5]; fraction = Phi(z_k+1) - Phi(z_k).
+
+def _gather(img: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """img at flat indices (one 1-D gather: much cheaper than 2-D fancy indexing)."""
+    flat = img.ravel() if img.flags.c_contiguous else np.ascontiguousarray(img).ravel()
+    return flat[index]
+
+
+def _clip(a, lo, hi):  # type: ignore[no-untyped-def]
+    """np.clip without its dispatch overhead (it dominates on the small arrays of a fit)."""
+    if lo is not None:
+        a = np.maximum(a, lo)
+    if hi is not None:
+        a = np.minimum(a, hi)
+    return a
+
+
+def _edge_pieces(centre: np.ndarray, sigma: np.ndarray, start: np.ndarray, size: int) -> tuple[np.ndarray, ...]:
+    """Pixel fractions of 1-D Gaussians (..., size) and their derivatives by centre and sigma.
+
+    centre, sigma, start: arrays of one shape (here (N, 2): x and y of N spots together).
+    Pixel k covers [start + k - 0.5, start + k + 0.5]; fraction = Phi(z_k+1) - Phi(z_k).
     """
-    edges = start[:, None] + np.arange(size + 1)[None, :] - 0.5
-    z = (edges - centre[:, None]) / sigma[:, None]
-    pdf = np.exp(-0.5 * z * z) * _INV_SQRT_2PI
+    inv_s = (1.0 / sigma)[..., None]
+    z = (start - centre)[..., None] + (np.arange(size + 1) - 0.5)
+    z *= inv_s
+    pdf = np.exp(-0.5 * z * z)
+    pdf *= _INV_SQRT_2PI
     cdf = ndtr(z, pdf)
-    frac = np.diff(cdf, axis=1)
-    d_centre = -np.diff(pdf, axis=1) / sigma[:, None]
-    d_sigma = -np.diff(z * pdf, axis=1) / sigma[:, None]
+    frac = cdf[..., 1:] - cdf[..., :-1]
+    d_centre = (pdf[..., :-1] - pdf[..., 1:]) * inv_s
+    zp = z * pdf
+    d_sigma = (zp[..., :-1] - zp[..., 1:]) * inv_s
     return frac, d_centre, d_sigma
 
 
@@ -259,13 +349,14 @@ def _gauss_fit_batch(
     rows = y0[:, None] + ar[None, :]
     inside_c = (cols >= 0) & (cols < w_img)
     inside_r = (rows >= 0) & (rows < h_img)
-    data = resid[np.clip(rows, 0, h_img - 1)[:, :, None], np.clip(cols, 0, w_img - 1)[:, None, :]]
+    index = _window_index(resid.shape, rows, cols)
+    data = _gather(resid, index)
     use = inside_r[:, :, None] & inside_c[:, None, :]
     truncated = ~use.all(axis=(1, 2))
     if mask is not None:
-        use &= ~mask[np.clip(rows, 0, h_img - 1)[:, :, None], np.clip(cols, 0, w_img - 1)[:, None, :]]
+        use &= ~_gather(mask, index)
     if raw is not None:  # leave out repaired (-inf) and saturated pixels of the raw frame
-        raw_win = raw[np.clip(rows, 0, h_img - 1)[:, :, None], np.clip(cols, 0, w_img - 1)[:, None, :]]
+        raw_win = _gather(raw, index)
         use &= np.isfinite(raw_win)
         if saturation is not None:
             use &= raw_win < saturation
@@ -275,30 +366,29 @@ def _gauss_fit_batch(
     border = np.concatenate([data[:, 0, :], data[:, -1, :], data[:, :, 0], data[:, :, -1]], axis=1)
     bw = np.concatenate([wgt[:, 0, :], wgt[:, -1, :], wgt[:, :, 0], wgt[:, :, -1]], axis=1)
     b = np.where(bw.sum(1) > 0, (border * bw).sum(1) / np.maximum(bw.sum(1), 1), 0.0)
-    b = np.clip(b, -3 * noise, 3 * noise)
-    pos = np.clip(data - b[:, None, None], 0, None) * wgt
+    b = _clip(b, -3 * noise, 3 * noise)
+    pos = _clip(data - b[:, None, None], 0, None) * wgt
     tot = np.maximum(pos.sum(axis=(1, 2)), 1e-12)
     px = (pos.sum(axis=1) * cols).sum(1) / tot
     py = (pos.sum(axis=2) * rows).sum(1) / tot
     if s0 is None:
         s0 = np.sqrt(np.maximum((pos.sum(axis=1) * (cols - px[:, None]) ** 2).sum(1) / tot - 1 / 12, 0.09))
-    s0 = np.clip(np.broadcast_to(np.asarray(s0, float), (n,)), 0.3, m / 3.0)
+    s0 = _clip(np.broadcast_to(np.asarray(s0, float), (n,)), 0.3, m / 3.0)
     p = np.column_stack([np.maximum(((data - b[:, None, None]) * wgt).sum(axis=(1, 2)), 1e-9),
-                         np.clip(px, x0 - 0.5, x0 + m - 0.5), np.clip(py, y0 - 0.5, y0 + m - 0.5),
+                         _clip(px, x0 - 0.5, x0 + m - 0.5), _clip(py, y0 - 0.5, y0 + m - 0.5),
                          s0, s0, b])
     lo = np.column_stack([np.full(n, 1e-12), x0 - 0.5, y0 - 0.5, np.full(n, 0.15), np.full(n, 0.15), np.full(n, -np.inf)])
     hi = np.column_stack([np.full(n, np.inf), x0 + m - 0.5, y0 + m - 0.5, np.full(n, float(m)), np.full(n, float(m)), np.full(n, np.inf)])
-    xf, yf = x0.astype(float), y0.astype(float)
+    start = np.column_stack([x0, y0]).astype(float)
 
     wflat = wgt.reshape(n, m * m)
     full = ~use.all(axis=(1, 2))  # windows with pixels left out: not separable
-    model, U, V = _SubBatch(p, xf, yf, m).model_uv()
+    model, U, V = _SubBatch(p, start, m).model_uv()
     res = (data - model) * wgt
     cost = (res * res).sum(axis=(1, 2))
     lam = np.full(n, 1e-3)
     active = np.ones(n, dtype=bool)
     converged = np.zeros(n, dtype=bool)
-    eye = np.eye(6)
     lo_in, hi_in = lo + 1e-9, hi - 1e-9
     for _it in range(max_iter):
         if not active.any():
@@ -306,18 +396,19 @@ def _gauss_fit_batch(
         idx = np.nonzero(active)[0]
         sel = slice(None) if idx.size == n else idx  # views, not copies, while all are active
         A, g = _normal_equations(U[sel], V[sel], res[sel], wgt[sel], full[sel])
-        diag = np.einsum("nii->ni", A)
-        A_d = A + lam[sel, None, None] * diag[:, :, None] * eye
+        A_d = A  # damped in place: A is not used again
+        diag = np.einsum("nii->ni", A_d)  # a view on the diagonal
+        diag *= 1.0 + lam[sel, None]
         try:
             step = np.linalg.solve(A_d, g[:, :, None])[:, :, 0]
         except np.linalg.LinAlgError:
             step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A_d, g)])
-        trial = np.clip(p[sel] + step, lo_in[sel], hi_in[sel])
+        trial = np.minimum(np.maximum(p[sel] + step, lo_in[sel]), hi_in[sel])
         # The trial's Jacobian factors come with its model (they share the erf pieces) and are
         # kept when the step is taken: one evaluation per iteration.
-        t_model, t_U, t_V = _SubBatch(trial, xf[sel], yf[sel], m).model_uv()
+        t_model, t_U, t_V = _SubBatch(trial, start[sel], m).model_uv()
         t_res = (data[sel] - t_model) * wgt[sel]
-        t_cost = (t_res * t_res).sum(axis=(1, 2))
+        t_cost = np.einsum("nij,nij->n", t_res, t_res)
         better = t_cost <= cost[sel]
         ok = idx[better]
         moved = np.abs(trial[better] - p[ok])
@@ -339,8 +430,8 @@ def _gauss_fit_batch(
         active[done] = False
         active[stuck] = False
     if gain:
-        model = _SubBatch(p, xf, yf, m).model()
-        var = noise * noise + np.clip(model - p[:, 5][:, None, None], 0, None) / gain
+        model = _SubBatch(p, start, m).model()
+        var = noise * noise + _clip(model - p[:, 5][:, None, None], 0, None) / gain
         A, _ = _normal_equations(U, V, res, wgt / np.sqrt(var), np.ones(n, dtype=bool))
     else:
         A, _ = _normal_equations(U, V, res, wgt, full)
@@ -369,47 +460,64 @@ def _gauss_fit_batch(
 
 def _normal_equations(U: np.ndarray, V: np.ndarray, res: np.ndarray, wgt: np.ndarray,
                       full: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """J^T W J and J^T W r of the separable model, J[:, y, x, a] = U[:, y, a] V[:, x, a].
+    """J^T W J and J^T W r of the separable model, J[:, y, x, a] = U[:, a, y] V[:, a, x].
 
-    With unit weights both separate: J^T J = (U^T U) * (V^T V) elementwise and
-    J^T r = sum_y U (r V), costing m instead of m^2 per entry. Windows with weights
+    With unit weights both separate: J^T J = (U U^T) * (V V^T) elementwise and
+    J^T r = sum_x (U r) V, costing m instead of m^2 per entry. Windows with weights
     (`full`: pixels left out, or shot noise) take the direct sums; res is already weighted.
     """
-    A = np.matmul(U.transpose(0, 2, 1), U) * np.matmul(V.transpose(0, 2, 1), V)
-    g = (U * np.matmul(res, V)).sum(axis=1)
+    A = np.matmul(U, U.transpose(0, 2, 1))
+    A *= np.matmul(V, V.transpose(0, 2, 1))
+    g = np.matmul(U, res)
+    g *= V
+    g = g.sum(axis=2)
     if full.any():
         k = np.nonzero(full)[0]
-        n, m = len(k), U.shape[1]
-        J = (U[k][:, :, None, :] * V[k][:, None, :, :] * wgt[k][:, :, :, None]).reshape(n, m * m, 6)
-        A[k] = np.matmul(J.transpose(0, 2, 1), J)
-        g[k] = np.matmul(J.transpose(0, 2, 1), (res[k] * wgt[k]).reshape(n, m * m, 1))[:, :, 0]
+        n, m = len(k), U.shape[2]
+        J = (U[k][:, :, :, None] * V[k][:, :, None, :] * wgt[k][:, None, :, :]).reshape(n, 6, m * m)
+        A[k] = np.matmul(J, J.transpose(0, 2, 1))
+        g[k] = np.matmul(J, (res[k] * wgt[k]).reshape(n, m * m, 1))[:, :, 0]
     return A, g
 
 
 class _SubBatch:
-    """Model (and Jacobian) of the pixel-integrated Gaussian for a subset of the spots."""
+    """Model (and Jacobian) of the pixel-integrated Gaussian for a subset of the spots.
 
-    def __init__(self, p: np.ndarray, xf: np.ndarray, yf: np.ndarray, m: int) -> None:
-        self.p, self.xf, self.yf, self.m = p, xf, yf, m
+    start: (n, 2) column and row of each window's first pixel (float).
+    """
+
+    def __init__(self, p: np.ndarray, start: np.ndarray, m: int) -> None:
+        self.p, self.start, self.m = p, start, m
 
     def model(self) -> np.ndarray:
         p = self.p
-        ex = _edge_pieces(p[:, 1], p[:, 3], self.xf, self.m)[0]
-        ey = _edge_pieces(p[:, 2], p[:, 4], self.yf, self.m)[0]
-        return p[:, 0][:, None, None] * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
+        frac = _edge_pieces(p[:, 1:3], p[:, 3:5], self.start, self.m)[0]
+        fey = frac[:, 1] * p[:, 0, None]
+        return fey[:, :, None] * frac[:, 0, None, :] + p[:, 5, None, None]
 
     def model_uv(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Model and the separable Jacobian factors U (n, m, 6) over rows, V (n, m, 6) over cols."""
+        """Model and the separable Jacobian factors U (n, 6, m) over rows, V (n, 6, m) over
+        cols: J[:, y, x, a] = U[:, a, y] V[:, a, x] for p = (flux, x, y, sx, sy, b)."""
         p, m = self.p, self.m
-        ex, dex_x, dex_s = _edge_pieces(p[:, 1], p[:, 3], self.xf, m)
-        ey, dey_y, dey_s = _edge_pieces(p[:, 2], p[:, 4], self.yf, m)
-        f = p[:, 0][:, None]
-        model = p[:, 0][:, None, None] * ey[:, :, None] * ex[:, None, :] + p[:, 5][:, None, None]
-        one = np.ones_like(ex)
-        U = np.stack([ey, f * ey, f * dey_y, f * ey, f * dey_s, one], axis=-1)
-        V = np.stack([ex, dex_x, ex, dex_s, ex, one], axis=-1)
+        frac, d_c, d_s = _edge_pieces(p[:, 1:3], p[:, 3:5], self.start, m)
+        n = p.shape[0]
+        f = p[:, 0, None]
+        ex, ey = frac[:, 0], frac[:, 1]
+        U = np.empty((n, 6, m))
+        V = np.empty((n, 6, m))
+        U[:, 0] = ey
+        np.multiply(ey, f, out=U[:, 1])
+        U[:, 3] = U[:, 1]
+        np.multiply(d_c[:, 1], f, out=U[:, 2])
+        np.multiply(d_s[:, 1], f, out=U[:, 4])
+        U[:, 5] = 1.0
+        V[:, 0] = V[:, 2] = V[:, 4] = ex
+        V[:, 1] = d_c[:, 0]
+        V[:, 3] = d_s[:, 0]
+        V[:, 5] = 1.0
+        model = U[:, 1, :, None] * ex[:, None, :]
+        model += p[:, 5, None, None]
         return model, U, V
-
 
 
 def _measure_many(
@@ -437,13 +545,12 @@ def _spots_from(raw: np.ndarray, resid: np.ndarray, window_px: int, method: str,
     cx, cy, sx, sy, flux, snr, conv, trunc = fit[:8]
     h, w = raw.shape
     half = window_px // 2
-    xi = np.rint(np.clip(cx, 0.0, w - 1.0)).astype(int)
-    yi = np.rint(np.clip(cy, 0.0, h - 1.0)).astype(int)
+    xi = np.rint(_clip(cx, 0.0, w - 1.0)).astype(int)
+    yi = np.rint(_clip(cy, 0.0, h - 1.0)).astype(int)
     ar = np.arange(-half, half + 1)
-    rows = np.clip(yi[:, None] + ar[None, :], 0, h - 1)
-    cols = np.clip(xi[:, None] + ar[None, :], 0, w - 1)
-    peak = resid[rows[:, :, None], cols[:, None, :]].max(axis=(1, 2))
-    raw_win = raw[rows[:, :, None], cols[:, None, :]]
+    index = _window_index((h, w), yi[:, None] + ar[None, :], xi[:, None] + ar[None, :])
+    peak = _gather(resid, index).max(axis=(1, 2))
+    raw_win = _gather(raw, index)
     saturated = (raw_win.max(axis=(1, 2)) >= saturation) if saturation is not None else np.zeros(cx.size, bool)
     # A repaired pixel biases a centre of mass anywhere in its window; the Gaussian fit leaves
     # it out, which only matters when it was the spot's core (within 1 px of the centre).
@@ -539,10 +646,10 @@ def detect_spots(
     v = sm_flat[flat]
     is_max = np.ones(flat.size, dtype=bool)
     for dr in (-1, 0, 1):
-        row = np.clip(rr + dr, 0, hh - 1) * ww
+        row = _clip(rr + dr, 0, hh - 1) * ww
         for dc in (-1, 0, 1):
             if dr or dc:
-                is_max &= v >= sm_flat[row + np.clip(cc + dc, 0, ww - 1)]
+                is_max &= v >= sm_flat[row + _clip(cc + dc, 0, ww - 1)]
     n_max = np.bincount(lab_of[is_max], minlength=n + 1)
     out: list[Spot] = []
     for lab, (r, c), spot in zip(index, pos, spots):
@@ -614,8 +721,8 @@ def repair_isolated_pixels(
     rr, cc = np.divmod(flat, w)
     # Neighbours by flat indices (row and column clipped once each): one 1-D gather per neighbour.
     pixels = img.ravel()
-    row_at = {dr: np.clip(rr + dr, 0, h - 1) * w for dr in (-1, 0, 1)}
-    col_at = {dc: np.clip(cc + dc, 0, w - 1) for dc in (-1, 0, 1)}
+    row_at = {dr: _clip(rr + dr, 0, h - 1) * w for dr in (-1, 0, 1)}
+    col_at = {dc: _clip(cc + dc, 0, w - 1) for dc in (-1, 0, 1)}
 
     def at(dr: int, dc: int) -> np.ndarray:  # neighbour values, edge pixels repeated
         return pixels[row_at[dr] + col_at[dc]]
