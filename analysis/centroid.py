@@ -325,6 +325,7 @@ def _gauss_fit_batch(
     resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray, window_px: int,
     gain: float | None, s0: np.ndarray | None = None, mask: np.ndarray | None = None,
     max_iter: int = 20, raw: np.ndarray | None = None, saturation: float | None = None,
+    tol: float = 1e-4,
 ) -> tuple[np.ndarray, ...]:
     """Pixel-integrated Gaussian fits of many spots at once (Levenberg-Marquardt, per spot).
 
@@ -411,15 +412,19 @@ def _gauss_fit_batch(
         t_cost = np.einsum("nij,nij->n", t_res, t_res)
         better = t_cost <= cost[sel]
         ok = idx[better]
-        moved = np.abs(trial[better] - p[ok])
-        p[ok] = trial[better]
-        cost[ok] = t_cost[better]
-        U[ok], V[ok], res[ok] = t_U[better], t_V[better], t_res[better]
+        if ok.size == n:  # every spot active and improved: take the trial arrays whole
+            moved = np.abs(trial - p)
+            p, cost, U, V, res = trial, t_cost, t_U, t_V, t_res
+        else:
+            moved = np.abs(trial[better] - p[ok])
+            p[ok] = trial[better]
+            cost[ok] = t_cost[better]
+            U[ok], V[ok], res[ok] = t_U[better], t_V[better], t_res[better]
         lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
         lam[idx[~better]] *= 10.0
-        # Converged when the centre moves less than 1e-4 px (a small fraction of any centroid
-        # uncertainty) and the flux by less than 1e-4 of itself.
-        small = (moved[:, 1] < 1e-4) & (moved[:, 2] < 1e-4) & (moved[:, 0] < 1e-4 * p[ok, 0] + 1e-9)
+        # Converged when the centre moves less than tol = 1e-4 px (a small fraction of any
+        # centroid uncertainty) and the flux by less than tol of itself.
+        small = (moved[:, 1] < tol) & (moved[:, 2] < tol) & (moved[:, 0] < tol * p[ok, 0] + 1e-9)
         done = ok[small]
         converged[done] = True
         rej = idx[~better]
@@ -629,13 +634,11 @@ def detect_spots(
     rr, cc = np.divmod(flat, sm.shape[1])
     r_lo, r_hi = np.minimum.reduceat(rr[order], starts), np.maximum.reduceat(rr[order], starts) + 1
     c_lo, c_hi = np.minimum.reduceat(cc[order], starts), np.maximum.reduceat(cc[order], starts) + 1
-    slices = [(slice(a, b), slice(c, d)) for a, b, c, d in
-              zip(r_lo.tolist(), r_hi.tolist(), c_lo.tolist(), c_hi.tolist())]
-    best = dict(zip(lab_of[first].tolist(), flat[first].tolist()))
-    pos = np.array([divmod(best[int(lab)], sm.shape[1]) for lab in index]).reshape(-1, 2)
-    xs, ys = pos[:, 1].astype(float), pos[:, 0].astype(float)
+    peak_r, peak_c = rr[first[index - 1]], cc[first[index - 1]]
+    xs, ys = peak_c.astype(float), peak_r.astype(float)
     if window_px is None:
-        window_px = _window_from_probe(raw, resid, noise, xs, ys, slices, index, saturation, gain)
+        extent = np.maximum(r_hi - r_lo, c_hi - c_lo)[index - 1]
+        window_px = _window_from_probe(raw, resid, noise, xs, ys, extent, saturation, gain)
     fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
     spots = _spots_from(raw, resid, window_px, method, saturation, fit)
     if max_area_px is None:
@@ -651,31 +654,32 @@ def detect_spots(
             if dr or dc:
                 is_max &= v >= sm_flat[row + _clip(cc + dc, 0, ww - 1)]
     n_max = np.bincount(lab_of[is_max], minlength=n + 1)
-    out: list[Spot] = []
-    for lab, (r, c), spot in zip(index, pos, spots):
-        merged = areas[lab - 1] > max_area_px or (
-            n_max[lab] >= 2 and _two_peaks(sm, flat[order[starts[lab - 1]:ends[lab - 1]]], slices[lab - 1],
-                                           (int(r), int(c)), thr))
-        if merged:
-            spot = replace(spot, flags=spot.flags | SpotFlag.MERGED)
-        out.append(spot)
-    return out
+    merged = areas[index - 1] > max_area_px
+    for i in np.flatnonzero(~merged & (n_max[index] >= 2)).tolist():
+        j = int(index[i]) - 1
+        box = (slice(int(r_lo[j]), int(r_hi[j])), slice(int(c_lo[j]), int(c_hi[j])))
+        merged[i] = _two_peaks(sm, flat[order[starts[j]:ends[j]]], box, (int(peak_r[i]), int(peak_c[i])), thr)
+    for i in np.flatnonzero(merged).tolist():
+        spots[i] = replace(spots[i], flags=spots[i].flags | SpotFlag.MERGED)
+    return spots
 
 
 def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
-                       slices: list, index: np.ndarray, saturation: float | None, gain: float | None,
+                       extent: np.ndarray, saturation: float | None, gain: float | None,
                        probe: int = 32) -> int:
     """Odd window of +/-3.5 fitted spot sigmas (at least 7 px), from Gaussian fits of up to
-    `probe` spots spread through the list, widened until the window holds them."""
+    `probe` spots spread through the list, widened until the window holds them.
+    extent: the larger side of each spot's detected component (px), the first guess."""
     pick = np.unique(np.linspace(0, len(xs) - 1, min(probe, len(xs))).astype(int))
-    sizes = np.array([max(slices[lab - 1][0].stop - slices[lab - 1][0].start,
-                          slices[lab - 1][1].stop - slices[lab - 1][1].start) for lab in index[pick]])
+    sizes = extent[pick]
     window = int(min(61, max(7, int(np.median(sizes)) + 2))) | 1
     need = window
     for _ in range(4):
-        # The probe needs the spot sigma to a few per cent only (it picks an odd window).
+        # The probe needs the spot sigma to a few per cent only (it picks an odd window): a
+        # centre step below 1e-2 px leaves far less than that (Gauss-Newton converges
+        # quadratically near the minimum).
         fit = _gauss_fit_batch(resid, noise, xs[pick], ys[pick], window, gain, raw=raw,
-                               saturation=saturation, max_iter=6)
+                               saturation=saturation, max_iter=6, tol=1e-2)
         ok = fit[6] & ~fit[7]
         s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
         need = int(min(61, max(7, 2 * math.ceil(3.5 * s_spot) + 1)))
