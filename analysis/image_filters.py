@@ -75,7 +75,8 @@ def label_sparse(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
 
     Method: union-find connected-component labelling (Rosenfeld & Pfaltz, J. ACM 13:471, 1966;
     Wu, Otoo & Suzuki, Pattern Anal. Appl. 12:117, 2009), vectorised: neighbour pairs come from
-    a binary search of the sorted foreground indices; every pixel holds a parent index, each
+    look-ups in the mask and in an index image written at the foreground pixels only (the rest
+    of it is never read, so never initialised); every pixel holds a parent index, each
     pass hooks the larger parent of every pair onto the smaller and then halves paths by
     pointer jumping until nothing changes. A component ends with all its pixels pointing at
     its first pixel in raster order.
@@ -89,16 +90,22 @@ def label_sparse(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
     if n_px == 0:
         return flat, np.zeros(0, dtype=np.intp), 0
     col = flat % w
+    m_flat = m.ravel()
+    where = np.empty(h * w, dtype=np.intp)  # position in `flat`, valid at foreground pixels only
+    where[flat] = np.arange(n_px)
+    last = h * w - 1
     a_list, b_list = [], []
     # Forward neighbours only (each pair once): right, and the three below.
     for off, dc in ((1, 1), (w - 1, -1), (w, 0), (w + 1, 1)):
-        ok = (col + dc >= 0) & (col + dc < w) if dc else np.ones(n_px, dtype=bool)
-        nb = flat + off
-        pos = np.searchsorted(flat, nb)
-        np.minimum(pos, n_px - 1, out=pos)
-        hit = ok & (flat[pos] == nb)
-        a_list.append(np.flatnonzero(hit))
-        b_list.append(pos[hit])
+        nb = np.minimum(flat + off, last)
+        hit = m_flat[nb] & (flat + off <= last)
+        if dc == 1:
+            hit &= col < w - 1
+        elif dc == -1:
+            hit &= col > 0
+        a = np.flatnonzero(hit)
+        a_list.append(a)
+        b_list.append(where[nb[a]])
     a = np.concatenate(a_list)
     b = np.concatenate(b_list)
     parent = np.arange(n_px)
