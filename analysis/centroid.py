@@ -22,6 +22,7 @@ Methods (published):
 from __future__ import annotations
 
 import enum
+import functools
 import math
 from dataclasses import dataclass, replace
 
@@ -309,16 +310,28 @@ def _edge_pieces(centre: np.ndarray, sigma: np.ndarray, start: np.ndarray, size:
     Pixel k covers [start + k - 0.5, start + k + 0.5]; fraction = Phi(z_k+1) - Phi(z_k).
     """
     inv_s = (1.0 / sigma)[..., None]
-    z = (start - centre)[..., None] + (np.arange(size + 1) - 0.5)
+    z = (start - centre)[..., None] + _edge_offsets(size)
     z *= inv_s
-    pdf = np.exp(-0.5 * z * z)
+    pdf = z * z
+    pdf *= -0.5
+    np.exp(pdf, out=pdf)
     pdf *= _INV_SQRT_2PI
     cdf = ndtr(z, pdf)
     frac = cdf[..., 1:] - cdf[..., :-1]
-    d_centre = (pdf[..., :-1] - pdf[..., 1:]) * inv_s
-    zp = z * pdf
-    d_sigma = (zp[..., :-1] - zp[..., 1:]) * inv_s
+    d_centre = pdf[..., :-1] - pdf[..., 1:]
+    d_centre *= inv_s
+    z *= pdf
+    d_sigma = z[..., :-1] - z[..., 1:]
+    d_sigma *= inv_s
     return frac, d_centre, d_sigma
+
+
+@functools.cache
+def _edge_offsets(size: int) -> np.ndarray:
+    """Pixel edges -0.5, 0.5, ..., size - 0.5 relative to a window's first pixel centre."""
+    out = np.arange(size + 1) - 0.5
+    out.setflags(write=False)
+    return out
 
 
 def _gauss_fit_batch(
@@ -384,7 +397,7 @@ def _gauss_fit_batch(
 
     wflat = wgt.reshape(n, m * m)
     full = ~use.all(axis=(1, 2))  # windows with pixels left out: not separable
-    model, U, V = _SubBatch(p, start, m).model_uv()
+    model, UV = _SubBatch(p, start, m).model_uv()
     res = (data - model) * wgt
     cost = (res * res).sum(axis=(1, 2))
     lam = np.full(n, 1e-3)
@@ -396,7 +409,7 @@ def _gauss_fit_batch(
             break
         idx = np.nonzero(active)[0]
         sel = slice(None) if idx.size == n else idx  # views, not copies, while all are active
-        A, g = _normal_equations(U[sel], V[sel], res[sel], wgt[sel], full[sel])
+        A, g = _normal_equations(UV[sel], res[sel], wgt[sel], full[sel])
         A_d = A  # damped in place: A is not used again
         diag = np.einsum("nii->ni", A_d)  # a view on the diagonal
         diag *= 1.0 + lam[sel, None]
@@ -407,19 +420,19 @@ def _gauss_fit_batch(
         trial = np.minimum(np.maximum(p[sel] + step, lo_in[sel]), hi_in[sel])
         # The trial's Jacobian factors come with its model (they share the erf pieces) and are
         # kept when the step is taken: one evaluation per iteration.
-        t_model, t_U, t_V = _SubBatch(trial, start[sel], m).model_uv()
+        t_model, t_UV = _SubBatch(trial, start[sel], m).model_uv()
         t_res = (data[sel] - t_model) * wgt[sel]
         t_cost = np.einsum("nij,nij->n", t_res, t_res)
         better = t_cost <= cost[sel]
         ok = idx[better]
         if ok.size == n:  # every spot active and improved: take the trial arrays whole
             moved = np.abs(trial - p)
-            p, cost, U, V, res = trial, t_cost, t_U, t_V, t_res
+            p, cost, UV, res = trial, t_cost, t_UV, t_res
         else:
             moved = np.abs(trial[better] - p[ok])
             p[ok] = trial[better]
             cost[ok] = t_cost[better]
-            U[ok], V[ok], res[ok] = t_U[better], t_V[better], t_res[better]
+            UV[ok], res[ok] = t_UV[better], t_res[better]
         lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
         lam[idx[~better]] *= 10.0
         # Converged when the centre moves less than tol = 1e-4 px (a small fraction of any
@@ -437,9 +450,9 @@ def _gauss_fit_batch(
     if gain:
         model = _SubBatch(p, start, m).model()
         var = noise * noise + _clip(model - p[:, 5][:, None, None], 0, None) / gain
-        A, _ = _normal_equations(U, V, res, wgt / np.sqrt(var), np.ones(n, dtype=bool))
+        A, _ = _normal_equations(UV, res, wgt / np.sqrt(var), np.ones(n, dtype=bool))
     else:
-        A, _ = _normal_equations(U, V, res, wgt, full)
+        A, _ = _normal_equations(UV, res, wgt, full)
         A = A / (noise * noise)
     cov = np.full((n, 6, 6), np.nan)
     try:
@@ -463,22 +476,24 @@ def _gauss_fit_batch(
     return p[:, 1], p[:, 2], sx, sy, p[:, 0], snr, ok_all, truncated, np.sqrt(p[:, 3] * p[:, 4])
 
 
-def _normal_equations(U: np.ndarray, V: np.ndarray, res: np.ndarray, wgt: np.ndarray,
+def _normal_equations(UV: np.ndarray, res: np.ndarray, wgt: np.ndarray,
                       full: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """J^T W J and J^T W r of the separable model, J[:, y, x, a] = U[:, a, y] V[:, a, x].
+    """J^T W J and J^T W r of the separable model, J[:, y, x, a] = U[:, a, y] V[:, a, x]
+    with U = UV[:, 0], V = UV[:, 1].
 
     With unit weights both separate: J^T J = (U U^T) * (V V^T) elementwise and
     J^T r = sum_x (U r) V, costing m instead of m^2 per entry. Windows with weights
     (`full`: pixels left out, or shot noise) take the direct sums; res is already weighted.
     """
-    A = np.matmul(U, U.transpose(0, 2, 1))
-    A *= np.matmul(V, V.transpose(0, 2, 1))
+    G = np.matmul(UV, UV.swapaxes(-1, -2))  # U U^T and V V^T in one call
+    A = G[:, 0] * G[:, 1]
+    U, V = UV[:, 0], UV[:, 1]
     g = np.matmul(U, res)
     g *= V
     g = g.sum(axis=2)
     if full.any():
         k = np.nonzero(full)[0]
-        n, m = len(k), U.shape[2]
+        n, m = len(k), UV.shape[3]
         J = (U[k][:, :, :, None] * V[k][:, :, None, :] * wgt[k][:, None, :, :]).reshape(n, 6, m * m)
         A[k] = np.matmul(J, J.transpose(0, 2, 1))
         g[k] = np.matmul(J, (res[k] * wgt[k]).reshape(n, m * m, 1))[:, :, 0]
@@ -500,29 +515,29 @@ class _SubBatch:
         fey = frac[:, 1] * p[:, 0, None]
         return fey[:, :, None] * frac[:, 0, None, :] + p[:, 5, None, None]
 
-    def model_uv(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Model and the separable Jacobian factors U (n, 6, m) over rows, V (n, 6, m) over
-        cols: J[:, y, x, a] = U[:, a, y] V[:, a, x] for p = (flux, x, y, sx, sy, b)."""
+    def model_uv(self) -> tuple[np.ndarray, np.ndarray]:
+        """Model and the separable Jacobian factors UV (n, 2, 6, m): U = UV[:, 0] over rows,
+        V = UV[:, 1] over cols, J[:, y, x, a] = U[:, a, y] V[:, a, x] for
+        p = (flux, x, y, sx, sy, b)."""
         p, m = self.p, self.m
         frac, d_c, d_s = _edge_pieces(p[:, 1:3], p[:, 3:5], self.start, m)
         n = p.shape[0]
         f = p[:, 0, None]
         ex, ey = frac[:, 0], frac[:, 1]
-        U = np.empty((n, 6, m))
-        V = np.empty((n, 6, m))
+        UV = np.empty((n, 2, 6, m))
+        U, V = UV[:, 0], UV[:, 1]
         U[:, 0] = ey
         np.multiply(ey, f, out=U[:, 1])
         U[:, 3] = U[:, 1]
         np.multiply(d_c[:, 1], f, out=U[:, 2])
         np.multiply(d_s[:, 1], f, out=U[:, 4])
-        U[:, 5] = 1.0
         V[:, 0] = V[:, 2] = V[:, 4] = ex
         V[:, 1] = d_c[:, 0]
         V[:, 3] = d_s[:, 0]
-        V[:, 5] = 1.0
+        UV[:, :, 5] = 1.0
         model = U[:, 1, :, None] * ex[:, None, :]
         model += p[:, 5, None, None]
-        return model, U, V
+        return model, UV
 
 
 def _measure_many(

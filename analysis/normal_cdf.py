@@ -56,9 +56,13 @@ def ndtr(z: np.ndarray | float, pdf: np.ndarray | None = None) -> np.ndarray:
     table = _table()
     if pdf is None:
         pdf = normal_pdf(z)
-    zc = np.clip(z, -_LIMIT, _LIMIT)
-    f = np.rint((zc + _LIMIT) * (1.0 / _STEP))
-    u = (f * _STEP - _LIMIT) - zc  # node minus z, exact to rounding
+    zc = np.minimum(np.maximum(z, -_LIMIT), _LIMIT)
+    f = zc + _LIMIT
+    f *= 1.0 / _STEP
+    f = np.rint(f)
+    u = f * _STEP
+    u -= _LIMIT  # the node, exactly (a multiple of _STEP below 2^5)
+    u -= zc  # node minus z, one rounding
     series = (zc * zc - 1.0) * (1.0 / 6.0)
     series *= u
     series -= 0.5 * zc
