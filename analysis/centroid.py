@@ -338,7 +338,7 @@ def _gauss_fit_batch(
     resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray, window_px: int,
     gain: float | None, s0: np.ndarray | None = None, mask: np.ndarray | None = None,
     max_iter: int = 20, raw: np.ndarray | None = None, saturation: float | None = None,
-    tol: float = 1e-4,
+    tol: float = 1e-4, covariance: bool = True,
 ) -> tuple[np.ndarray, ...]:
     """Pixel-integrated Gaussian fits of many spots at once (Levenberg-Marquardt, per spot).
 
@@ -350,7 +350,8 @@ def _gauss_fit_batch(
     Returns x, y, sigma_x, sigma_y, flux, snr, converged, truncated, fitted spot sigma (arrays).
     A well-posed spot converges in 4-8 iterations from the moment start; max_iter only bounds
     the ill-posed ones (core pixel left out, spot at the window edge), which stay flagged
-    NOT_CONVERGED whatever the cap.
+    NOT_CONVERGED whatever the cap. covariance=False skips the uncertainties (sigma_x, sigma_y
+    and snr come back NaN) for callers that only need the fitted shape.
     """
     h_img, w_img = resid.shape
     n = xs.size
@@ -395,7 +396,6 @@ def _gauss_fit_batch(
     hi = np.column_stack([np.full(n, np.inf), x0 + m - 0.5, y0 + m - 0.5, np.full(n, float(m)), np.full(n, float(m)), np.full(n, np.inf)])
     start = np.column_stack([x0, y0]).astype(float)
 
-    wflat = wgt.reshape(n, m * m)
     full = ~use.all(axis=(1, 2))  # windows with pixels left out: not separable
     model, UV = _SubBatch(p, start, m).model_uv()
     res = (data - model) * wgt
@@ -447,6 +447,12 @@ def _gauss_fit_batch(
         converged[stuck] = True
         active[done] = False
         active[stuck] = False
+    at_edge = ((p[:, 1] <= lo[:, 1] + 1e-6) | (p[:, 1] >= hi[:, 1] - 1e-6)
+               | (p[:, 2] <= lo[:, 2] + 1e-6) | (p[:, 2] >= hi[:, 2] - 1e-6))
+    s_spot = np.sqrt(p[:, 3] * p[:, 4])
+    if not covariance:
+        nan = np.full(n, np.nan)
+        return p[:, 1], p[:, 2], nan, nan, p[:, 0], nan, converged & ~at_edge, truncated, s_spot
     if gain:
         model = _SubBatch(p, start, m).model()
         var = noise * noise + _clip(model - p[:, 5][:, None, None], 0, None) / gain
@@ -468,12 +474,10 @@ def _gauss_fit_batch(
     sy = np.sqrt(np.abs(cov[:, 2, 2]))
     sf = np.sqrt(np.abs(cov[:, 0, 0]))
     snr = np.where(sf > 0, p[:, 0] / sf, 0.0)
-    at_edge = ((p[:, 1] <= lo[:, 1] + 1e-6) | (p[:, 1] >= hi[:, 1] - 1e-6)
-               | (p[:, 2] <= lo[:, 2] + 1e-6) | (p[:, 2] >= hi[:, 2] - 1e-6))
     ok_all = converged & good & ~at_edge & np.isfinite(sx) & np.isfinite(sy)
     sx = np.where(np.isfinite(sx), sx, np.inf)
     sy = np.where(np.isfinite(sy), sy, np.inf)
-    return p[:, 1], p[:, 2], sx, sy, p[:, 0], snr, ok_all, truncated, np.sqrt(p[:, 3] * p[:, 4])
+    return p[:, 1], p[:, 2], sx, sy, p[:, 0], snr, ok_all, truncated, s_spot
 
 
 def _normal_equations(UV: np.ndarray, res: np.ndarray, wgt: np.ndarray,
@@ -550,13 +554,16 @@ def _measure_many(
 
 
 def _centroids(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
-               window_px: int, method: str, saturation: float | None, gain: float | None) -> tuple[np.ndarray, ...]:
-    """x, y, sigma_x, sigma_y, flux, snr, converged, truncated, spot sigma (NaN for com)."""
+               window_px: int, method: str, saturation: float | None, gain: float | None,
+               s0: float | None = None) -> tuple[np.ndarray, ...]:
+    """x, y, sigma_x, sigma_y, flux, snr, converged, truncated, spot sigma (NaN for com).
+    s0: a start for the fitted spot sigma (None: from each window's second moment)."""
     if method == "com":
         out = _centroid_com_batch(resid, noise, xs, ys, window_px, gain)
         return (*out, np.full(xs.size, np.nan))
     if method == "gauss":
-        return _gauss_fit_batch(resid, noise, xs, ys, window_px, gain, raw=raw, saturation=saturation)
+        return _gauss_fit_batch(resid, noise, xs, ys, window_px, gain, raw=raw, saturation=saturation,
+                                s0=None if s0 is None else np.full(xs.size, s0))
     raise ValueError(f"unknown centroid method {method!r}: use 'com' or 'gauss'")
 
 
@@ -651,10 +658,11 @@ def detect_spots(
     c_lo, c_hi = np.minimum.reduceat(cc[order], starts), np.maximum.reduceat(cc[order], starts) + 1
     peak_r, peak_c = rr[first[index - 1]], cc[first[index - 1]]
     xs, ys = peak_c.astype(float), peak_r.astype(float)
+    s0 = None
     if window_px is None:
         extent = np.maximum(r_hi - r_lo, c_hi - c_lo)[index - 1]
-        window_px = _window_from_probe(raw, resid, noise, xs, ys, extent, saturation, gain)
-    fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
+        window_px, s0 = _window_from_probe(raw, resid, noise, xs, ys, extent, saturation, gain)
+    fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain, s0)
     spots = _spots_from(raw, resid, window_px, method, saturation, fit)
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
@@ -681,10 +689,12 @@ def detect_spots(
 
 def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
                        extent: np.ndarray, saturation: float | None, gain: float | None,
-                       probe: int = 32) -> int:
+                       probe: int = 32) -> tuple[int, float | None]:
     """Odd window of +/-3.5 fitted spot sigmas (at least 7 px), from Gaussian fits of up to
     `probe` spots spread through the list, widened until the window holds them.
-    extent: the larger side of each spot's detected component (px), the first guess."""
+    extent: the larger side of each spot's detected component (px), the first guess.
+    Returns the window and the median fitted spot sigma (None when no probe fit converged),
+    a start for the fits of all the spots."""
     pick = np.unique(np.linspace(0, len(xs) - 1, min(probe, len(xs))).astype(int))
     sizes = extent[pick]
     window = int(min(61, max(7, int(np.median(sizes)) + 2))) | 1
@@ -694,14 +704,14 @@ def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.
         # centre step below 1e-2 px leaves far less than that (Gauss-Newton converges
         # quadratically near the minimum).
         fit = _gauss_fit_batch(resid, noise, xs[pick], ys[pick], window, gain, raw=raw,
-                               saturation=saturation, max_iter=6, tol=1e-2)
+                               saturation=saturation, max_iter=6, tol=1e-2, covariance=False)
         ok = fit[6] & ~fit[7]
-        s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
-        need = int(min(61, max(7, 2 * math.ceil(3.5 * s_spot) + 1)))
+        s_spot = float(np.median(fit[8][ok])) if ok.any() else None
+        need = int(min(61, max(7, 2 * math.ceil(3.5 * (s_spot or 1.0)) + 1)))
         if need <= window:
             break
         window = need
-    return need
+    return need, s_spot
 
 
 def repair_isolated_pixels(
