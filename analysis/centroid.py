@@ -630,7 +630,7 @@ def detect_spots(
     level = bg.level
     resid = raw - level
     if repair_bad_pixels:
-        resid, fixed = repair_isolated_pixels(resid, noise)
+        resid, fixed = repair_isolated_pixels(resid, noise, copy=False)  # resid is ours
         raw = _without(raw, fixed)
     if smooth_px > 0:
         # float32 is ample for a detection threshold and halves the cost on large frames.
@@ -716,7 +716,7 @@ def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.
 
 def repair_isolated_pixels(
     resid: np.ndarray, noise: float, *, k_sigma: float = 10.0, min_spot_sigma_px: float = 0.5,
-    margin_sigma: float = 3.0, rel_tolerance: float = 0.05,
+    margin_sigma: float = 3.0, rel_tolerance: float = 0.05, copy: bool = True,
 ) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
     """Replace hot and dead pixels by their 8-neighbour median; spots, however sharp, stay.
 
@@ -734,7 +734,8 @@ def repair_isolated_pixels(
     above the background.
 
     Works on a background-subtracted image (rows, cols); returns the repaired copy and the
-    (rows, cols) indices of the repaired pixels.
+    (rows, cols) indices of the repaired pixels. copy=False repairs a float64 image in place
+    (for a caller that owns it; saves a copy of the frame).
 
     >>> img = np.zeros((7, 7)); img[3, 3] = 1000.0
     >>> fixed, idx = repair_isolated_pixels(img, 1.0)
@@ -775,7 +776,7 @@ def repair_isolated_pixels(
         return resid, none
     neigh = np.stack([at(dr, dc)[bad] for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc], axis=1)
     med = np.median(neigh, axis=1)
-    out = img.copy()
+    out = img.copy() if copy or img is not resid else img
     idx = (rr[bad], cc[bad])
     out[idx] = med
     return out, idx
@@ -878,7 +879,7 @@ def centroid_at(
         level = bg.level[by0:by1, bx0:bx1] if isinstance(bg.level, np.ndarray) else bg.level
     resid = sub - level
     if repair_bad_pixels:
-        resid, fixed = repair_isolated_pixels(resid, bg.noise)
+        resid, fixed = repair_isolated_pixels(resid, bg.noise, copy=False)  # resid is ours
         sub = _without(sub, fixed)
     xa, xb = max(0, xi - search) - bx0, min(w, xi + search + 1) - bx0
     ya, yb = max(0, yi - search) - by0, min(h, yi + search + 1) - by0

@@ -28,25 +28,36 @@ def gaussian_kernel(sigma: float, truncate: float = 4.0) -> np.ndarray:
 def _smooth_axis(a: np.ndarray, k: np.ndarray, axis: int) -> np.ndarray:
     """Correlate along one axis with a symmetric kernel, edge pixels repeated ("nearest").
 
-    Shifted-slice sums over a padded copy, the pair of taps at +/-i added before the multiply.
+    Shifted-slice sums, the pair of taps at +/-i added before the multiply. The interior is
+    computed from the image itself; only the r lines at each end go through a small padded
+    copy, so the frame is never copied whole.
     """
     r = (k.size - 1) // 2
-    n = a.shape[axis]
-    pad = [(0, 0), (0, 0)]
-    pad[axis] = (r, r)
-    p = np.pad(a, pad, mode="edge")
-
-    def sl(start: int) -> np.ndarray:
-        return p[start:start + n] if axis == 0 else p[:, start:start + n]
-
+    b = a if axis == 0 else a.T  # work along the first axis of b
+    n = b.shape[0]
     kc = k.astype(a.dtype)
-    out = sl(r) * kc[r]
+    out = np.empty_like(b)
+    if n <= 4 * r:  # short: pad it all
+        _correlate_rows(np.concatenate([np.repeat(b[:1], r, 0), b, np.repeat(b[-1:], r, 0)]), kc, out)
+    else:
+        _correlate_rows(b, kc, out[r:n - r])
+        head = np.concatenate([np.repeat(b[:1], r, 0), b[:2 * r]])
+        tail = np.concatenate([b[n - 2 * r:], np.repeat(b[-1:], r, 0)])
+        _correlate_rows(head, kc, out[:r])
+        _correlate_rows(tail, kc, out[n - r:])
+    return out if axis == 0 else out.T
+
+
+def _correlate_rows(p: np.ndarray, kc: np.ndarray, out: np.ndarray) -> None:
+    """out[j] = sum_t kc[t] p[j + t] along the first axis (len(p) = len(out) + 2r)."""
+    r = (kc.size - 1) // 2
+    n = out.shape[0]
+    np.multiply(p[r:r + n], kc[r], out=out)
     tmp = np.empty_like(out)
     for i in range(1, r + 1):
-        np.add(sl(r - i), sl(r + i), out=tmp)
+        np.add(p[r - i:r - i + n], p[r + i:r + i + n], out=tmp)
         tmp *= kc[r + i]
         out += tmp
-    return out
 
 
 def gaussian_smooth(image: np.ndarray, sigma: float, truncate: float = 4.0) -> np.ndarray:
