@@ -334,28 +334,26 @@ def _edge_offsets(size: int) -> np.ndarray:
     return out
 
 
-def _gauss_fit_batch(
-    resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray, window_px: int,
-    gain: float | None, s0: np.ndarray | None = None, mask: np.ndarray | None = None,
-    max_iter: int = 20, raw: np.ndarray | None = None, saturation: float | None = None,
-    tol: float = 1e-4, covariance: bool = True,
-) -> tuple[np.ndarray, ...]:
-    """Pixel-integrated Gaussian fits of many spots at once (Levenberg-Marquardt, per spot).
+@dataclass(frozen=True)
+class _Windows:
+    """Square windows of m pixels around many seeds: data, pixel weights (1 = used, 0 = left
+    out), first column x0 and row y0 of each, and whether each crosses the frame edge."""
 
-    Model per window: flux * ey (x) ex + b, ex/ey the pixel-integrated 1-D Gaussians (erf
-    differences), six parameters (flux, x, y, sx, sy, b): the maximum-likelihood estimate in
-    Gaussian noise (Winick 1986). mask: pixels to leave out, True = out; raw (with saturation):
-    the raw frame, whose repaired (-inf) and saturated pixels are left out.
-    Windows are centred on round(xs, ys); pixels outside the frame are left out and flagged.
-    Returns x, y, sigma_x, sigma_y, flux, snr, converged, truncated, fitted spot sigma (arrays).
-    A well-posed spot converges in 4-8 iterations from the moment start; max_iter only bounds
-    the ill-posed ones (core pixel left out, spot at the window edge), which stay flagged
-    NOT_CONVERGED whatever the cap. covariance=False skips the uncertainties (sigma_x, sigma_y
-    and snr come back NaN) for callers that only need the fitted shape.
-    """
+    x0: np.ndarray
+    y0: np.ndarray
+    rows: np.ndarray
+    cols: np.ndarray
+    data: np.ndarray
+    wgt: np.ndarray
+    use: np.ndarray
+    truncated: np.ndarray
+
+
+def _fit_windows(resid: np.ndarray, xs: np.ndarray, ys: np.ndarray, m: int, mask: np.ndarray | None,
+                 raw: np.ndarray | None, saturation: float | None) -> _Windows:
+    """Windows of side m centred on round(xs, ys); pixels outside the frame, in mask, repaired
+    (-inf in raw) or saturated (raw >= saturation) are left out."""
     h_img, w_img = resid.shape
-    n = xs.size
-    m = int(window_px) | 1
     half = m // 2
     x0 = np.rint(xs).astype(int) - half
     y0 = np.rint(ys).astype(int) - half
@@ -377,7 +375,14 @@ def _gauss_fit_batch(
             use &= raw_win < saturation
     wgt = use.astype(float)
     data = np.where(use, data, 0.0)
-    # Start: background from the window's border, moments of the positive excess.
+    return _Windows(x0, y0, rows, cols, data, wgt, use, truncated)
+
+
+def _moment_start(win: _Windows, noise: float, m: int, s0: np.ndarray | None) -> np.ndarray:
+    """Start (flux, x, y, sx, sy, b) of the fits: background from the window's border, centre
+    and (unless s0 is given) sigma from the moments of the positive excess."""
+    data, wgt, rows, cols = win.data, win.wgt, win.rows, win.cols
+    n = data.shape[0]
     border = np.concatenate([data[:, 0, :], data[:, -1, :], data[:, :, 0], data[:, :, -1]], axis=1)
     bw = np.concatenate([wgt[:, 0, :], wgt[:, -1, :], wgt[:, :, 0], wgt[:, :, -1]], axis=1)
     b = np.where(bw.sum(1) > 0, (border * bw).sum(1) / np.maximum(bw.sum(1), 1), 0.0)
@@ -389,9 +394,44 @@ def _gauss_fit_batch(
     if s0 is None:
         s0 = np.sqrt(np.maximum((pos.sum(axis=1) * (cols - px[:, None]) ** 2).sum(1) / tot - 1 / 12, 0.09))
     s0 = _clip(np.broadcast_to(np.asarray(s0, float), (n,)), 0.3, m / 3.0)
-    p = np.column_stack([np.maximum(((data - b[:, None, None]) * wgt).sum(axis=(1, 2)), 1e-9),
-                         _clip(px, x0 - 0.5, x0 + m - 0.5), _clip(py, y0 - 0.5, y0 + m - 0.5),
-                         s0, s0, b])
+    x0, y0 = win.x0, win.y0
+    return np.column_stack([np.maximum(((data - b[:, None, None]) * wgt).sum(axis=(1, 2)), 1e-9),
+                            _clip(px, x0 - 0.5, x0 + m - 0.5), _clip(py, y0 - 0.5, y0 + m - 0.5),
+                            s0, s0, b])
+
+
+def _gauss_fit_batch(
+    resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray, window_px: int,
+    gain: float | None, s0: np.ndarray | None = None, mask: np.ndarray | None = None,
+    max_iter: int = 20, raw: np.ndarray | None = None, saturation: float | None = None,
+    tol: float = 1e-4, covariance: bool = True, p0: np.ndarray | None = None,
+) -> tuple[np.ndarray, ...]:
+    """Pixel-integrated Gaussian fits of many spots at once (Levenberg-Marquardt, per spot).
+
+    Model per window: flux * ey (x) ex + b, ex/ey the pixel-integrated 1-D Gaussians (erf
+    differences), six parameters (flux, x, y, sx, sy, b): the maximum-likelihood estimate in
+    Gaussian noise (Winick 1986). mask: pixels to leave out, True = out; raw (with saturation):
+    the raw frame, whose repaired (-inf) and saturated pixels are left out.
+    Windows are centred on round(xs, ys); pixels outside the frame are left out and flagged.
+    Returns x, y, sigma_x, sigma_y, flux, snr, converged, truncated, fitted spot sigma (arrays)
+    and the fitted parameters (n, 6); p0 (n, 6) replaces the moment start.
+    A well-posed spot converges in 4-8 iterations from the moment start; max_iter only bounds
+    the ill-posed ones (core pixel left out, spot at the window edge), which stay flagged
+    NOT_CONVERGED whatever the cap. covariance=False skips the uncertainties (sigma_x, sigma_y
+    and snr come back NaN) for callers that only need the fitted shape.
+    """
+    n = xs.size
+    m = int(window_px) | 1
+    win = _fit_windows(resid, xs, ys, m, mask, raw, saturation)
+    x0, y0, data, wgt, use, truncated = win.x0, win.y0, win.data, win.wgt, win.use, win.truncated
+    if p0 is None:
+        p = _moment_start(win, noise, m, s0)
+    else:  # a given start, held inside this window's bounds
+        p = np.array(p0, dtype=float)
+        p[:, 1] = _clip(p[:, 1], x0 - 0.5, x0 + m - 0.5)
+        p[:, 2] = _clip(p[:, 2], y0 - 0.5, y0 + m - 0.5)
+        p[:, 3:5] = _clip(p[:, 3:5], 0.3, m / 3.0)
+        p[:, 0] = np.maximum(p[:, 0], 1e-9)
     lo = np.column_stack([np.full(n, 1e-12), x0 - 0.5, y0 - 0.5, np.full(n, 0.15), np.full(n, 0.15), np.full(n, -np.inf)])
     hi = np.column_stack([np.full(n, np.inf), x0 + m - 0.5, y0 + m - 0.5, np.full(n, float(m)), np.full(n, float(m)), np.full(n, np.inf)])
     start = np.column_stack([x0, y0]).astype(float)
@@ -452,7 +492,7 @@ def _gauss_fit_batch(
     s_spot = np.sqrt(p[:, 3] * p[:, 4])
     if not covariance:
         nan = np.full(n, np.nan)
-        return p[:, 1], p[:, 2], nan, nan, p[:, 0], nan, converged & ~at_edge, truncated, s_spot
+        return p[:, 1], p[:, 2], nan, nan, p[:, 0], nan, converged & ~at_edge, truncated, s_spot, p
     if gain:
         model = _SubBatch(p, start, m).model()
         var = noise * noise + _clip(model - p[:, 5][:, None, None], 0, None) / gain
@@ -477,7 +517,7 @@ def _gauss_fit_batch(
     ok_all = converged & good & ~at_edge & np.isfinite(sx) & np.isfinite(sy)
     sx = np.where(np.isfinite(sx), sx, np.inf)
     sy = np.where(np.isfinite(sy), sy, np.inf)
-    return p[:, 1], p[:, 2], sx, sy, p[:, 0], snr, ok_all, truncated, s_spot
+    return p[:, 1], p[:, 2], sx, sy, p[:, 0], snr, ok_all, truncated, s_spot, p
 
 
 def _normal_equations(UV: np.ndarray, res: np.ndarray, wgt: np.ndarray,
