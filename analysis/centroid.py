@@ -698,11 +698,14 @@ def detect_spots(
     c_lo, c_hi = np.minimum.reduceat(cc[order], starts), np.maximum.reduceat(cc[order], starts) + 1
     peak_r, peak_c = rr[first[index - 1]], cc[first[index - 1]]
     xs, ys = peak_c.astype(float), peak_r.astype(float)
-    s0 = None
-    if window_px is None:
+    if window_px is None and method == "gauss":
         extent = np.maximum(r_hi - r_lo, c_hi - c_lo)[index - 1]
-        window_px, s0 = _window_from_probe(raw, resid, noise, xs, ys, extent, saturation, gain)
-    fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain, s0)
+        window_px, fit = _sized_gauss_fits(raw, resid, noise, xs, ys, extent, saturation, gain)
+    else:
+        if window_px is None:
+            extent = np.maximum(r_hi - r_lo, c_hi - c_lo)[index - 1]
+            window_px = _window_from_probe(raw, resid, noise, xs, ys, extent, saturation, gain)[0]
+        fit = _centroids(raw, resid, noise, xs, ys, window_px, method, saturation, gain)
     spots = _spots_from(raw, resid, window_px, method, saturation, fit)
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
@@ -727,6 +730,41 @@ def detect_spots(
     return spots
 
 
+def _window_for(s_spot: float) -> int:
+    """Odd window of +/-3.5 spot sigmas, 7 to 61 px: it holds 99.95 % of a Gaussian's flux
+    along each axis and leaves a border for the background."""
+    return int(min(61, max(7, 2 * math.ceil(3.5 * s_spot) + 1)))
+
+
+def _probe_pick(count: int, probe: int = 32) -> np.ndarray:
+    """Up to `probe` indices spread evenly through a list of count spots."""
+    return np.unique(np.linspace(0, count - 1, min(probe, count)).astype(int))
+
+
+def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
+                      extent: np.ndarray, saturation: float | None,
+                      gain: float | None) -> tuple[int, tuple[np.ndarray, ...]]:
+    """Gaussian fits of every spot in a window of +/-3.5 fitted spot sigmas (_window_for).
+
+    The first window comes from the second moments of up to 32 spots (in a window of their
+    detected size plus a pixel each side); all spots are fitted in it. When the median fitted
+    sigma asks for another window, all are fitted once more in that one, starting from the
+    first fits. Returns the window and the fits (as _gauss_fit_batch).
+    """
+    pick = _probe_pick(len(xs))
+    guess = int(min(61, max(7, int(np.median(extent[pick])) + 2))) | 1
+    win = _fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation)
+    s_mom = float(np.median(_moment_start(win, noise, guess, None)[:, 3]))
+    window = _window_for(s_mom)
+    fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation)
+    ok = fit[6] & ~fit[7]
+    s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
+    need = _window_for(s_spot)
+    if need == window:
+        return window, fit
+    return need, _gauss_fit_batch(resid, noise, xs, ys, need, gain, raw=raw, saturation=saturation, p0=fit[9])
+
+
 def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
                        extent: np.ndarray, saturation: float | None, gain: float | None,
                        probe: int = 32) -> tuple[int, float | None]:
@@ -735,7 +773,7 @@ def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.
     extent: the larger side of each spot's detected component (px), the first guess.
     Returns the window and the median fitted spot sigma (None when no probe fit converged),
     a start for the fits of all the spots."""
-    pick = np.unique(np.linspace(0, len(xs) - 1, min(probe, len(xs))).astype(int))
+    pick = _probe_pick(len(xs), probe)
     sizes = extent[pick]
     window = int(min(61, max(7, int(np.median(sizes)) + 2))) | 1
     need = window
@@ -747,7 +785,7 @@ def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.
                                saturation=saturation, max_iter=6, tol=1e-2, covariance=False)
         ok = fit[6] & ~fit[7]
         s_spot = float(np.median(fit[8][ok])) if ok.any() else None
-        need = int(min(61, max(7, 2 * math.ceil(3.5 * (s_spot or 1.0)) + 1)))
+        need = _window_for(s_spot or 1.0)
         if need <= window:
             break
         window = need
