@@ -629,11 +629,22 @@ def _spots_from(raw: np.ndarray, resid: np.ndarray, window_px: int, method: str,
     bits = (np.where(conv, 0, SpotFlag.NOT_CONVERGED.value) | np.where(trunc, SpotFlag.TRUNCATED.value, 0)
             | np.where(saturated, SpotFlag.SATURATED.value, 0) | np.where(bad, SpotFlag.BAD_PIXEL.value, 0))
     flag_of = {int(b): SpotFlag(int(b)) for b in np.unique(bits)}
-    spots = [Spot(x=x, y=y, sigma_x=a, sigma_y=b, flux=f, peak=pk, snr=q, flags=flag_of[fl])
-             for x, y, a, b, f, pk, q, fl in zip(cx.tolist(), cy.tolist(), np.asarray(sx, float).tolist(),
-                                                  np.asarray(sy, float).tolist(), np.asarray(flux, float).tolist(),
-                                                  peak.tolist(), np.asarray(snr, float).tolist(), bits.tolist())]
-    return spots
+    rows = zip(cx.tolist(), cy.tolist(), np.asarray(sx, float).tolist(), np.asarray(sy, float).tolist(),
+               np.asarray(flux, float).tolist(), peak.tolist(), np.asarray(snr, float).tolist(),
+               [flag_of[b] for b in bits.tolist()])
+    return [_new_spot(r) for r in rows]
+
+
+_SPOT_FIELDS = ("x", "y", "sigma_x", "sigma_y", "flux", "peak", "snr", "flags")
+
+
+def _new_spot(values: tuple) -> Spot:
+    """A Spot from its field values in order, without the frozen dataclass's per-field
+    object.__setattr__ calls (a third of the cost of a whole frame's spots otherwise); the
+    fields are plain Python floats and a SpotFlag, as Spot(...) would hold."""
+    spot = object.__new__(Spot)
+    spot.__dict__.update(zip(_SPOT_FIELDS, values))
+    return spot
 
 
 def detect_spots(
@@ -687,11 +698,16 @@ def detect_spots(
     index = np.nonzero(areas >= min_area_px)[0] + 1
     if index.size == 0:
         return []
-    # Brightest smoothed pixel of each component (one sort of the above-threshold pixels).
-    order = np.lexsort((-sm.ravel()[flat], lab_of))
-    starts = np.flatnonzero(np.r_[True, lab_of[order][1:] != lab_of[order][:-1]])
-    first = order[starts]
+    # Pixels grouped by component (a stable sort keeps raster order inside each), then the
+    # brightest smoothed pixel of each (the first in raster order among equals).
+    order = np.argsort(lab_of, kind="stable")
+    lab_sorted = lab_of[order]
+    starts = np.flatnonzero(np.r_[True, lab_sorted[1:] != lab_sorted[:-1]])
     ends = np.r_[starts[1:], order.size]
+    v_sorted = sm.ravel()[flat[order]]
+    group_max = np.maximum.reduceat(v_sorted, starts)
+    at_max = v_sorted == np.repeat(group_max, ends - starts)
+    first = order[np.minimum.reduceat(np.where(at_max, np.arange(order.size), order.size), starts)]
     # Bounding boxes of the components from the same sort (labels 1..n, in order).
     rr, cc = np.divmod(flat, sm.shape[1])
     r_lo, r_hi = np.minimum.reduceat(rr[order], starts), np.maximum.reduceat(rr[order], starts) + 1
@@ -741,6 +757,28 @@ def _probe_pick(count: int, probe: int = 32) -> np.ndarray:
     return np.unique(np.linspace(0, count - 1, min(probe, count)).astype(int))
 
 
+def _moment_sigma(win: _Windows, noise: float, m: int) -> float:
+    """Median spot sigma of the windows from second moments of the positive excess over the
+    border background, less what clipped noise adds: each pixel's max(0, noise) has mean
+    noise / sqrt(2 pi), spread evenly over the window (mean of the half-normal distribution)."""
+    b = _moment_start(win, noise, m, None)[:, 5]
+    pos = _clip(win.data - b[:, None, None], 0, None) * win.wgt
+    e = noise / math.sqrt(2.0 * math.pi)
+    tot = pos.sum(axis=(1, 2)) - e * win.wgt.sum(axis=(1, 2))
+    good = tot > 0
+    if not good.any():
+        return 1.0
+    m2 = np.zeros(len(b))
+    for axis, coords in ((1, win.cols), (2, win.rows)):  # summing rows gives column profiles
+        prof = pos.sum(axis=axis)
+        w_prof = win.wgt.sum(axis=axis)
+        c = ((prof * coords).sum(1) - e * (w_prof * coords).sum(1)) / np.where(good, tot, 1.0)
+        d2 = (coords - c[:, None]) ** 2
+        m2 += ((prof * d2).sum(1) - e * (w_prof * d2).sum(1)) / np.where(good, tot, 1.0)
+    s2 = np.maximum(m2[good] / 2.0 - 1.0 / 12.0, 0.09)
+    return float(np.median(np.sqrt(s2)))
+
+
 def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
                       extent: np.ndarray, saturation: float | None,
                       gain: float | None) -> tuple[int, tuple[np.ndarray, ...]]:
@@ -753,9 +791,8 @@ def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.n
     """
     pick = _probe_pick(len(xs))
     guess = int(min(61, max(7, int(np.median(extent[pick])) + 2))) | 1
-    win = _fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation)
-    s_mom = float(np.median(_moment_start(win, noise, guess, None)[:, 3]))
-    window = _window_for(s_mom)
+    window = _window_for(_moment_sigma(_fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation),
+                                       noise, guess))
     fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation)
     ok = fit[6] & ~fit[7]
     s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
@@ -790,6 +827,10 @@ def _window_from_probe(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.
             break
         window = need
     return need, s_spot
+
+
+_NEIGH_DR = np.array([-1, -1, -1, 0, 0, 1, 1, 1])  # the 8 neighbours of a pixel
+_NEIGH_DC = np.array([-1, 0, 1, -1, 1, -1, 0, 1])
 
 
 def repair_isolated_pixels(
@@ -852,8 +893,10 @@ def repair_isolated_pixels(
     bad = hot | dead
     if not bad.any():
         return resid, none
-    neigh = np.stack([at(dr, dc)[bad] for dr in (-1, 0, 1) for dc in (-1, 0, 1) if dr or dc], axis=1)
-    med = np.median(neigh, axis=1)
+    rb, cb = rr[bad], cc[bad]
+    neigh = pixels[_clip(rb[:, None] + _NEIGH_DR, 0, h - 1) * w + _clip(cb[:, None] + _NEIGH_DC, 0, w - 1)]
+    neigh.sort(axis=1)
+    med = (neigh[:, 3] + neigh[:, 4]) / 2.0  # the median of 8 values, as np.median gives it
     out = img.copy() if copy or img is not resid else img
     idx = (rr[bad], cc[bad])
     out[idx] = med
