@@ -464,21 +464,29 @@ def _gauss_fit_batch(
         t_res = (data[sel] - t_model) * wgt[sel]
         t_cost = np.einsum("nij,nij->n", t_res, t_res)
         better = t_cost <= cost[sel]
-        ok = idx[better]
-        if ok.size == n:  # every spot active and improved: take the trial arrays whole
+        every = bool(better.all())
+        ok = idx if every else idx[better]
+        if every and ok.size == n:  # every spot active and improved: take the trial arrays whole
             moved = np.abs(trial - p)
             p, cost, UV, res = trial, t_cost, t_UV, t_res
+        elif every:
+            moved = np.abs(trial - p[ok])
+            p[ok], cost[ok], UV[ok], res[ok] = trial, t_cost, t_UV, t_res
         else:
             moved = np.abs(trial[better] - p[ok])
             p[ok] = trial[better]
             cost[ok] = t_cost[better]
             UV[ok], res[ok] = t_UV[better], t_res[better]
         lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
-        lam[idx[~better]] *= 10.0
         # Converged when the centre moves less than tol = 1e-4 px (a small fraction of any
         # centroid uncertainty) and the flux by less than tol of itself.
         small = (moved[:, 1] < tol) & (moved[:, 2] < tol) & (moved[:, 0] < tol * p[ok, 0] + 1e-9)
         done = ok[small]
+        if every:  # no step refused: nothing is stuck
+            converged[done] = True
+            active[done] = False
+            continue
+        lam[idx[~better]] *= 10.0
         converged[done] = True
         rej = idx[~better]
         # At the minimum to rounding (no step lowers the cost by more than 1e-9 of it), or the

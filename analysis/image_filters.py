@@ -102,8 +102,8 @@ def label_sparse(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
         return flat, np.zeros(0, dtype=np.intp), 0
     col = flat % w
     m_flat = m.ravel()
-    where = np.empty(h * w, dtype=np.intp)  # position in `flat`, valid at foreground pixels only
-    where[flat] = np.arange(n_px)
+    where = np.empty(h * w, dtype=np.int32)  # position in `flat`, valid at foreground pixels only
+    where[flat] = np.arange(n_px, dtype=np.int32)
     last = h * w - 1
     a_list, b_list = [], []
     # Forward neighbours only (each pair once): right, and the three below.
