@@ -8,15 +8,18 @@ Methods (published):
   consistent estimator of a Gaussian sigma; Rousseeuw & Croux, JASA 88:1273, 1993), iterated
   with 3-sigma clipping (common practice in astronomical source extraction).
 - Detection: threshold of a matched-filter (Gaussian-smoothed) image in units of its own noise,
-  8-connected components by union-find labelling of the foreground pixels (Rosenfeld &
-  Pfaltz 1966; common practice in source extraction), in analysis.image_filters.
+  8-connected components by union-find labelling of the foreground's runs (Rosenfeld &
+  Pfaltz 1966; common practice in source extraction). Smoothing and labelling are plain numpy
+  (analysis.image_filters), and so is the normal CDF of the Gaussian fit (analysis.normal_cdf):
+  this module imports no scipy, whose import alone costs more than analysing a frame.
 - Centre of mass: background-subtracted, in a square window re-centred until it stops moving;
   its variance is the noise propagated through the first moment (e.g. Auer & van Altena,
   AJ 83:531, 1978; Thomas, Fusco et al., MNRAS 371:323, 2006).
 - Gaussian fit: least squares of a pixel-integrated 2D Gaussian plus a constant, which is the
   maximum-likelihood estimate in Gaussian noise and reaches the Cramer-Rao bound
   (Winick, JOSA A 3:1809, 1986; Mendez, Silva & Lobos, PASP 125:580, 2013). Its variance is
-  the inverse Fisher information evaluated at the fit.
+  the inverse Fisher information evaluated at the fit. The window spans +/-3.5 fitted spot
+  sigmas; its first guess comes from noise-corrected second moments of the spots.
 """
 
 from __future__ import annotations
@@ -677,7 +680,7 @@ def detect_spots(
     method "com" (iterated windowed centre of mass) or "gauss" (pixel-integrated Gaussian fit).
     The default "gauss" is the most precise (it reaches the Cramer-Rao bound). window_px should
     span about three FWHM of the spot; None sizes it from the spots themselves
-    (spot_window_px). gain (DN per electron), when given,
+    (+/-3.5 fitted spot sigmas). gain (DN per electron), when given,
     adds shot noise to the per-spot variance. A component with two separated peaks, or larger
     than max_area_px (default: 4 windows), is flagged MERGED. Hot and dead pixels are repaired
     first (repair_isolated_pixels) unless repair_bad_pixels is False; saturation is judged on
