@@ -297,7 +297,7 @@ def _gather(img: np.ndarray, index: np.ndarray) -> np.ndarray:
     return flat[index]
 
 
-def _clip(a, lo, hi):  # type: ignore[no-untyped-def]
+def _clip(a: np.ndarray, lo: np.ndarray | float | None, hi: np.ndarray | float | None) -> np.ndarray:
     """np.clip without its dispatch overhead (it dominates on the small arrays of a fit)."""
     if lo is not None:
         a = np.maximum(a, lo)
