@@ -96,6 +96,8 @@ def _clipped_stats(values: np.ndarray, clip: float = 3.0, iterations: int = 3) -
     and right of the median), as np.median would give them.
     """
     v = np.sort(np.asarray(values, dtype=np.float64).ravel())
+    if v.size == 0:
+        raise ValueError("no pixels to estimate a background from: the image (or tile) is empty")
     lo, hi = 0, v.size
     med = _sorted_median(v, lo, hi)
     sig = _MAD_TO_SIGMA * _sorted_mad(v, lo, hi, med)
