@@ -770,24 +770,29 @@ def _probe_pick(count: int, probe: int = 32) -> np.ndarray:
     return np.unique(np.linspace(0, count - 1, min(probe, count)).astype(int))
 
 
-def _moment_sigma(win: _Windows, noise: float, m: int) -> float:
+def _moment_sigma(win: _Windows, noise: float) -> float:
     """Median spot sigma of the windows from second moments of the positive excess over the
     border background, less what clipped noise adds: each pixel's max(0, noise) has mean
     noise / sqrt(2 pi), spread evenly over the window (mean of the half-normal distribution)."""
-    b = _moment_start(win, noise, m, None)[:, 5]
-    pos = _clip(win.data - b[:, None, None], 0, None) * win.wgt
+    data, wgt = win.data, win.wgt
+    bsum = data[:, 0].sum(1) + data[:, -1].sum(1) + data[:, 1:-1, 0].sum(1) + data[:, 1:-1, -1].sum(1)
+    bcnt = wgt[:, 0].sum(1) + wgt[:, -1].sum(1) + wgt[:, 1:-1, 0].sum(1) + wgt[:, 1:-1, -1].sum(1)
+    b = _clip(bsum / np.maximum(bcnt, 1.0), -3 * noise, 3 * noise)
+    pos = _clip(data - b[:, None, None], 0, None)
+    pos *= wgt
     e = noise / math.sqrt(2.0 * math.pi)
-    tot = pos.sum(axis=(1, 2)) - e * win.wgt.sum(axis=(1, 2))
+    m = data.shape[1]
+    ar = np.arange(m, dtype=float)
+    tot = pos.sum(axis=(1, 2)) - e * wgt.sum(axis=(1, 2))
     good = tot > 0
     if not good.any():
         return 1.0
+    safe = np.where(good, tot, 1.0)
     m2 = np.zeros(len(b))
-    for axis, coords in ((1, win.cols), (2, win.rows)):  # summing rows gives column profiles
-        prof = pos.sum(axis=axis)
-        w_prof = win.wgt.sum(axis=axis)
-        c = ((prof * coords).sum(1) - e * (w_prof * coords).sum(1)) / np.where(good, tot, 1.0)
-        d2 = (coords - c[:, None]) ** 2
-        m2 += ((prof * d2).sum(1) - e * (w_prof * d2).sum(1)) / np.where(good, tot, 1.0)
+    for axis in (1, 2):  # summing rows gives column profiles, then row profiles
+        prof = pos.sum(axis=axis) - e * wgt.sum(axis=axis)  # window coordinates 0..m-1
+        c = (prof @ ar) / safe
+        m2 += (prof * (ar - c[:, None]) ** 2).sum(1) / safe
     s2 = np.maximum(m2[good] / 2.0 - 1.0 / 12.0, 0.09)
     return float(np.median(np.sqrt(s2)))
 
@@ -805,7 +810,7 @@ def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.n
     pick = _probe_pick(len(xs))
     guess = int(min(61, max(7, int(np.median(extent[pick])) + 2))) | 1
     window = _window_for(_moment_sigma(_fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation),
-                                       noise, guess))
+                                       noise))
     fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation)
     ok = fit[6] & ~fit[7]
     s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
