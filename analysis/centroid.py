@@ -386,21 +386,25 @@ def _fit_windows(resid: np.ndarray, xs: np.ndarray, ys: np.ndarray, m: int, mask
 def _moment_start(win: _Windows, noise: float, m: int, s0: np.ndarray | None) -> np.ndarray:
     """Start (flux, x, y, sx, sy, b) of the fits: background from the window's border, centre
     and (unless s0 is given) sigma from the moments of the positive excess."""
-    data, wgt, rows, cols = win.data, win.wgt, win.rows, win.cols
+    data, wgt = win.data, win.wgt
     n = data.shape[0]
-    border = np.concatenate([data[:, 0, :], data[:, -1, :], data[:, :, 0], data[:, :, -1]], axis=1)
-    bw = np.concatenate([wgt[:, 0, :], wgt[:, -1, :], wgt[:, :, 0], wgt[:, :, -1]], axis=1)
-    b = np.where(bw.sum(1) > 0, (border * bw).sum(1) / np.maximum(bw.sum(1), 1), 0.0)
+    # The four sides of the border (its corners counted twice, as two sides hold them).
+    bsum = data[:, 0].sum(1) + data[:, -1].sum(1) + data[:, :, 0].sum(1) + data[:, :, -1].sum(1)
+    bcnt = wgt[:, 0].sum(1) + wgt[:, -1].sum(1) + wgt[:, :, 0].sum(1) + wgt[:, :, -1].sum(1)
+    b = np.where(bcnt > 0, bsum / np.maximum(bcnt, 1), 0.0)
     b = _clip(b, -3 * noise, 3 * noise)
-    pos = _clip(data - b[:, None, None], 0, None) * wgt
-    tot = np.maximum(pos.sum(axis=(1, 2)), 1e-12)
-    px = (pos.sum(axis=1) * cols).sum(1) / tot
-    py = (pos.sum(axis=2) * rows).sum(1) / tot
+    excess = data - b[:, None, None]
+    excess *= wgt
+    pos = np.maximum(excess, 0.0)  # wgt is 0 or 1: the clipped excess of the used pixels
+    col_prof = pos.sum(axis=1)
+    tot = np.maximum(col_prof.sum(1), 1e-12)
+    px = (col_prof * win.cols).sum(1) / tot
+    py = (pos.sum(axis=2) * win.rows).sum(1) / tot
     if s0 is None:
-        s0 = np.sqrt(np.maximum((pos.sum(axis=1) * (cols - px[:, None]) ** 2).sum(1) / tot - 1 / 12, 0.09))
+        s0 = np.sqrt(np.maximum((col_prof * (win.cols - px[:, None]) ** 2).sum(1) / tot - 1 / 12, 0.09))
     s0 = _clip(np.broadcast_to(np.asarray(s0, float), (n,)), 0.3, m / 3.0)
     x0, y0 = win.x0, win.y0
-    return np.column_stack([np.maximum(((data - b[:, None, None]) * wgt).sum(axis=(1, 2)), 1e-9),
+    return np.column_stack([np.maximum(excess.sum(axis=(1, 2)), 1e-9),
                             _clip(px, x0 - 0.5, x0 + m - 0.5), _clip(py, y0 - 0.5, y0 + m - 0.5),
                             s0, s0, b])
 
