@@ -225,3 +225,53 @@ def test_hot_pixel_beside_a_sharp_spot_is_repaired_and_the_spot_kept():
     spots = detect_spots(clean, window_px=7)
     assert len(spots) == 1 and spots[0].ok
     assert spots[0].x == pytest.approx(20.3, abs=0.05)
+
+
+@pytest.mark.parametrize("s", [0.9, 1.6, 2.4])
+def test_window_spans_seven_fitted_sigmas(s):
+    # The automatic window is the odd width holding +/-3.5 spot sigmas (99.95 % of a Gaussian's
+    # flux along each axis, common practice), chosen from the fits, not from the first guess:
+    # whichever window the moment guess picks, the fitted sigma decides (refitting if needed).
+    # The fits must also match the truth to the noise-limited precision (5 sigma of ~0.01 px).
+    from analysis import centroid as C
+
+    rng = np.random.default_rng(int(s * 10))
+    truth = [(x + rng.uniform(-0.5, 0.5), y + rng.uniform(-0.5, 0.5), 20000.0)
+             for y in np.linspace(30, 170, 5) for x in np.linspace(30, 230, 6)]
+    img = _frame(rng, truth, shape=(200, 260), s=s)
+    windows = []
+    real = C._gauss_fit_batch
+
+    def spy(*args, **kwargs):
+        windows.append(args[4])
+        return real(*args, **kwargs)
+
+    C._gauss_fit_batch = spy
+    try:
+        spots = detect_spots(img)
+    finally:
+        C._gauss_fit_batch = real
+    assert windows[-1] == 2 * math.ceil(3.5 * s) + 1
+    pos = np.array([[p.x, p.y] for p in spots])
+    tr = np.array([[x, y] for x, y, _ in truth])
+    d = np.hypot(pos[:, None, 0] - tr[None, :, 0], pos[:, None, 1] - tr[None, :, 1]).min(axis=0)
+    assert d.max() < 0.05 and all(p.ok for p in spots)
+
+
+def test_fit_from_a_given_start_reaches_the_same_minimum():
+    # The refit after a window change starts from the first fits; least squares has one
+    # minimum here, so the start must not matter beyond the 1e-4 px convergence tolerance.
+    from analysis.centroid import _gauss_fit_batch
+
+    rng = np.random.default_rng(8)
+    truth = [(x + rng.uniform(-0.5, 0.5), 50.0 + rng.uniform(-0.5, 0.5), 8000.0) for x in (30.0, 60.0, 90.0)]
+    img = _frame(rng, truth, shape=(100, 120), s=1.2)
+    xs = np.array([30.0, 60.0, 90.0])
+    ys = np.full(3, 50.0)
+    resid = img - 100.0
+    wide = _gauss_fit_batch(resid, 5.0, xs, ys, 13, None)
+    direct = _gauss_fit_batch(resid, 5.0, xs, ys, 9, None)
+    restarted = _gauss_fit_batch(resid, 5.0, xs, ys, 9, None, p0=wide[9])
+    assert np.all(direct[6]) and np.all(restarted[6])
+    np.testing.assert_allclose(restarted[0], direct[0], atol=2e-4)
+    np.testing.assert_allclose(restarted[1], direct[1], atol=2e-4)
