@@ -241,6 +241,27 @@ def _key_words(key: str) -> list[int]:
     return [int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4)]
 
 
+
+@dataclass(frozen=True)
+class _Patch:
+    """A float32 map that is zero outside rows x cols (the box around its non-zero pixels)."""
+
+    rows: slice
+    cols: slice
+    values: np.ndarray
+
+    @classmethod
+    def of(cls, full: np.ndarray) -> "_Patch":
+        nz_rows = np.flatnonzero(full.any(axis=1))
+        nz_cols = np.flatnonzero(full.any(axis=0))
+        if not len(nz_rows):
+            return cls(slice(0, 0), slice(0, 0), np.zeros((0, 0), dtype=np.float32))
+        rows = slice(int(nz_rows[0]), int(nz_rows[-1]) + 1)
+        cols = slice(int(nz_cols[0]), int(nz_cols[-1]) + 1)
+        values = np.ascontiguousarray(full[rows, cols], dtype=np.float32)
+        values.setflags(write=False)
+        return cls(rows, cols, values)
+
 class CameraRenderer:
     """Frames of one simulated camera.
 
@@ -315,9 +336,11 @@ class CameraRenderer:
         """Fraction of each pixel's signal that comes from the source (0 plate .. 1 source)."""
         return self._maps(scene)[0]
 
-    def _maps(self, scene: SceneState) -> tuple[np.ndarray, np.ndarray | None]:
-        """(source fraction, gain x fraction as float32 or None for a uniform fraction of 1),
-        cached per target and pose."""
+    def _maps(self, scene: SceneState) -> tuple[np.ndarray, _Patch | None]:
+        """(source fraction, gain x fraction as a float32 patch, or None for a uniform fraction
+        of 1), cached per target and pose. The patch covers only where the fraction is not zero:
+        a single pinhole's spot is a few hundred pixels of a frame, and a scan renders thousands
+        of frames of it."""
         target = scene.target
         key = (target, scene.az_deg, scene.el_deg, scene.collimator_focal_mm)
         cached = self._patterns.get(key)
@@ -333,11 +356,10 @@ class CameraRenderer:
             if isinstance(target, (PinholeGrid, SinglePinhole)):
                 self._add_pinholes(pattern, scene, target, 1.0)
         pattern.setflags(write=False)
-        gain_pattern = None
+        patch = None
         if not isinstance(target, OpenAperture):
-            gain_pattern = (self.gain_map * pattern).astype(np.float32)
-            gain_pattern.setflags(write=False)
-        entry = (pattern, gain_pattern)
+            patch = _Patch.of(self.gain_map * pattern)
+        entry = (pattern, patch)
         self._patterns[key] = entry
         if len(self._patterns) > self._cache_size:
             self._patterns.popitem(last=False)
@@ -413,16 +435,18 @@ class CameraRenderer:
 
     def _mean_into(self, scene: SceneState, buf: np.ndarray) -> None:
         """Add the expected signal through FPN (offset + gain x clean) to `buf` (float32)."""
-        pattern, gain_pattern = self._maps(scene)
+        pattern, patch = self._maps(scene)
         plate, contrast = self._factors(scene)
         tmp = self._scratch
         buf += self._base32
-        if gain_pattern is None:                      # open aperture: the source everywhere
+        if patch is None:                             # open aperture: the source everywhere
             buf += np.multiply(self._gain32, np.float32(plate + contrast), out=tmp)
         else:
             buf += np.multiply(self._gain32, np.float32(plate), out=tmp)
-            if contrast:
-                buf += np.multiply(gain_pattern, np.float32(contrast), out=tmp)
+            if contrast and patch.values.size:
+                part = tmp[:patch.values.shape[0], :patch.values.shape[1]]
+                buf[patch.rows, patch.cols] += np.multiply(patch.values, np.float32(contrast),
+                                                           out=part)
 
     def render_mean(self, scene: SceneState) -> np.ndarray:
         """Expected value of each pixel before the ADC: clean signal through FPN (float32)."""
