@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import json
 import os
+from collections.abc import Callable
 from pathlib import Path
 
 import pytest
@@ -40,6 +41,23 @@ steps:
 """
 
 
+
+def run_checking_each_command(tmp_path: Path, runs: Path, monkeypatch: pytest.MonkeyPatch,
+                              check_before: Callable[[str], None]) -> int:
+    """Run RECIPE on the fast simulated bench, calling `check_before(command)` before every
+    command any transport sends; returns the exit code."""
+    for cls in Transport.__subclasses__():
+        if "_exchange" in cls.__dict__:
+            def wrapped(self, command, expect_reply, _original=cls.__dict__["_exchange"]):
+                check_before(command)
+                return _original(self, command, expect_reply)
+            monkeypatch.setattr(cls, "_exchange", wrapped)
+    station = tmp_path / "station.yaml"
+    station.write_text(fast_station_yaml("flush-bench", timeout_s=1.0), encoding="utf-8")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text(RECIPE, encoding="utf-8")
+    return main(["run", str(recipe), "--station", str(station), "--runs", str(runs), "--plain"])
+
 def test_each_flush_at_once_event_is_synced_before_the_next_command(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     synced: dict[str, int] = {}
@@ -54,8 +72,6 @@ def test_each_flush_at_once_event_is_synced_before_the_next_command(
     monkeypatch.setattr(events_mod.os, "fsync", fsync)
     monkeypatch.setattr(runfolder_mod, "durable_for", lambda clock: True)  # as on a real clock
     checked = {"commands": 0, "urgent": 0, "read": 0, "last_urgent_end": 0}
-    real_exchange = {cls: cls.__dict__["_exchange"] for cls in Transport.__subclasses__()
-                     if "_exchange" in cls.__dict__}
     runs = tmp_path / "runs"
 
     def check_before(command: str) -> None:
@@ -79,18 +95,7 @@ def test_each_flush_at_once_event_is_synced_before_the_next_command(
             f"a flush-at-once event is not on disk before command {command!r}")
         checked["commands"] += 1
 
-    for cls, original in real_exchange.items():
-        def wrapped(self, command, expect_reply, _original=original):
-            check_before(command)
-            return _original(self, command, expect_reply)
-        monkeypatch.setattr(cls, "_exchange", wrapped)
-
-    station = tmp_path / "station.yaml"
-    station.write_text(fast_station_yaml("flush-bench", timeout_s=1.0), encoding="utf-8")
-    recipe = tmp_path / "recipe.yaml"
-    recipe.write_text(RECIPE, encoding="utf-8")
-    code = main(["run", str(recipe), "--station", str(station), "--runs", str(runs), "--plain"])
-    assert code == 0
+    assert run_checking_each_command(tmp_path, runs, monkeypatch, check_before) == 0
     # Every command after the log opened was checked, and the urgent events were many.
     assert checked["commands"] > 20
     assert checked["urgent"] >= 20
@@ -113,19 +118,7 @@ def test_on_simulated_time_every_line_is_written_before_the_next_command_none_fs
             assert data.endswith(b"\n"), f"a torn event line before command {command!r}"
             seen["commands"] += 1
 
-    for cls in Transport.__subclasses__():
-        if "_exchange" in cls.__dict__:
-            def wrapped(self, command, expect_reply, _original=cls.__dict__["_exchange"]):
-                check_before(command)
-                return _original(self, command, expect_reply)
-            monkeypatch.setattr(cls, "_exchange", wrapped)
-
-    station = tmp_path / "station.yaml"
-    station.write_text(fast_station_yaml("flush-bench", timeout_s=1.0), encoding="utf-8")
-    recipe = tmp_path / "recipe.yaml"
-    recipe.write_text(RECIPE, encoding="utf-8")
-    code = main(["run", str(recipe), "--station", str(station), "--runs", str(runs), "--plain"])
-    assert code == 0
+    assert run_checking_each_command(tmp_path, runs, monkeypatch, check_before) == 0
     assert seen["commands"] > 20
     run = str(next(runs.iterdir()).resolve())
     records = [n for n in fsynced if n.startswith(run)
