@@ -38,10 +38,8 @@ class _Server(socketserver.ThreadingTCPServer):
 
     def __init__(self, handler: Handler, name: str, terminator: bytes, line_end: bytes) -> None:
         super().__init__(("127.0.0.1", 0), _LineHandler)
-        self.line_end = line_end
-        self.line_handler = handler
+        self.answer = LineAnswerer(handler, name, terminator, line_end)
         self.name = name
-        self.terminator = terminator
         self.connections: set[socket.socket] = set()
         self.connections_lock = threading.Lock()
 
@@ -71,29 +69,46 @@ class _LineHandler(socketserver.StreamRequestHandler):
                 return
             if not raw:
                 return
-            if self.server.line_end != b"\n" and not raw.endswith(self.server.line_end):
-                continue  # not this instrument's line ending: it keeps waiting, as a real one
-            line = raw.decode("ascii", "replace").strip("\r\n").strip()
-            if not line:
-                continue
-            try:
-                out = self.server.line_handler(line)
-            except Exception as exc:  # a simulator bug must show up, not kill the thread quietly
-                log.exception("%s: handler failed on %r", self.server.name, line)
-                out = Response(f'ERR 300,"simulator error: {type(exc).__name__}"')
-            response = out if isinstance(out, Response) else Response(out)
-            data = response.raw
-            if data is None and response.text is not None:
-                data = response.text.encode("ascii", "replace") + self.server.terminator
+            data, close = self.server.answer(raw)
             try:
                 if data:
                     self.wfile.write(data)
                     self.wfile.flush()
-                if response.close:
+                if close:
                     self.connection.shutdown(socket.SHUT_RDWR)
                     return
             except OSError:
                 return
+
+
+class LineAnswerer:
+    """What the server does with one received line, apart from the socket: the bytes to send
+    back (None: no reply) and whether to close the connection after them. A server and an
+    in-process link (`sim+local`) share it, so the two answer every line and fault alike."""
+
+    def __init__(self, handler: Handler, name: str, terminator: bytes = b"\n",
+                 line_end: bytes = b"\n") -> None:
+        self.line_handler = handler
+        self.name = name
+        self.terminator = terminator
+        self.line_end = line_end
+
+    def __call__(self, raw: bytes) -> tuple[bytes | None, bool]:
+        if self.line_end != b"\n" and not raw.endswith(self.line_end):
+            return None, False  # not this instrument's line ending: it keeps waiting, as a real one
+        line = raw.decode("ascii", "replace").strip("\r\n").strip()
+        if not line:
+            return None, False
+        try:
+            out = self.line_handler(line)
+        except Exception as exc:  # a simulator bug must show up, not kill the thread quietly
+            log.exception("%s: handler failed on %r", self.name, line)
+            out = Response(f'ERR 300,"simulator error: {type(exc).__name__}"')
+        response = out if isinstance(out, Response) else Response(out)
+        data = response.raw
+        if data is None and response.text is not None:
+            data = response.text.encode("ascii", "replace") + self.terminator
+        return data or None, response.close
 
 
 class LineServer:

@@ -23,7 +23,7 @@ from drivers.stage_scpi import ScpiStage
 from drivers.wheel_scpi import ScpiWheel
 from simulators.bench import SimBench
 from simulators.faults import FaultRule
-from simulators.line_server import LineServer, Response
+from simulators.line_server import LineAnswerer, LineServer, Response
 
 Fields = Mapping[str, str]
 
@@ -72,6 +72,7 @@ class InstrumentProtocol:
                           for key, cap in self.commands.items()]
         self._headers = {header(cap.command).upper(): cap.command
                          for cap in self.commands.values()}
+        self._matched: dict[str, tuple[str, dict[str, str]]] = {}  # line -> (key, fields)
         self._handlers: dict[str, Callable[[Fields], Any]] = self._build()
         missing = set(self.commands) - set(self._handlers)
         if missing:
@@ -110,10 +111,10 @@ class InstrumentProtocol:
         """The reply line to one command line, in the declared dialect."""
         line = line.strip()
         try:
-            for key, request in self._requests:
-                m = request.fullmatch(line)
-                if m is not None:
-                    return self._answer(key, self._handlers[key](m.groupdict()))
+            found = self._matched.get(line) or self._match(line)
+            if found is not None:
+                key, fields = found
+                return self._answer(key, self._handlers[key](dict(fields)))
             head = line.split()[0].upper() if line.split() else ""
             if head in self._headers:
                 raise _Refused(ErrorCode.BAD_ARGUMENT,
@@ -122,6 +123,18 @@ class InstrumentProtocol:
         except _Refused as exc:
             self.last_error = (int(exc.code), str(exc))
             return self.dialect.refusal(exc.code, str(exc))
+
+    def _match(self, line: str) -> tuple[str, dict[str, str]] | None:
+        """The first declared request the line matches, remembered (a soak repeats a handful of
+        lines thousands of times; the table is cleared when it grows past 1,000 lines)."""
+        for key, request in self._requests:
+            m = request.fullmatch(line)
+            if m is not None:
+                if len(self._matched) >= 1000:
+                    self._matched.clear()
+                self._matched[line] = found = (key, m.groupdict())
+                return found
+        return None
 
     def _answer(self, key: str, value: Any) -> str | None:
         cap = self.commands[key]
@@ -309,6 +322,13 @@ def serve(protocol: InstrumentProtocol, name: str | None = None) -> LineServer:
     return LineServer(protocol, name=name or protocol.name,
                       terminator=d.read_termination.encode(),
                       line_end=d.write_termination.encode())
+
+
+def answerer(protocol: InstrumentProtocol, name: str | None = None) -> LineAnswerer:
+    """The far end of an in-process link to `protocol` (what its server does with a line)."""
+    d = protocol.dialect
+    return LineAnswerer(protocol, name or protocol.name, terminator=d.read_termination.encode(),
+                        line_end=d.write_termination.encode())
 
 
 class BenchServers:

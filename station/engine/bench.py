@@ -119,10 +119,11 @@ def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None
     """Connect every instrument; close them (and stop simulators) on the way out."""
     from drivers.recovery import RetryPolicy
     from drivers.registry import find_driver
-    from drivers.transport import open_transport
+    from drivers.transport import LocalTransport, ResourceInfo, open_transport
 
     with ExitStack() as stack:
         sim = None
+        servers = None
         ports: dict[str, int] = {}
         from station.engine.served import is_served
 
@@ -141,11 +142,19 @@ def open_bench(station: StationConfig, clock: Clock, *, events: EventSink | None
             if role == "camera":
                 continue
             resource = entry.resource
-            if resource.startswith("sim"):
-                resource = _sim_resource(resource, ports[role])
-            transport = open_transport(
-                resource, instrument=role, clock=clock, timeout_s=entry.timeout_s,
-                policy=RetryPolicy.from_mapping(entry.recovery), events=events)
+            link = dict(instrument=role, clock=clock, timeout_s=entry.timeout_s,
+                        policy=RetryPolicy.from_mapping(entry.recovery), events=events)
+            if resource == "sim+local" and servers is not None:
+                from simulators.servers import answerer
+
+                transport = LocalTransport(ResourceInfo("sim+local", "local", "local", role),
+                                           answer=answerer(servers.protocols[role], role),
+                                           read_termination="\n", write_termination="\n",
+                                           **link)
+            else:
+                if resource.startswith("sim"):
+                    resource = _sim_resource(resource, ports[role])
+                transport = open_transport(resource, **link)
             stack.callback(transport.close)
             cls = find_driver(entry.driver)
             built[role] = cls(transport, name=role, settings=entry.settings)

@@ -35,7 +35,7 @@ from sequences.yamlsource import (MarkedDict, Problem, SourceError, SourceRef, i
                                   load_yaml)
 
 ROLES = ("blackbody", "wheel", "stage", "camera")
-SIM_RESOURCES = ("sim", "sim+visa", "sim+serial")
+SIM_RESOURCES = ("sim", "sim+visa", "sim+serial", "sim+local")
 BUILTIN_DIR = Path(__file__).resolve().parent.parent / "data"
 DEFAULT_SIM_STATION = BUILTIN_DIR / "sim_station.yaml"
 COMMON_KEYS = {"driver", "resource", "timeout_s", "recovery"}

@@ -1,6 +1,8 @@
 """Transport failures: a timeout, a garbled reply, a truncated reply and a dropped connection each
 give an error naming the instrument (or are recovered by a bounded, logged retry). Back-off waits
-run on SimClock; reply timeouts use a short 0.2 s transport timeout to keep the file fast."""
+run on SimClock; reply timeouts use a short 0.2 s transport timeout to keep the file fast. Each
+fault is tried over pyvisa, over pyserial and over the in-process link (`sim+local`), which must
+fail and recover exactly as the two sockets do."""
 
 from __future__ import annotations
 
@@ -13,16 +15,22 @@ from drivers.blackbody_scpi import ScpiBlackbody
 from drivers.clock import SimClock
 from drivers.errors import InstrumentConnectionError, InstrumentReplyError, InstrumentTimeout
 from drivers.recovery import RetryPolicy
-from drivers.transport import open_transport
+from drivers.transport import LocalTransport, ResourceInfo, open_transport
+from simulators.servers import answerer
 from tests.drivers.conftest import BB_SETTINGS
 
-STYLES = ["visa", "serial"]
+STYLES = ["visa", "serial", "local"]
 
 
 def _bb(sim, style, policy=None, timeout_s=0.2):
-    t = open_transport(sim.servers.resource("blackbody", style), instrument="blackbody",
-                       clock=sim.clock, timeout_s=timeout_s, policy=policy,
-                       events=sim.events.append)
+    link = dict(instrument="blackbody", clock=sim.clock, timeout_s=timeout_s, policy=policy,
+                events=sim.events.append)
+    if style == "local":
+        t = LocalTransport(ResourceInfo("sim+local", "local", "local", "blackbody"),
+                           answer=answerer(sim.servers.protocols["blackbody"]),
+                           read_termination="\n", write_termination="\n", **link)
+    else:
+        t = open_transport(sim.servers.resource("blackbody", style), **link)
     return ScpiBlackbody(t, name="blackbody", settings=BB_SETTINGS)
 
 
