@@ -453,20 +453,41 @@ def _gauss_fit_batch(
     active = np.ones(n, dtype=bool)
     converged = np.zeros(n, dtype=bool)
     lo_in, hi_in = lo + 1e-9, hi - 1e-9
+    # The undamped J^T J of each spot where its fit ended by a small step: the Fisher
+    # information there (unit weights), so the covariance needs no further evaluation.
+    fisher = np.empty((n, 6, 6)) if covariance and not gain else None
+    have_fisher = np.zeros(n, dtype=bool)
     for _it in range(max_iter):
         if not active.any():
             break
         idx = np.nonzero(active)[0]
         sel = slice(None) if idx.size == n else idx  # views, not copies, while all are active
         A, g = _normal_equations(UV[sel], res[sel], wgt[sel], full[sel])
-        A_d = A  # damped in place: A is not used again
-        diag = np.einsum("nii->ni", A_d)  # a view on the diagonal
+        if fisher is not None:
+            fisher[sel] = A
+        diag = np.einsum("nii->ni", A)  # a view on the diagonal: A is damped in place
         diag *= 1.0 + lam[sel, None]
         try:
-            step = np.linalg.solve(A_d, g[:, :, None])[:, :, 0]
+            step = np.linalg.solve(A, g[:, :, None])[:, :, 0]
         except np.linalg.LinAlgError:
-            step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A_d, g)])
+            step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A, g)])
         trial = np.minimum(np.maximum(p[sel] + step, lo_in[sel]), hi_in[sel])
+        # Converged when the step moves the centre by less than tol = 1e-4 px (a small fraction
+        # of any centroid uncertainty) and the flux by less than tol of itself. Near the minimum
+        # a Gauss-Newton step is the distance left to it (and the next one quadratically
+        # smaller), so a step that small is taken without evaluating the model there.
+        moved = np.abs(trial - p[sel])
+        small = (moved[:, 1] < tol) & (moved[:, 2] < tol) & (moved[:, 0] < tol * trial[:, 0] + 1e-9)
+        if small.any():
+            done = idx[small]
+            p[done] = trial[small]
+            converged[done] = True
+            active[done] = False
+            have_fisher[done] = True
+            if small.all():
+                continue
+            idx, trial = idx[~small], trial[~small]
+            sel = idx
         # The trial's Jacobian factors come with its model (they share the erf pieces) and are
         # kept when the step is taken: one evaluation per iteration.
         t_model, t_UV = _SubBatch(trial, start[sel], m).model_uv()
@@ -476,33 +497,22 @@ def _gauss_fit_batch(
         every = bool(better.all())
         ok = idx if every else idx[better]
         if every and ok.size == n:  # every spot active and improved: take the trial arrays whole
-            moved = np.abs(trial - p)
             p, cost, UV, res = trial, t_cost, t_UV, t_res
         elif every:
-            moved = np.abs(trial - p[ok])
             p[ok], cost[ok], UV[ok], res[ok] = trial, t_cost, t_UV, t_res
         else:
-            moved = np.abs(trial[better] - p[ok])
             p[ok] = trial[better]
             cost[ok] = t_cost[better]
             UV[ok], res[ok] = t_UV[better], t_res[better]
         lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
-        # Converged when the centre moves less than tol = 1e-4 px (a small fraction of any
-        # centroid uncertainty) and the flux by less than tol of itself.
-        small = (moved[:, 1] < tol) & (moved[:, 2] < tol) & (moved[:, 0] < tol * p[ok, 0] + 1e-9)
-        done = ok[small]
         if every:  # no step refused: nothing is stuck
-            converged[done] = True
-            active[done] = False
             continue
-        lam[idx[~better]] *= 10.0
-        converged[done] = True
         rej = idx[~better]
+        lam[rej] *= 10.0
         # At the minimum to rounding (no step lowers the cost by more than 1e-9 of it), or the
         # damping has grown past any useful step.
         stuck = rej[(t_cost[~better] - cost[rej] <= 1e-9 * cost[rej]) | (lam[rej] > 1e6)]
         converged[stuck] = True
-        active[done] = False
         active[stuck] = False
     at_edge = ((p[:, 1] <= lo[:, 1] + 1e-6) | (p[:, 1] >= hi[:, 1] - 1e-6)
                | (p[:, 2] <= lo[:, 2] + 1e-6) | (p[:, 2] >= hi[:, 2] - 1e-6))
@@ -515,7 +525,12 @@ def _gauss_fit_batch(
         var = noise * noise + _clip(model - p[:, 5][:, None, None], 0, None) / gain
         A, _ = _normal_equations(UV, res, wgt / np.sqrt(var), np.ones(n, dtype=bool))
     else:
-        A, _ = _normal_equations(UV, res, wgt, full)
+        # The information of each fit ended by a small step is J^T J one step before its end
+        # (the step moved the centre by < tol); the others' is evaluated where they stopped.
+        A = fisher
+        rest = np.nonzero(~have_fisher)[0]
+        if rest.size:
+            A[rest] = _normal_equations(UV[rest], res[rest], wgt[rest], full[rest])[0]
         A = A / (noise * noise)
     cov = np.full((n, 6, 6), np.nan)
     try:
@@ -807,15 +822,19 @@ def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.n
     """Gaussian fits of every spot in a window of +/-3.5 fitted spot sigmas (_window_for).
 
     The first window comes from the second moments of up to 32 spots (in a window of their
-    detected size plus a pixel each side); all spots are fitted in it. When the median fitted
+    detected size plus a pixel each side); all spots are fitted in it, their sigma started at
+    the median of those moments. When the median fitted
     sigma asks for another window, all are fitted once more in that one, starting from the
     first fits. Returns the window and the fits (as _gauss_fit_batch).
     """
     pick = _probe_pick(len(xs))
     guess = int(min(61, max(7, int(np.median(extent[pick])) + 2))) | 1
-    window = _window_for(_moment_sigma(_fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation),
-                                       noise))
-    fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation)
+    s_moment = _moment_sigma(_fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation), noise)
+    window = _window_for(s_moment)
+    # The noise-corrected median sigma is a better start for every spot's sigma than each
+    # window's own second moment (which clipped noise inflates): one fit iteration fewer.
+    fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation,
+                           s0=np.full(xs.size, s_moment))
     ok = fit[6] & ~fit[7]
     s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
     need = _window_for(s_spot)
