@@ -30,6 +30,7 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
+from analysis.fast_median import median as _median
 from analysis.image_filters import bilinear, gaussian_smooth, label_sparse, maximum_3x3
 from analysis.normal_cdf import ndtr
 
@@ -374,7 +375,7 @@ def _fit_windows(resid: np.ndarray, xs: np.ndarray, ys: np.ndarray, m: int, mask
     if mask is not None:
         use &= ~_gather(mask, index)
     if raw is not None:  # leave out repaired (-inf) and saturated pixels of the raw frame
-        raw_win = _gather(raw, index)
+        raw_win = _gather_raw(raw, index)
         use &= np.isfinite(raw_win)
         if saturation is not None:
             use &= raw_win < saturation
@@ -649,7 +650,7 @@ def _spots_from(raw: np.ndarray, resid: np.ndarray, window_px: int, method: str,
     ar = np.arange(-half, half + 1)
     index = _window_index((h, w), yi[:, None] + ar[None, :], xi[:, None] + ar[None, :])
     peak = _gather(resid, index).max(axis=(1, 2))
-    raw_win = _gather(raw, index)
+    raw_win = _gather_raw(raw, index)
     saturated = (raw_win.max(axis=(1, 2)) >= saturation) if saturation is not None else np.zeros(cx.size, bool)
     # A repaired pixel biases a centre of mass anywhere in its window; the Gaussian fit leaves
     # it out, which only matters when it was the spot's core (within 1 px of the centre).
@@ -786,7 +787,9 @@ def _window_for(s_spot: float) -> int:
 
 def _probe_pick(count: int, probe: int = 32) -> np.ndarray:
     """Up to `probe` indices spread evenly through a list of count spots."""
-    return np.unique(np.linspace(0, count - 1, min(probe, count)).astype(int))
+    if count <= probe:
+        return np.arange(count)
+    return np.linspace(0, count - 1, probe).astype(int)  # strictly increasing: step > 1
 
 
 def _moment_sigma(win: _Windows, noise: float) -> float:
@@ -813,7 +816,7 @@ def _moment_sigma(win: _Windows, noise: float) -> float:
         c = (prof @ ar) / safe
         m2 += (prof * (ar - c[:, None]) ** 2).sum(1) / safe
     s2 = np.maximum(m2[good] / 2.0 - 1.0 / 12.0, 0.09)
-    return float(np.median(np.sqrt(s2)))
+    return _median(np.sqrt(s2))
 
 
 def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
@@ -828,7 +831,7 @@ def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.n
     first fits. Returns the window and the fits (as _gauss_fit_batch).
     """
     pick = _probe_pick(len(xs))
-    guess = int(min(61, max(7, int(np.median(extent[pick])) + 2))) | 1
+    guess = int(min(61, max(7, int(_median(extent[pick])) + 2))) | 1
     s_moment = _moment_sigma(_fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation), noise)
     window = _window_for(s_moment)
     # The noise-corrected median sigma is a better start for every spot's sigma than each
@@ -836,7 +839,7 @@ def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.n
     fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation,
                            s0=np.full(xs.size, s_moment))
     ok = fit[6] & ~fit[7]
-    s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
+    s_spot = _median(fit[8][ok]) if ok.any() else 1.0
     need = _window_for(s_spot)
     if need == window:
         return window, fit
@@ -944,14 +947,33 @@ def repair_isolated_pixels(
     return out, idx
 
 
-def _without(raw: np.ndarray, idx: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
-    """Raw frame with repaired pixels set to -inf: a hot pixel never reads as saturation, and a
+class _Repaired:
+    """The raw frame read as if its repaired pixels were -inf, without a copy of the frame:
+    only windows are ever read from it, and the repaired pixels are few."""
+
+    def __init__(self, raw: np.ndarray, flat: np.ndarray) -> None:
+        self.raw = raw
+        self.flat = np.sort(flat)  # flat indices of the repaired pixels
+        self.shape = raw.shape
+
+    def gather(self, index: np.ndarray) -> np.ndarray:
+        out = _gather(self.raw, index)
+        at = np.minimum(np.searchsorted(self.flat, index), self.flat.size - 1)
+        out[self.flat[at] == index] = -np.inf
+        return out
+
+
+def _without(raw: np.ndarray, idx: tuple[np.ndarray, np.ndarray]) -> np.ndarray | _Repaired:
+    """Raw frame with repaired pixels reading -inf: a hot pixel never reads as saturation, and a
     window holding one is flagged BAD_PIXEL."""
     if idx[0].size == 0:
         return raw
-    out = raw.copy()
-    out[idx] = -np.inf
-    return out
+    return _Repaired(raw, idx[0] * raw.shape[1] + idx[1])
+
+
+def _gather_raw(raw: np.ndarray | _Repaired, index: np.ndarray) -> np.ndarray:
+    """Raw pixels at flat indices, repaired ones as -inf."""
+    return raw.gather(index) if isinstance(raw, _Repaired) else _gather(raw, index)
 
 
 def _gauss_kernel_norm(sigma: float) -> float:

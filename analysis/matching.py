@@ -24,6 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from analysis.fast_median import median
 from analysis.neighbours import PointGrid, k_nearest, mutual_nearest, nearest_neighbour_distances
 
 __all__ = ["PatternTransform", "MatchResult", "match_points"]
@@ -137,7 +138,7 @@ def match_points(
         )
     if not (np.all(np.isfinite(det)) and np.all(np.isfinite(exp))):
         raise ValueError("detected and expected points must be finite numbers (no NaN or infinity)")
-    pitch = float(np.median(nearest_neighbour_distances(exp)))
+    pitch = median(nearest_neighbour_distances(exp))
     if pitch <= 0:
         raise ValueError("expected points contain duplicates (zero grid pitch); check the target definition")
     gate = gate_px if gate_px is not None else 0.3 * pitch
@@ -153,7 +154,7 @@ def match_points(
     #    paired only with the expected points nearest to it; each hypothesis scored on a fixed
     #    subset (the expected points nearest the pattern centre) by the count that find a
     #    detection within 0.45 pitch.
-    dmid = np.median(det, axis=0)
+    dmid = np.array([median(det[:, 0]), median(det[:, 1])])
     seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(3, len(det))]]
     k = min(n_candidates, len(exp))
     _, cand = k_nearest(exp, seeds, k)
