@@ -949,17 +949,18 @@ def repair_isolated_pixels(
 
 class _Repaired:
     """The raw frame read as if its repaired pixels were -inf, without a copy of the frame:
-    only windows are ever read from it, and the repaired pixels are few."""
+    only windows are ever read from it. A boolean image marks the repaired pixels (np.zeros
+    of a bool frame costs next to nothing until its pages are touched)."""
 
     def __init__(self, raw: np.ndarray, flat: np.ndarray) -> None:
         self.raw = raw
-        self.flat = np.sort(flat)  # flat indices of the repaired pixels
+        self.bad = np.zeros(raw.size, dtype=bool)
+        self.bad[flat] = True
         self.shape = raw.shape
 
     def gather(self, index: np.ndarray) -> np.ndarray:
         out = _gather(self.raw, index)
-        at = np.minimum(np.searchsorted(self.flat, index), self.flat.size - 1)
-        out[self.flat[at] == index] = -np.inf
+        out[self.bad[index]] = -np.inf
         return out
 
 
