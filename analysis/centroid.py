@@ -764,16 +764,21 @@ def detect_spots(
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
     # Two peaks in one component: only components holding two local maxima need the dip test.
+    # Local maxima: first against the left and right neighbours (few pixels pass), then only
+    # those against the other six.
     hh, ww = sm.shape
     sm_flat = sm.ravel()
     v = sm_flat[flat]
-    is_max = np.ones(flat.size, dtype=bool)
-    for dr in (-1, 0, 1):
-        row = _clip(rr + dr, 0, hh - 1) * ww
+    left = _clip(cc - 1, 0, ww - 1) - cc
+    right = _clip(cc + 1, 0, ww - 1) - cc
+    cand = np.flatnonzero((v >= sm_flat[flat + left]) & (v >= sm_flat[flat + right]))
+    vc, rc, cc_c = v[cand], rr[cand], cc[cand]
+    keep = np.ones(cand.size, dtype=bool)
+    for dr in (-1, 1):
+        row = _clip(rc + dr, 0, hh - 1) * ww
         for dc in (-1, 0, 1):
-            if dr or dc:
-                is_max &= v >= sm_flat[row + _clip(cc + dc, 0, ww - 1)]
-    n_max = np.bincount(lab_of[is_max], minlength=n + 1)
+            keep &= vc >= sm_flat[row + _clip(cc_c + dc, 0, ww - 1)]
+    n_max = np.bincount(lab_of[cand[keep]], minlength=n + 1)
     merged = areas[index - 1] > max_area_px
     for i in np.flatnonzero(~merged & (n_max[index] >= 2)).tolist():
         j = int(index[i]) - 1
