@@ -45,6 +45,7 @@ __all__ = [
 ]
 
 _MAD_TO_SIGMA = 1.4826  # 1 / Phi^-1(3/4): MAD -> sigma for Gaussian data.
+_REPAIR_K_SIGMA = 10.0  # hot/dead pixel candidates: this many noise sigmas from the background
 
 
 class SpotFlag(enum.Flag):
@@ -718,8 +719,9 @@ def detect_spots(
     # a threshold lowered by 2^-20 makes them a superset, each then judged on its float64 value.
     r32 = resid.astype(np.float32)
     if repair_bad_pixels:
-        cand = np.flatnonzero(np.abs(r32.ravel()) > np.float32(10.0 * noise * (1.0 - 2.0 ** -20)))
-        resid, fixed = _repair_candidates(resid, noise, cand, copy=False)  # resid is ours
+        k_rep = _REPAIR_K_SIGMA
+        cand = np.flatnonzero(np.abs(r32.ravel()) > np.float32(k_rep * noise * (1.0 - 2.0 ** -20)))
+        resid, fixed = _repair_candidates(resid, noise, cand, k_sigma=k_rep, copy=False)  # resid is ours
         raw = _without(raw, fixed)
         r32[fixed] = resid[fixed]
     if smooth_px > 0:
@@ -888,7 +890,7 @@ _NEIGH_DC = np.array([-1, 0, 1, -1, 1, -1, 0, 1])
 
 
 def repair_isolated_pixels(
-    resid: np.ndarray, noise: float, *, k_sigma: float = 10.0, min_spot_sigma_px: float = 0.5,
+    resid: np.ndarray, noise: float, *, k_sigma: float = _REPAIR_K_SIGMA, min_spot_sigma_px: float = 0.5,
     margin_sigma: float = 3.0, rel_tolerance: float = 0.05, copy: bool = True,
 ) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
     """Replace hot and dead pixels by their 8-neighbour median; spots, however sharp, stay.
@@ -922,7 +924,7 @@ def repair_isolated_pixels(
 
 
 def _repair_candidates(
-    resid: np.ndarray, noise: float, flat: np.ndarray, *, k_sigma: float = 10.0,
+    resid: np.ndarray, noise: float, flat: np.ndarray, *, k_sigma: float = _REPAIR_K_SIGMA,
     min_spot_sigma_px: float = 0.5, margin_sigma: float = 3.0, rel_tolerance: float = 0.05,
     copy: bool = True,
 ) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
