@@ -3,7 +3,8 @@
 Survives missing spots, extra spots (a hot pixel, a reflection) and an unknown small offset,
 roll and scale of the target. All points are (x, y) = (column, row) in pixels, arrays (N, 2).
 
-Method: translation hypotheses by voting (a few detected spots near the middle of the pattern
+Method: first the nominal place itself, refined as below; only when that leaves a point unpaired,
+translation hypotheses by voting (a few detected spots near the middle of the pattern
 paired with the expected points nearest to them, each hypothesis scored on a fixed-size subset
 by how many expected points then find a detected spot nearby, so the cost grows about linearly
 with the number of points; a generalised Hough / "alignment by voting" scheme, common practice in
@@ -20,6 +21,7 @@ centre of the expected pattern.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -209,9 +211,12 @@ def match_points(
     )
 
 
+_Refined = tuple[int, float, np.ndarray, tuple[complex, complex, complex]]
+
+
 def _vote_and_refine(det: np.ndarray, exp: np.ndarray, z_exp: np.ndarray, grid_det: PointGrid, pitch: float,
-                     max_offset_px: float | None, n_candidates: int, subset: int, refine
-                     ) -> tuple[int, float, np.ndarray, tuple[complex, complex, complex]] | None:
+                     max_offset_px: float | None, n_candidates: int, subset: int,
+                     refine: Callable[[np.ndarray], _Refined | None]) -> _Refined | None:
     """Translation hypotheses by voting, the best two refined (refine: the ICP of match_points)."""
     # 1. Translation hypotheses, near-linear in the number of points: a few detected spots near
     #    the middle of the detected pattern (least affected by an unknown roll or scale), each
@@ -259,7 +264,7 @@ def _vote_and_refine(det: np.ndarray, exp: np.ndarray, z_exp: np.ndarray, grid_d
         if len(order) == 2:
             break
 
-    best: tuple[int, float, np.ndarray, tuple[complex, complex, complex]] | None = None
+    best: _Refined | None = None
     for h in order:
         found_h = refine(shifts[h])
         if found_h is None:
