@@ -30,6 +30,7 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
+from analysis.fast_median import median as _median
 from analysis.image_filters import bilinear, gaussian_smooth, label_sparse, maximum_3x3
 from analysis.normal_cdf import ndtr
 
@@ -44,6 +45,7 @@ __all__ = [
 ]
 
 _MAD_TO_SIGMA = 1.4826  # 1 / Phi^-1(3/4): MAD -> sigma for Gaussian data.
+_REPAIR_K_SIGMA = 10.0  # hot/dead pixel candidates: this many noise sigmas from the background
 
 
 class SpotFlag(enum.Flag):
@@ -374,7 +376,7 @@ def _fit_windows(resid: np.ndarray, xs: np.ndarray, ys: np.ndarray, m: int, mask
     if mask is not None:
         use &= ~_gather(mask, index)
     if raw is not None:  # leave out repaired (-inf) and saturated pixels of the raw frame
-        raw_win = _gather(raw, index)
+        raw_win = _gather_raw(raw, index)
         use &= np.isfinite(raw_win)
         if saturation is not None:
             use &= raw_win < saturation
@@ -453,20 +455,41 @@ def _gauss_fit_batch(
     active = np.ones(n, dtype=bool)
     converged = np.zeros(n, dtype=bool)
     lo_in, hi_in = lo + 1e-9, hi - 1e-9
+    # The undamped J^T J of each spot where its fit ended by a small step: the Fisher
+    # information there (unit weights), so the covariance needs no further evaluation.
+    fisher = np.empty((n, 6, 6)) if covariance and not gain else None
+    have_fisher = np.zeros(n, dtype=bool)
     for _it in range(max_iter):
         if not active.any():
             break
         idx = np.nonzero(active)[0]
         sel = slice(None) if idx.size == n else idx  # views, not copies, while all are active
         A, g = _normal_equations(UV[sel], res[sel], wgt[sel], full[sel])
-        A_d = A  # damped in place: A is not used again
-        diag = np.einsum("nii->ni", A_d)  # a view on the diagonal
+        if fisher is not None:
+            fisher[sel] = A
+        diag = np.einsum("nii->ni", A)  # a view on the diagonal: A is damped in place
         diag *= 1.0 + lam[sel, None]
         try:
-            step = np.linalg.solve(A_d, g[:, :, None])[:, :, 0]
+            step = np.linalg.solve(A, g[:, :, None])[:, :, 0]
         except np.linalg.LinAlgError:
-            step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A_d, g)])
+            step = np.stack([np.linalg.lstsq(a, v, rcond=None)[0] for a, v in zip(A, g)])
         trial = np.minimum(np.maximum(p[sel] + step, lo_in[sel]), hi_in[sel])
+        # Converged when the step moves the centre by less than tol = 1e-4 px (a small fraction
+        # of any centroid uncertainty) and the flux by less than tol of itself. Near the minimum
+        # a Gauss-Newton step is the distance left to it (and the next one quadratically
+        # smaller), so a step that small is taken without evaluating the model there.
+        moved = np.abs(trial - p[sel])
+        small = (moved[:, 1] < tol) & (moved[:, 2] < tol) & (moved[:, 0] < tol * trial[:, 0] + 1e-9)
+        if small.any():
+            done = idx[small]
+            p[done] = trial[small]
+            converged[done] = True
+            active[done] = False
+            have_fisher[done] = True
+            if small.all():
+                continue
+            idx, trial = idx[~small], trial[~small]
+            sel = idx
         # The trial's Jacobian factors come with its model (they share the erf pieces) and are
         # kept when the step is taken: one evaluation per iteration.
         t_model, t_UV = _SubBatch(trial, start[sel], m).model_uv()
@@ -476,33 +499,22 @@ def _gauss_fit_batch(
         every = bool(better.all())
         ok = idx if every else idx[better]
         if every and ok.size == n:  # every spot active and improved: take the trial arrays whole
-            moved = np.abs(trial - p)
             p, cost, UV, res = trial, t_cost, t_UV, t_res
         elif every:
-            moved = np.abs(trial - p[ok])
             p[ok], cost[ok], UV[ok], res[ok] = trial, t_cost, t_UV, t_res
         else:
-            moved = np.abs(trial[better] - p[ok])
             p[ok] = trial[better]
             cost[ok] = t_cost[better]
             UV[ok], res[ok] = t_UV[better], t_res[better]
         lam[ok] = np.maximum(lam[ok] * 0.3, 1e-7)
-        # Converged when the centre moves less than tol = 1e-4 px (a small fraction of any
-        # centroid uncertainty) and the flux by less than tol of itself.
-        small = (moved[:, 1] < tol) & (moved[:, 2] < tol) & (moved[:, 0] < tol * p[ok, 0] + 1e-9)
-        done = ok[small]
         if every:  # no step refused: nothing is stuck
-            converged[done] = True
-            active[done] = False
             continue
-        lam[idx[~better]] *= 10.0
-        converged[done] = True
         rej = idx[~better]
+        lam[rej] *= 10.0
         # At the minimum to rounding (no step lowers the cost by more than 1e-9 of it), or the
         # damping has grown past any useful step.
         stuck = rej[(t_cost[~better] - cost[rej] <= 1e-9 * cost[rej]) | (lam[rej] > 1e6)]
         converged[stuck] = True
-        active[done] = False
         active[stuck] = False
     at_edge = ((p[:, 1] <= lo[:, 1] + 1e-6) | (p[:, 1] >= hi[:, 1] - 1e-6)
                | (p[:, 2] <= lo[:, 2] + 1e-6) | (p[:, 2] >= hi[:, 2] - 1e-6))
@@ -515,7 +527,12 @@ def _gauss_fit_batch(
         var = noise * noise + _clip(model - p[:, 5][:, None, None], 0, None) / gain
         A, _ = _normal_equations(UV, res, wgt / np.sqrt(var), np.ones(n, dtype=bool))
     else:
-        A, _ = _normal_equations(UV, res, wgt, full)
+        # The information of each fit ended by a small step is J^T J one step before its end
+        # (the step moved the centre by < tol); the others' is evaluated where they stopped.
+        A = fisher
+        rest = np.nonzero(~have_fisher)[0]
+        if rest.size:
+            A[rest] = _normal_equations(UV[rest], res[rest], wgt[rest], full[rest])[0]
         A = A / (noise * noise)
     cov = np.full((n, 6, 6), np.nan)
     try:
@@ -634,7 +651,7 @@ def _spots_from(raw: np.ndarray, resid: np.ndarray, window_px: int, method: str,
     ar = np.arange(-half, half + 1)
     index = _window_index((h, w), yi[:, None] + ar[None, :], xi[:, None] + ar[None, :])
     peak = _gather(resid, index).max(axis=(1, 2))
-    raw_win = _gather(raw, index)
+    raw_win = _gather_raw(raw, index)
     saturated = (raw_win.max(axis=(1, 2)) >= saturation) if saturation is not None else np.zeros(cx.size, bool)
     # A repaired pixel biases a centre of mass anywhere in its window; the Gaussian fit leaves
     # it out, which only matters when it was the spot's core (within 1 px of the centre).
@@ -697,12 +714,18 @@ def detect_spots(
     noise = bg.noise
     level = bg.level
     resid = raw - level
+    # float32 is ample for a detection threshold and halves the cost on large frames; the
+    # candidates of the repair come from it too (half the memory traffic of the float64 frame):
+    # a threshold lowered by 2^-20 makes them a superset, each then judged on its float64 value.
+    r32 = resid.astype(np.float32)
     if repair_bad_pixels:
-        resid, fixed = repair_isolated_pixels(resid, noise, copy=False)  # resid is ours
+        k_rep = _REPAIR_K_SIGMA
+        cand = np.flatnonzero(np.abs(r32.ravel()) > np.float32(k_rep * noise * (1.0 - 2.0 ** -20)))
+        resid, fixed = _repair_candidates(resid, noise, cand, k_sigma=k_rep, copy=False)  # resid is ours
         raw = _without(raw, fixed)
+        r32[fixed] = resid[fixed]
     if smooth_px > 0:
-        # float32 is ample for a detection threshold and halves the cost on large frames.
-        sm = gaussian_smooth(resid.astype(np.float32), smooth_px, truncate=3.0)
+        sm = gaussian_smooth(r32, smooth_px, truncate=3.0)
         k = _gauss_kernel_norm(smooth_px)
     else:
         sm, k = resid, 1.0
@@ -743,16 +766,21 @@ def detect_spots(
     if max_area_px is None:
         max_area_px = 4 * window_px * window_px
     # Two peaks in one component: only components holding two local maxima need the dip test.
+    # Local maxima: first against the left and right neighbours (few pixels pass), then only
+    # those against the other six.
     hh, ww = sm.shape
     sm_flat = sm.ravel()
     v = sm_flat[flat]
-    is_max = np.ones(flat.size, dtype=bool)
-    for dr in (-1, 0, 1):
-        row = _clip(rr + dr, 0, hh - 1) * ww
+    left = _clip(cc - 1, 0, ww - 1) - cc
+    right = _clip(cc + 1, 0, ww - 1) - cc
+    cand = np.flatnonzero((v >= sm_flat[flat + left]) & (v >= sm_flat[flat + right]))
+    vc, rc, cc_c = v[cand], rr[cand], cc[cand]
+    keep = np.ones(cand.size, dtype=bool)
+    for dr in (-1, 1):
+        row = _clip(rc + dr, 0, hh - 1) * ww
         for dc in (-1, 0, 1):
-            if dr or dc:
-                is_max &= v >= sm_flat[row + _clip(cc + dc, 0, ww - 1)]
-    n_max = np.bincount(lab_of[is_max], minlength=n + 1)
+            keep &= vc >= sm_flat[row + _clip(cc_c + dc, 0, ww - 1)]
+    n_max = np.bincount(lab_of[cand[keep]], minlength=n + 1)
     merged = areas[index - 1] > max_area_px
     for i in np.flatnonzero(~merged & (n_max[index] >= 2)).tolist():
         j = int(index[i]) - 1
@@ -771,7 +799,9 @@ def _window_for(s_spot: float) -> int:
 
 def _probe_pick(count: int, probe: int = 32) -> np.ndarray:
     """Up to `probe` indices spread evenly through a list of count spots."""
-    return np.unique(np.linspace(0, count - 1, min(probe, count)).astype(int))
+    if count <= probe:
+        return np.arange(count)
+    return np.linspace(0, count - 1, probe).astype(int)  # strictly increasing: step > 1
 
 
 def _moment_sigma(win: _Windows, noise: float) -> float:
@@ -798,7 +828,7 @@ def _moment_sigma(win: _Windows, noise: float) -> float:
         c = (prof @ ar) / safe
         m2 += (prof * (ar - c[:, None]) ** 2).sum(1) / safe
     s2 = np.maximum(m2[good] / 2.0 - 1.0 / 12.0, 0.09)
-    return float(np.median(np.sqrt(s2)))
+    return _median(np.sqrt(s2))
 
 
 def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.ndarray, ys: np.ndarray,
@@ -807,17 +837,21 @@ def _sized_gauss_fits(raw: np.ndarray, resid: np.ndarray, noise: float, xs: np.n
     """Gaussian fits of every spot in a window of +/-3.5 fitted spot sigmas (_window_for).
 
     The first window comes from the second moments of up to 32 spots (in a window of their
-    detected size plus a pixel each side); all spots are fitted in it. When the median fitted
+    detected size plus a pixel each side); all spots are fitted in it, their sigma started at
+    the median of those moments. When the median fitted
     sigma asks for another window, all are fitted once more in that one, starting from the
     first fits. Returns the window and the fits (as _gauss_fit_batch).
     """
     pick = _probe_pick(len(xs))
-    guess = int(min(61, max(7, int(np.median(extent[pick])) + 2))) | 1
-    window = _window_for(_moment_sigma(_fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation),
-                                       noise))
-    fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation)
+    guess = int(min(61, max(7, int(_median(extent[pick])) + 2))) | 1
+    s_moment = _moment_sigma(_fit_windows(resid, xs[pick], ys[pick], guess, None, raw, saturation), noise)
+    window = _window_for(s_moment)
+    # The noise-corrected median sigma is a better start for every spot's sigma than each
+    # window's own second moment (which clipped noise inflates): one fit iteration fewer.
+    fit = _gauss_fit_batch(resid, noise, xs, ys, window, gain, raw=raw, saturation=saturation,
+                           s0=np.full(xs.size, s_moment))
     ok = fit[6] & ~fit[7]
-    s_spot = float(np.median(fit[8][ok])) if ok.any() else 1.0
+    s_spot = _median(fit[8][ok]) if ok.any() else 1.0
     need = _window_for(s_spot)
     if need == window:
         return window, fit
@@ -856,7 +890,7 @@ _NEIGH_DC = np.array([-1, 0, 1, -1, 1, -1, 0, 1])
 
 
 def repair_isolated_pixels(
-    resid: np.ndarray, noise: float, *, k_sigma: float = 10.0, min_spot_sigma_px: float = 0.5,
+    resid: np.ndarray, noise: float, *, k_sigma: float = _REPAIR_K_SIGMA, min_spot_sigma_px: float = 0.5,
     margin_sigma: float = 3.0, rel_tolerance: float = 0.05, copy: bool = True,
 ) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
     """Replace hot and dead pixels by their 8-neighbour median; spots, however sharp, stay.
@@ -883,10 +917,22 @@ def repair_isolated_pixels(
     >>> float(fixed[3, 3]), [int(i[0]) for i in idx]
     (0.0, [3, 3])
     """
+    img = np.asarray(resid, dtype=float)
+    flat = np.flatnonzero(np.abs(img.ravel()) > k_sigma * noise)
+    return _repair_candidates(resid, noise, flat, k_sigma=k_sigma, min_spot_sigma_px=min_spot_sigma_px,
+                              margin_sigma=margin_sigma, rel_tolerance=rel_tolerance, copy=copy)
+
+
+def _repair_candidates(
+    resid: np.ndarray, noise: float, flat: np.ndarray, *, k_sigma: float = _REPAIR_K_SIGMA,
+    min_spot_sigma_px: float = 0.5, margin_sigma: float = 3.0, rel_tolerance: float = 0.05,
+    copy: bool = True,
+) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
+    """repair_isolated_pixels given the flat indices of its candidates, or of a superset of
+    them (the tests below judge each on its own value and neighbours)."""
     none = (np.zeros(0, dtype=int), np.zeros(0, dtype=int))
     img = np.asarray(resid, dtype=float)
     h, w = img.shape
-    flat = np.flatnonzero(np.abs(img.ravel()) > k_sigma * noise)
     if flat.size == 0:
         return resid, none
     rr, cc = np.divmod(flat, w)
@@ -925,14 +971,34 @@ def repair_isolated_pixels(
     return out, idx
 
 
-def _without(raw: np.ndarray, idx: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
-    """Raw frame with repaired pixels set to -inf: a hot pixel never reads as saturation, and a
+class _Repaired:
+    """The raw frame read as if its repaired pixels were -inf, without a copy of the frame:
+    only windows are ever read from it. A boolean image marks the repaired pixels (np.zeros
+    of a bool frame costs next to nothing until its pages are touched)."""
+
+    def __init__(self, raw: np.ndarray, flat: np.ndarray) -> None:
+        self.raw = raw
+        self.bad = np.zeros(raw.size, dtype=bool)
+        self.bad[flat] = True
+        self.shape = raw.shape
+
+    def gather(self, index: np.ndarray) -> np.ndarray:
+        out = _gather(self.raw, index)
+        out[self.bad[index]] = -np.inf
+        return out
+
+
+def _without(raw: np.ndarray, idx: tuple[np.ndarray, np.ndarray]) -> np.ndarray | _Repaired:
+    """Raw frame with repaired pixels reading -inf: a hot pixel never reads as saturation, and a
     window holding one is flagged BAD_PIXEL."""
     if idx[0].size == 0:
         return raw
-    out = raw.copy()
-    out[idx] = -np.inf
-    return out
+    return _Repaired(raw, idx[0] * raw.shape[1] + idx[1])
+
+
+def _gather_raw(raw: np.ndarray | _Repaired, index: np.ndarray) -> np.ndarray:
+    """Raw pixels at flat indices, repaired ones as -inf."""
+    return raw.gather(index) if isinstance(raw, _Repaired) else _gather(raw, index)
 
 
 def _gauss_kernel_norm(sigma: float) -> float:

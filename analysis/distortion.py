@@ -65,6 +65,7 @@ from analysis.geometry import (
     project,
     to_camera_frame,
 )
+from analysis.fast_median import median as _median
 from analysis.matching import MatchResult, match_points
 from analysis.verdicts import SpecKey, Verdict
 
@@ -791,17 +792,6 @@ def _rounded(value: float, sigma: float) -> str:
     return f"{value:+.{digits}f} +/- {sigma:.{digits}f}"
 
 
-def _median(v: np.ndarray) -> float:
-    """np.median of a non-empty 1-D array of finite numbers (the same value: the middle one, or
-    the mean of the two middle ones), without np.median's general-purpose wrapping."""
-    n = v.size
-    k = n // 2
-    if n % 2:
-        return float(np.partition(v, k)[k])
-    part = np.partition(v, (k - 1, k))
-    return float((part[k - 1] + part[k]) / 2.0)
-
-
 def _robust_scale(r: np.ndarray) -> float:
     """MAD-based sigma of normalized residual components (Rousseeuw & Croux 1993)."""
     v = np.asarray(r, dtype=float).ravel()
@@ -923,7 +913,7 @@ def analyze_grid(
         if n_extra:
             notes.append(f"{n_extra} detected spot(s) matched no expected point (hot pixel, reflection?)")
     if np.isnan(sigma).any() and not np.isnan(sigma).all():
-        sigma = np.where(np.isnan(sigma), np.median(sigma[~np.isnan(sigma)]), sigma)  # nanmedian, cheaper
+        sigma = np.where(np.isnan(sigma), _median(sigma[~np.isnan(sigma)]), sigma)  # nanmedian, cheaper
     return _analyze("grid", measured, sigma, dirs, nominal, labels, spec, terms, loss, n_sigma, defect_floor_px,
                     rule, min_radius_fraction, n_extra, match, notes, expected)
 

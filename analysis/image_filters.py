@@ -54,9 +54,11 @@ def _smooth_axis(a: np.ndarray, k: np.ndarray, axis: int) -> np.ndarray:
 def _smooth_rows(a: np.ndarray, k: np.ndarray) -> np.ndarray:
     """Correlate every row with a symmetric kernel, edge pixels repeated ("nearest").
 
-    One np.convolve over the whole frame as a single line (much faster than column slices);
-    it is exact wherever the kernel stays inside one row, and the r columns at each end,
-    where it would reach into the neighbouring row, are computed again with the edge repeated.
+    One correlation over the whole frame as a single line (shifted slices of one contiguous
+    1-D array, the pair of taps at +/-i added before the multiply, as along columns: faster
+    than column slices or np.convolve); it is exact wherever the kernel stays inside one row,
+    and the r columns at each end, where it would reach into the neighbouring row, are
+    computed again with the edge repeated.
     """
     r = (k.size - 1) // 2
     h, w = a.shape
@@ -65,7 +67,10 @@ def _smooth_rows(a: np.ndarray, k: np.ndarray) -> np.ndarray:
         cols = np.clip(np.arange(w)[:, None] + np.arange(-r, r + 1)[None, :], 0, w - 1)
         return (a[:, cols] * kc).sum(axis=2).astype(a.dtype)
     src = np.ascontiguousarray(a)
-    out = np.convolve(src.ravel(), kc[::-1], mode="same").reshape(h, w)
+    n = h * w
+    flat = np.empty(n, dtype=a.dtype)
+    _correlate_rows(src.ravel(), kc, flat[r:n - r])  # flat[:r], flat[n - r:] lie in the edge columns
+    out = flat.reshape(h, w)
     for j0 in (0, w - r):  # the r columns at each end
         cols = np.clip(np.arange(j0, j0 + r)[:, None] + np.arange(-r, r + 1)[None, :], 0, w - 1)
         out[:, j0:j0 + r] = (src[:, cols] * kc).sum(axis=2)

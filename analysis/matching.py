@@ -3,7 +3,8 @@
 Survives missing spots, extra spots (a hot pixel, a reflection) and an unknown small offset,
 roll and scale of the target. All points are (x, y) = (column, row) in pixels, arrays (N, 2).
 
-Method: translation hypotheses by voting (a few detected spots near the middle of the pattern
+Method: first the nominal place itself, refined as below; only when that leaves a point unpaired,
+translation hypotheses by voting (a few detected spots near the middle of the pattern
 paired with the expected points nearest to them, each hypothesis scored on a fixed-size subset
 by how many expected points then find a detected spot nearby, so the cost grows about linearly
 with the number of points; a generalised Hough / "alignment by voting" scheme, common practice in
@@ -20,10 +21,12 @@ centre of the expected pattern.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
+from analysis.fast_median import median
 from analysis.neighbours import PointGrid, k_nearest, mutual_nearest, nearest_neighbour_distances
 
 __all__ = ["PatternTransform", "MatchResult", "match_points"]
@@ -137,7 +140,7 @@ def match_points(
         )
     if not (np.all(np.isfinite(det)) and np.all(np.isfinite(exp))):
         raise ValueError("detected and expected points must be finite numbers (no NaN or infinity)")
-    pitch = float(np.median(nearest_neighbour_distances(exp)))
+    pitch = median(nearest_neighbour_distances(exp))
     if pitch <= 0:
         raise ValueError("expected points contain duplicates (zero grid pitch); check the target definition")
     gate = gate_px if gate_px is not None else 0.3 * pitch
@@ -148,12 +151,79 @@ def match_points(
     # One cell grid over the detections serves every search below (bounds up to its cell).
     grid_det = PointGrid(det, max(gate, 0.45 * pitch))
 
+    def refine(shift: np.ndarray, first_at_least: int = 3
+               ) -> tuple[int, float, np.ndarray, tuple[complex, complex, complex]] | None:
+        """Iterative closest point from a pure shift: pairs, their rms and the transform
+        (None when the first, widest pairing finds fewer than first_at_least pairs)."""
+        a, b, t = 1 + 0j, 0j, complex(*shift)
+        pairs = np.empty((0, 2), dtype=int)
+        settled = False
+        for it in range(iterations):
+            pred = _predict(z_exp, c, a, b, t, ref_radius)
+            g = max(gate, 0.45 * pitch * 0.75 ** it)  # shrink to the final gate in a few steps
+            new_pairs = _mutual(grid_det, pred, g)
+            if len(new_pairs) < (first_at_least if it == 0 else 3):
+                break
+            if g == gate and np.array_equal(new_pairs, pairs):
+                # Settled: the transform was solved from these very pairs, so solving again,
+                # predicting and pairing at the final gate would give them back unchanged.
+                settled = True
+                break
+            use_radial = radial and len(new_pairs) >= 8
+            zd = det[new_pairs[:, 0], 0] + 1j * det[new_pairs[:, 0], 1] - c
+            a, b, t = _solve(z_exp[new_pairs[:, 1]], zd, use_radial, ref_radius)
+            pairs = new_pairs
+        if len(pairs) < 3:
+            return None
+        if settled:
+            pred_xy = pred
+        else:
+            pred_xy = _predict(z_exp, c, a, b, t, ref_radius)
+            pairs = _mutual(grid_det, pred_xy, gate)
+        res = det[pairs[:, 0]] - pred_xy[pairs[:, 1]]
+        rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
+        return len(pairs), rms, pairs, (a, b, t)
+
+    # 0. The nominal place first: when refining from no shift pairs every detected spot or every
+    #    expected point, no hypothesis can pair more, and any other that paired as many would lie
+    #    a grid pitch further from the nominal place (the tie rule below), so the voting is
+    #    skipped. A frame off by more than the first gate, or with a spot missing, goes on to it.
+    #    Half the points must pair at the first gate, or the try ends there.
+    every = min(len(det), len(exp))
+    best = refine(np.zeros(2), max(3, every // 2)) if max_offset_px is None else None
+    if best is None or best[0] < every:
+        best = _vote_and_refine(det, exp, z_exp, grid_det, pitch, max_offset_px, n_candidates, subset, refine)
+    if best is None or best[0] < 3:
+        raise ValueError(
+            f"could not pair the {len(det)} detected spots with the {len(exp)} expected points "
+            "(fewer than 3 pairs); check the target, the collimator focal length and the UUT focal "
+            "length, or pass a larger gate"
+        )
+    n, rms, pairs, (a, b, t) = best
+    pairs = pairs[np.argsort(pairs[:, 1])]
+    return MatchResult(
+        pairs=pairs,
+        transform=PatternTransform(a=a, b=b, t=t, centre=(float(centre[0]), float(centre[1])), ref_radius=ref_radius),
+        unmatched_detected=_others(len(det), pairs[:, 0]),
+        unmatched_expected=_others(len(exp), pairs[:, 1]),
+        rms_px=rms,
+        gate_px=gate,
+    )
+
+
+_Refined = tuple[int, float, np.ndarray, tuple[complex, complex, complex]]
+
+
+def _vote_and_refine(det: np.ndarray, exp: np.ndarray, z_exp: np.ndarray, grid_det: PointGrid, pitch: float,
+                     max_offset_px: float | None, n_candidates: int, subset: int,
+                     refine: Callable[[np.ndarray], _Refined | None]) -> _Refined | None:
+    """Translation hypotheses by voting, the best two refined (refine: the ICP of match_points)."""
     # 1. Translation hypotheses, near-linear in the number of points: a few detected spots near
     #    the middle of the detected pattern (least affected by an unknown roll or scale), each
     #    paired only with the expected points nearest to it; each hypothesis scored on a fixed
     #    subset (the expected points nearest the pattern centre) by the count that find a
     #    detection within 0.45 pitch.
-    dmid = np.median(det, axis=0)
+    dmid = np.array([median(det[:, 0]), median(det[:, 1])])
     seeds = det[np.argsort(np.hypot(*(det - dmid).T))[: min(3, len(det))]]
     k = min(n_candidates, len(exp))
     _, cand = k_nearest(exp, seeds, k)
@@ -194,53 +264,15 @@ def match_points(
         if len(order) == 2:
             break
 
-    best: tuple[int, float, np.ndarray, tuple[complex, complex, complex]] | None = None
+    best: _Refined | None = None
     for h in order:
-        a, b, t = 1 + 0j, 0j, complex(*shifts[h])
-        pairs = np.empty((0, 2), dtype=int)
-        settled = False
-        for it in range(iterations):
-            pred = _predict(z_exp, c, a, b, t, ref_radius)
-            g = max(gate, 0.45 * pitch * 0.75 ** it)  # shrink to the final gate in a few steps
-            new_pairs = _mutual(grid_det, pred, g)
-            if len(new_pairs) < 3:
-                break
-            if g == gate and np.array_equal(new_pairs, pairs):
-                # Settled: the transform was solved from these very pairs, so solving again,
-                # predicting and pairing at the final gate would give them back unchanged.
-                settled = True
-                break
-            use_radial = radial and len(new_pairs) >= 8
-            zd = det[new_pairs[:, 0], 0] + 1j * det[new_pairs[:, 0], 1] - c
-            a, b, t = _solve(z_exp[new_pairs[:, 1]], zd, use_radial, ref_radius)
-            pairs = new_pairs
-        if len(pairs) < 3:
+        found_h = refine(shifts[h])
+        if found_h is None:
             continue
-        if settled:
-            pred_xy = pred
-        else:
-            pred_xy = _predict(z_exp, c, a, b, t, ref_radius)
-            pairs = _mutual(grid_det, pred_xy, gate)
-        res = det[pairs[:, 0]] - pred_xy[pairs[:, 1]]
-        rms = float(np.sqrt(np.mean(np.sum(res ** 2, axis=1)))) if len(pairs) else math.inf
+        n_p, _, _, (_, _, t) = found_h
         # More pairs wins; on a tie the hypothesis nearer the nominal place (see above).
-        if best is None or len(pairs) > best[0] or (len(pairs) == best[0] and abs(t) < abs(best[3][2])):
-            best = (len(pairs), rms, pairs, (a, b, t))
-        if len(pairs) >= 0.95 * min(len(det), len(exp)):
+        if best is None or n_p > best[0] or (n_p == best[0] and abs(t) < abs(best[3][2])):
+            best = found_h
+        if n_p >= 0.95 * min(len(det), len(exp)):
             break  # (nearly) everything paired: no other hypothesis can do better
-    if best is None or best[0] < 3:
-        raise ValueError(
-            f"could not pair the {len(det)} detected spots with the {len(exp)} expected points "
-            "(fewer than 3 pairs); check the target, the collimator focal length and the UUT focal "
-            "length, or pass a larger gate"
-        )
-    n, rms, pairs, (a, b, t) = best
-    pairs = pairs[np.argsort(pairs[:, 1])]
-    return MatchResult(
-        pairs=pairs,
-        transform=PatternTransform(a=a, b=b, t=t, centre=(float(centre[0]), float(centre[1])), ref_radius=ref_radius),
-        unmatched_detected=_others(len(det), pairs[:, 0]),
-        unmatched_expected=_others(len(exp), pairs[:, 1]),
-        rms_px=rms,
-        gate_px=gate,
-    )
+    return best
