@@ -88,4 +88,5 @@ def test_bad_notify_section_is_refused_with_its_line(tmp_path: Path, capsys, sec
     recipe.write_text(RECIPE_OK)
     assert main(["check", str(recipe), "--station", str(station), "--no-connect"]) == 2
     out = " ".join(capsys.readouterr().out.split())
-    assert "station.yaml:49:" in out and message in out
+    line = station.read_text().splitlines().index(section) + 1  # the appended section's line
+    assert f"station.yaml:{line}:" in out and message in out
