@@ -31,8 +31,8 @@ _MAX_TABLE = 1 << 22
 class PointGrid:
     """Points bucketed by cells of side `cell`; answers queries with bounds up to `cell`.
 
-    The table holds, per cell, the indices of its points in `slots` columns (the most any cell
-    holds), padded with len(points), whose coordinates are infinite; two rings of empty cells
+    The table holds, per occupied cell, the indices of its points in `slots` columns (the most
+    any cell holds), padded with len(points), whose coordinates are infinite; two rings of empty cells
     around the occupied ones let every query read its 3x3 block without bounds checks.
     """
 
@@ -69,9 +69,16 @@ class PointGrid:
             first[1:] = sk[1:] != sk[:-1]
             starts = np.nonzero(first)[0]
             rank = np.arange(n) - np.repeat(starts, np.diff(np.append(starts, n)))  # place within its cell
-            self._table = np.full((n_cells, self.slots), n, dtype=np.int64)
-            self._table[sk, rank] = order
-            self._table1 = self._table[:, 0].copy()
+            # rows only for the occupied cells (and one empty row, 0, for all the others): a
+            # far outlier that coarsens the cells and piles the points into a few of them
+            # costs (occupied cells x slots), never (all cells x slots)
+            row = np.cumsum(first).astype(np.int32)  # 1.. per occupied cell, in key order
+            self._row = np.zeros(n_cells, dtype=np.int32)
+            self._row[sk] = row
+            occupied = np.full((int(row[-1]) + 1, self.slots), n, dtype=np.int64)
+            occupied[row, rank] = order
+            self._table = occupied
+            self._table1 = occupied[:, 0][self._row]
         w = int(shape[1])
         self._block = np.array([di * w + dj for di in (-1, 0, 1) for dj in (-1, 0, 1)], dtype=np.int64)
 
@@ -92,7 +99,7 @@ class PointGrid:
         if self.slots == 1:
             idx = self._table1.take(cells)
         else:
-            idx = self._table[cells].reshape(len(q), -1)
+            idx = self._table[self._row.take(cells)].reshape(len(q), -1)
         if not good.all():
             idx[~good] = len(self.points)
         dx = self._px.take(idx)

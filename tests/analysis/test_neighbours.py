@@ -94,6 +94,15 @@ def test_far_outlier_keeps_results_exact():
     pts = np.vstack([rng.uniform(0, 100, (200, 2)), [[1e9, -1e9]]])
     q = rng.uniform(-10, 110, (200, 2))
     _check_nearest(pts, q, 3.0, False)
+    # and the table stays small: its size follows the occupied cells, not all of them
+    # (it once took 2.6 GB here: 4 M cells x 200 slots)
+    import tracemalloc
+
+    tracemalloc.start()
+    PointGrid(pts, 3.0)
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert peak < 64 * 1024 * 1024, f"{peak / 1e6:.0f} MB"
 
 
 def test_bad_input_is_a_clear_error():

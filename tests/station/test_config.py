@@ -102,7 +102,7 @@ def test_bench_command_names_the_instrument_that_does_not_answer(tmp_path):
     # and name the blackbody, not print a traceback.
     station = tmp_path / "station.yaml"
     text = DEFAULT_SIM_STATION.read_text().replace(
-        "    driver: scpi-blackbody\n    resource: sim+visa",
+        "    driver: scpi-blackbody\n    resource: sim+local",
         f"    driver: scpi-blackbody\n    resource: TCPIP::127.0.0.1::{_free_port()}::SOCKET")
     station.write_text(text)
     shutil.copy(BUILTIN_DIR / "demo_camera_truth.yaml", tmp_path)
