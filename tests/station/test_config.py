@@ -119,3 +119,27 @@ def test_bench_command_on_the_simulated_bench_lists_every_instrument():
     assert result.returncode == 0, result.stdout + result.stderr
     for role in ("blackbody", "wheel", "stage", "camera"):
         assert role in result.stdout
+
+
+@pytest.mark.parametrize("old,new,message", [
+    ("acceleration: 20.0, start: 0.0}", "acceleration: 20.0, start: .inf}",
+     "'start' must be a finite number"),
+    ("velocity: 10.0, acceleration: 20.0, start: 0.0}\n        el",
+     "velocity: 0, acceleration: 20.0, start: 0.0}\n        el",
+     "'velocity' must be a positive finite number"),
+])
+def test_simulated_timing_that_would_make_the_estimate_infinite_is_refused_with_its_line(
+        tmp_path, capsys, old, new, message):
+    """Found by the input fuzzer: an infinite stage start once crashed the duration estimate."""
+    from station.cli.main import main
+
+    text = DEFAULT_SIM_STATION.read_text()
+    assert old in text
+    station = tmp_path / "station.yaml"
+    station.write_text(text.replace(old, new, 1))
+    shutil.copy(BUILTIN_DIR / "demo_camera_truth.yaml", tmp_path)
+    line = next(i for i, row in enumerate(station.read_text().splitlines(), 1)
+                if new.split("\n")[0] in row)
+    assert main(["check", "distortion-grid", "--station", str(station)]) == 2
+    out = " ".join(capsys.readouterr().out.split())
+    assert f"station.yaml:{line}:" in out and message in out
