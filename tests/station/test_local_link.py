@@ -1,8 +1,9 @@
 """The in-process link (`sim+local`) answers a whole run exactly as a socket does.
 
-Reference: the same recipe on the same simulated bench with the blackbody behind pyvisa over a
-loopback socket (`sim+visa`); the two runs must send the same commands, get the same replies
-and find the same results. Only the transport differs, so any difference is the link's.
+Reference: the same recipe on the same simulated bench with the blackbody and the stage behind
+pyvisa over loopback sockets (`sim+visa`); the two runs must send the same commands, get the
+same replies and find the same results. Only the transport differs, so any difference is the
+link's.
 """
 
 from __future__ import annotations
@@ -32,9 +33,10 @@ def run(tmp_path: Path, link: str) -> tuple[list[tuple[str, str, str]], dict]:
     folder.mkdir()
     station = folder / "station.yaml"
     text = fast_station_yaml("link-bench", timeout_s=1.0)
-    text = text.replace("driver: scpi-blackbody\n    resource: sim+visa",
-                        f"driver: scpi-blackbody\n    resource: {link}")
-    assert f"resource: {link}" in text
+    for driver in ("scpi-blackbody", "scpi-stage"):
+        text = text.replace(f"driver: {driver}\n    resource: sim+visa",
+                            f"driver: {driver}\n    resource: {link}")
+    assert text.count(f"resource: {link}") == 2
     station.write_text(text, encoding="utf-8")
     recipe = folder / "recipe.yaml"
     recipe.write_text(RECIPE, encoding="utf-8")
@@ -47,9 +49,10 @@ def run(tmp_path: Path, link: str) -> tuple[list[tuple[str, str, str]], dict]:
     return io, json.loads((path / "results" / "sitf.json").read_text())
 
 
-def test_in_process_blackbody_gives_the_same_run_as_the_socket(tmp_path: Path) -> None:
+def test_in_process_blackbody_and_stage_give_the_same_run_as_the_socket(tmp_path: Path) -> None:
     io_socket, sitf_socket = run(tmp_path, "sim+visa")
     io_local, sitf_local = run(tmp_path, "sim+local")
     assert sum(1 for i, _, _ in io_local if i == "blackbody") > 20
+    assert sum(1 for i, _, _ in io_local if i == "stage") > 2
     assert io_local == io_socket
     assert sitf_local == sitf_socket
