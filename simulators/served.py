@@ -43,7 +43,6 @@ import json
 import math
 import signal
 import socket
-import socketserver
 import threading
 from collections import OrderedDict
 from collections.abc import Callable, Mapping
@@ -55,7 +54,7 @@ import numpy as np
 from drivers.clock import PacedClock, SimClock
 from simulators.bench import SimBench
 from simulators.camera_render import CameraRenderer, SceneState
-from simulators.line_server import LineServer
+from simulators.line_server import LineServer, Response
 from simulators.servers import start_bench_servers
 
 MAX_MARKS = 20_000
@@ -181,79 +180,42 @@ def control_handler(bench: ServedBench) -> Callable[[str], str]:
 
 
 # -- the camera server -----------------------------------------------------------------------------
-class _CameraServer(socketserver.ThreadingTCPServer):
-    daemon_threads = True
-    allow_reuse_address = True
-    block_on_close = False
+def camera_answer(bench: ServedBench) -> Callable[[str], Response]:
+    """The served camera's answer to one command line: text lines, and for GRAB a header line
+    followed by the frame's raw bytes (the LineServer sends `raw` as it is)."""
 
-    def __init__(self, bench: ServedBench) -> None:
-        super().__init__(("127.0.0.1", 0), _CameraHandler)
-        self.bench = bench
+    def answer(line: str) -> Response:
+        head, _, arg = line.partition(" ")
+        return Response(raw=_camera_reply(bench, head, arg.strip()))
 
-
-class _CameraHandler(socketserver.StreamRequestHandler):
-    server: _CameraServer
-
-    def handle(self) -> None:
-        bench = self.server.bench
-        self.connection.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-        while True:
-            try:
-                raw = self.rfile.readline()
-            except OSError:
-                return
-            if not raw:
-                return
-            head, _, arg = raw.decode("ascii", "replace").strip().partition(" ")
-            try:
-                payload = self._answer(bench, head, arg.strip())
-                self.wfile.write(payload)
-                self.wfile.flush()
-            except OSError:
-                return
-
-    @staticmethod
-    def _answer(bench: ServedBench, head: str, arg: str) -> bytes:
-        cam = bench.camera
-        if head == "INFO?":
-            rows, cols = bench.renderer.shape
-            ident = f"nightbench served simulated camera, {bench.renderer.truth.model}"
-            return f"{cols},{rows},{int(bench.renderer.truth.bit_depth)},{ident}\n".encode()
-        if head == "RATE":
-            rate = float(arg)
-            if not (math.isfinite(rate) and rate > 0):
-                return b'ERR 101,"rate must be above 0"\n'
-            with bench.sim.lock:
-                cam.period_s = 1.0 / rate
-            return b"OK\n"
-        if head == "BEGIN" and arg:
-            with bench.sim.lock:
-                cam.key, cam.index = arg, 0
-            return b"OK\n"
-        if head == "GRAB":
-            counter, stamp, data = bench.grab()
-            body = data.tobytes()
-            header = f"FRAME {counter} {stamp!r} {data.shape[0]} {data.shape[1]} {len(body)}\n"
-            return header.encode("ascii") + body
-        if head == "STATE?":
-            return f"{cam.counter}\n".encode()
-        return f'ERR 100,"unknown command {head}"\n'.encode()
+    return answer
 
 
-class CameraServer:
-    """The camera server in its own thread; `port` is where it listens."""
-
-    def __init__(self, bench: ServedBench) -> None:
-        self._server = _CameraServer(bench)
-        self.port: int = self._server.server_address[1]
-        self._thread = threading.Thread(target=self._server.serve_forever,
-                                        kwargs={"poll_interval": 0.05}, daemon=True,
-                                        name="sim-camera-socket")
-        self._thread.start()
-
-    def close(self) -> None:
-        self._server.shutdown()
-        self._server.server_close()
+def _camera_reply(bench: ServedBench, head: str, arg: str) -> bytes:
+    cam = bench.camera
+    if head == "INFO?":
+        rows, cols = bench.renderer.shape
+        ident = f"nightbench served simulated camera, {bench.renderer.truth.model}"
+        return f"{cols},{rows},{int(bench.renderer.truth.bit_depth)},{ident}\n".encode()
+    if head == "RATE":
+        rate = float(arg)
+        if not (math.isfinite(rate) and rate > 0):
+            return b'ERR 101,"rate must be above 0"\n'
+        with bench.sim.lock:
+            cam.period_s = 1.0 / rate
+        return b"OK\n"
+    if head == "BEGIN" and arg:
+        with bench.sim.lock:
+            cam.key, cam.index = arg, 0
+        return b"OK\n"
+    if head == "GRAB":
+        counter, stamp, data = bench.grab()
+        body = data.tobytes()
+        header = f"FRAME {counter} {stamp!r} {data.shape[0]} {data.shape[1]} {len(body)}\n"
+        return header.encode("ascii") + body
+    if head == "STATE?":
+        return f"{cam.counter}\n".encode()
+    return f'ERR 100,"unknown command {head}"\n'.encode()
 
 
 # -- running it --------------------------------------------------------------------------------
@@ -262,7 +224,7 @@ def start_served_bench(setup: Mapping[str, Any], *, seed: int = 1, speed: float 
     """Start every server; returns (bench, {role: resource string}, close)."""
     bench = ServedBench(setup, seed=seed, speed=speed)
     servers = start_bench_servers(bench.sim)
-    camera = CameraServer(bench)
+    camera = LineServer(camera_answer(bench), name="camera")
     control = LineServer(control_handler(bench), name="control")
     addresses = {"blackbody": servers.resource("blackbody", "visa"),
                  "wheel": servers.resource("wheel", "serial"),
@@ -351,5 +313,5 @@ class ServedClock:
             pass
 
 
-__all__ = ["CameraServer", "ServedBench", "ServedClock", "noise_index", "serve_forever",
+__all__ = ["camera_answer", "ServedBench", "ServedClock", "noise_index", "serve_forever",
            "start_served_bench"]

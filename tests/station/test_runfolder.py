@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
+import json
 from pathlib import Path
 
 import numpy as np
@@ -134,11 +135,6 @@ def test_frames_are_fsynced_only_on_real_time(tmp_path: Path, clock_kind: str,
     folder.close()
     expected = [] if clock_kind == "simulated" else ["flat.stack.tif.partial", "flat.avg.tif.partial"]
     assert synced == expected
+    meta = json.loads((folder.path / "frames" / "flat.json").read_text())
     assert hashlib.sha256(record.stack_path.read_bytes()).hexdigest() == \
-        json_sha(folder.path / "frames" / "flat.json", "stack")
-
-
-def json_sha(meta: Path, role: str) -> str:
-    import json
-
-    return str(json.loads(meta.read_text())["files"][role]["sha256"])
+        meta["files"]["stack"]["sha256"]
